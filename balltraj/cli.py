@@ -1,0 +1,176 @@
+"""The balltraj command line: parse options, call the library, print. No computation here.
+
+Heavy modules (scipy, matplotlib, cv2) are imported inside the commands that need them, so
+``balltraj --help`` and a single fit start quickly.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import List, Optional
+
+import typer
+
+from .errors import BallTrajError, InputError
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    help="balltraj: what a thrown, pitched, kicked or struck ball really did. "
+    "Bare numbers are SI (m, s, m/s); units such as 92mph, 2300rpm, 60.5ft are accepted where noted. "
+    "Keep people and cameras out of the ball's path; results are estimates, not officiating decisions.",
+)
+
+
+def _echo(text: str = "") -> None:
+    typer.echo(text)
+
+
+def _fail(err: BallTrajError) -> None:
+    typer.echo(f"error: {err.one_line()}", err=True)
+    raise typer.Exit(2)
+
+
+def _ball(name: str, ball_file: Optional[Path]):
+    from .formats import read_ball_file
+    from .physics.balls import get_ball
+
+    extra = {}
+    if ball_file is not None:
+        b = read_ball_file(ball_file)
+        extra[b.name] = b
+    return get_ball(name, extra)
+
+
+def _air(air_density, temperature, pressure, humidity, altitude):
+    from .physics.air import air_conditions
+    from .units import parse_quantity
+
+    rho = None if air_density is None else parse_quantity(air_density, "density", "--air-density")
+    if rho is not None and rho <= 0:
+        raise InputError(f"--air-density must be positive, got {air_density}")
+    t = None if temperature is None else parse_quantity(temperature, "temperature", "--temperature")
+    p = None
+    if pressure is not None:
+        # the contract's bare pressure is hPa; a unit (Pa, kPa, inHg) may be given
+        bare = str(pressure).strip().replace(".", "", 1).lstrip("+-").isdigit()
+        p = parse_quantity(pressure, "pressure", "--pressure") * (100.0 if bare else 1.0)
+    h = None if humidity is None else parse_quantity(humidity, "temperature", "--humidity")
+    alt = None if altitude is None else parse_quantity(altitude, "length", "--altitude")
+    return air_conditions(density=rho, temperature_c=t, pressure_pa=p, humidity_pct=h, altitude_m=alt)
+
+
+AIR_HELP = "Air density [kg/m^3]; or give --temperature/--pressure/--humidity/--altitude."
+
+
+@app.command()
+def simulate(
+    ball: str = typer.Option(..., "--ball", help="Ball name (see `balltraj balls`)."),
+    position: str = typer.Option(..., "--position", help="Launch point X,Y,Z [m]."),
+    speed: str = typer.Option(..., "--speed", help="Launch speed [m/s], or e.g. 92mph, 150kmh."),
+    elevation: str = typer.Option(..., "--elevation", help="Launch angle above horizontal [deg]."),
+    azimuth: str = typer.Option("0", "--azimuth", help="Launch direction from +x toward +y (left) [deg]."),
+    spin_rpm: str = typer.Option(..., "--spin-rpm", help="Spin rate [rpm] (or 230rad/s, 38rps)."),
+    spin_axis: str = typer.Option(..., "--spin-axis",
+                                  help="Spin axis X,Y,Z, right-hand rule (backspin toward +x: 0,-1,0)."),
+    drag_coefficient: Optional[float] = typer.Option(None, "--drag-coefficient", help="Constant C_D instead of the ball's model."),
+    lift_model: Optional[str] = typer.Option(None, "--lift-model", help="Lift model name (see `balltraj balls --models`)."),
+    lift_coefficient: Optional[float] = typer.Option(None, "--lift-coefficient", help="Constant C_L instead of a model."),
+    spin_decay: Optional[float] = typer.Option(None, "--spin-decay", help="Spin decay time constant [s]."),
+    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
+    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
+    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa] (or 101325pa)."),
+    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
+    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude above sea level [m] (or 5280ft)."),
+    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: landing point)."),
+    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    path_csv: Optional[Path] = typer.Option(None, "--path-csv", help="Also write the sampled path (t,x,y,z,vx,vy,vz)."),
+    out: Path = typer.Option(..., "-o", "--out", help="Flight file to write (JSON)."),
+):
+    """Predict a flight from a launch state and spin; write a flight file."""
+    try:
+        from .commands import run_simulate
+
+        summary = run_simulate(
+            ball=_ball(ball, ball_file), air=_air(air_density, temperature, pressure, humidity, altitude),
+            position=position, speed=speed, elevation=elevation, azimuth=azimuth, spin_rpm=spin_rpm,
+            spin_axis=spin_axis, drag_coefficient=drag_coefficient, lift_model=lift_model,
+            lift_coefficient=lift_coefficient, spin_decay=spin_decay, target_x=target_x,
+            path_csv=path_csv, out=out,
+        )
+    except BallTrajError as e:
+        _fail(e)
+    _echo(summary)
+
+
+@app.command()
+def fit(
+    inputs: List[Path] = typer.Argument(..., help="Track CSV(s) (t,x,y,z[,sigma])."),
+    ball: str = typer.Option(..., "--ball", help="Ball name (see `balltraj balls`)."),
+    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: last tracked x)."),
+    camera: Optional[Path] = typer.Option(None, "--camera", help="Camera or rig file (image-space fit; not yet available)."),
+    start_near: Optional[str] = typer.Option(None, "--start-near", help="Rough start point X,Y,Z [m]."),
+    start_sigma: float = typer.Option(0.3, "--start-sigma", help="How rough --start-near is [m]."),
+    fit_drag: bool = typer.Option(False, "--fit-drag", help="Also fit a scale on the drag model."),
+    free_lift: bool = typer.Option(False, "--free-lift", help="Fit a free constant lift coefficient instead of the ball's lift model."),
+    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
+    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
+    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa]."),
+    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
+    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude [m]."),
+    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    path_csv: Optional[Path] = typer.Option(None, "--path-csv", help="Write fitted and no-spin paths and their difference."),
+    out: Path = typer.Option(..., "-o", "--out", help="Flight file (one input) or folder (several)."),
+):
+    """Fit the flight model to tracked positions: launch state, transverse spin, deflection."""
+    try:
+        from .commands import run_fit
+
+        if camera is not None:
+            raise InputError("the image-space fit (--camera) is not available in this version",
+                             path=str(camera), hint="fit a 3D track CSV (t,x,y,z) instead")
+        text = run_fit(
+            inputs=inputs, ball=_ball(ball, ball_file),
+            air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
+            start_near=start_near, start_sigma=start_sigma, fit_drag=fit_drag, free_lift=free_lift,
+            path_csv=path_csv, out=out,
+        )
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@app.command()
+def balls(models: bool = typer.Option(False, "--models", help="Also list the aerodynamic models.")):
+    """List the ball catalogue (sizes from each game's rules) and the aerodynamic models."""
+    from .commands import balls_text
+
+    _echo(balls_text(models))
+
+
+@app.command()
+def demo(out: Path = typer.Option(Path("balltraj-demo"), "--out", help="Folder for the results.")):
+    """Run the whole job on the bundled sample session and print a summary."""
+    try:
+        from .commands import run_demo
+
+        text = run_demo(out)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+def main() -> None:
+    try:
+        app()
+    except SystemExit:
+        raise
+    except KeyboardInterrupt:
+        typer.echo("error: interrupted; no partial output was left", err=True)
+        sys.exit(130)
+    except Exception as e:  # a bug: say so, briefly
+        typer.echo(f"error: internal error ({type(e).__name__}: {e}); this is a bug in balltraj, please "
+                   "report it with the command you ran", err=True)
+        sys.exit(1)
