@@ -23,6 +23,8 @@ _USSA_LAPSE = 0.0065  # K/m
 _USSA_M = 0.0289644  # kg/mol
 _USSA_R = 8.31432  # J/(mol K) as used by USSA-1976
 
+_EARTH_R0 = 6356766.0  # m, USSA-1976 effective earth radius for geopotential altitude
+
 # Sutherland's law, USSA-1976 form
 SUTHERLAND_BETA = 1.458e-6  # kg m^-1 s^-1 K^-1/2
 SUTHERLAND_S = 110.4  # K
@@ -89,11 +91,12 @@ def moist_air_density(temperature_c, pressure_pa, humidity_pct=0.0, co2_fraction
 
 
 def standard_pressure_at_altitude(altitude_m):
-    """Pressure of the standard atmosphere at a geopotential altitude [Pa], troposphere only.
+    """Pressure of the standard atmosphere at a geometric altitude above sea level [Pa].
 
     Notes
     -----
-    p = p0 (1 - L h / T0)^(g0 M / (R L)), valid for -600 m .. 11 km.
+    H = r0 h / (r0 + h) (geopotential altitude, r0 = 6356766 m), then
+    p = p0 (1 - L H / T0)^(g0 M / (R* L)); troposphere, valid for -600 m .. 11 km.
 
     References
     ----------
@@ -102,7 +105,8 @@ def standard_pressure_at_altitude(altitude_m):
     >>> round(float(standard_pressure_at_altitude(1000.0)), 0)
     89875.0
     """
-    h = np.asarray(altitude_m, dtype=float)
+    z = np.asarray(altitude_m, dtype=float)
+    h = _EARTH_R0 * z / (_EARTH_R0 + z)
     expo = STANDARD_GRAVITY * _USSA_M / (_USSA_R * _USSA_LAPSE)
     return STANDARD_PRESSURE * (1 - _USSA_LAPSE * h / _USSA_T0) ** expo
 

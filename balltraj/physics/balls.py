@@ -147,10 +147,10 @@ _CATALOGUE: dict[str, Ball] = {
         ),
         _ball(
             "golf", "Golf ball",
-            (0.040, 0.04593), (0.04267, 0.04300),
+            (0.040, 1.620 * OUNCE_KG), (1.680 * INCH_M, 0.04300),
             "R&A/USGA Equipment Rules, Appendix III 'The Ball': at most 1.620 oz, at least 1.680 in "
             "across (no minimum mass, no maximum size; the catalogue range is a practical one)",
-            mass_kg=0.04593, diameter_m=0.04267,
+            mass_kg=0.0459, diameter_m=1.680 * INCH_M,
             drag_model="constant", drag_params={"value": 0.25},
             lift_model="proportional", lift_params={"slope": 1.0},
             lift_envelope=(0.0, 0.45),
