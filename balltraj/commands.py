@@ -113,3 +113,105 @@ def run_simulate(*, ball, air, position, speed, elevation, azimuth, spin_rpm, sp
                   (list(map(float, [t, *s])) for t, s in zip(tr.t[keep], tr.state[0, keep])))
     write_json(out_p, rec)
     return flight_summary(rec) + f"\nair             {air.source}; density {air.density:.4f} kg/m^3\nwrote {out_p}"
+
+
+def _fit_one(path, *, ball, air, target_x, start_near, start_sigma, fit_drag, free_lift):
+    from .errors import BallTrajError
+    from .fitting.analysis import fit_record
+    from .fitting.flight_fit import FitOptions, fit_flight
+    from .formats import read_track_csv
+    from .physics.flight import FlightModel
+
+    track = read_track_csv(path)
+    model = FlightModel.for_ball(ball, air)
+    if not (math.isfinite(start_sigma) and start_sigma > 0):
+        raise InputError(f"--start-sigma must be a positive number of metres, got {start_sigma}")
+    opts = FitOptions(fit_drag=fit_drag, free_lift=free_lift,
+                      start_near=None if start_near is None else parse_vector(start_near, "--start-near"),
+                      start_sigma=start_sigma)
+    try:
+        fit = fit_flight(model, track.t, track.xyz, track.sigma, opts)
+        rec, d = fit_record(fit, ball, air, model, target_x=_target(target_x), source=str(path))
+    except BallTrajError as e:
+        raise e.with_path(str(path)) from None
+    rec["air_note"] = air.source
+    return rec, d
+
+
+def _path_rows(d):
+    keep = d.spin_path.t <= max(d.time_s, d.reference_time_s) + 1e-12
+    t = d.spin_path.t[keep]
+    t = t[t >= d.spin_path.t[0]]
+    a = d.spin_path.positions(t)[0]
+    b = d.reference_path.positions(t)[0]
+    for ti, pa, pb in zip(t, a, b):
+        yield [float(ti), *map(float, pa), *map(float, pb), *map(float, pa - pb)]
+
+
+PATH_HEADER = ["t", "x", "y", "z", "ref_x", "ref_y", "ref_z", "dx", "dy", "dz"]
+
+SUMMARY_HEADER = ["source", "status", "ball", "launch_speed_mps", "elevation_deg", "azimuth_deg",
+                  "transverse_rate_rpm", "transverse_rate_sigma_rpm", "drag_coefficient", "lift_coefficient",
+                  "target_x_m", "deflection_horizontal_m", "deflection_vertical_m",
+                  "deflection_horizontal_sigma_m", "deflection_vertical_sigma_m", "n_points", "n_outliers",
+                  "rms_residual_m", "message"]
+
+
+def summary_row(source, rec: Optional[dict], error: Optional[str] = None) -> list:
+    if rec is None:
+        return [source, "failed"] + [""] * (len(SUMMARY_HEADER) - 3) + [error or ""]
+    L, S, D, U, F = rec["launch"], rec["spin"], rec["deflection"], rec["uncertainty"], rec["fit"]
+    return [source, "ok", rec["ball"], L["speed_mps"], L["elevation_deg"], L["azimuth_deg"],
+            S["transverse_rate_rpm"], U.get("spin", {}).get("transverse_rate_rpm", ""),
+            rec["aero"]["drag_coefficient"], rec["aero"]["lift_coefficient"], D["target_x_m"],
+            D["horizontal_m"], D["vertical_m"], U.get("deflection", {}).get("horizontal_m", ""),
+            U.get("deflection", {}).get("vertical_m", ""), F["n_points"], F["n_outliers"], F["rms_residual"],
+            "; ".join(rec.get("warnings", []))]
+
+
+def run_fit(*, inputs: Sequence[Path], ball, air, target_x, start_near, start_sigma, fit_drag, free_lift,
+            path_csv, out) -> str:
+    from .errors import BallTrajError
+    from .formats import check_output_path, write_csv, write_json
+
+    kw = dict(ball=ball, air=air, target_x=target_x, start_near=start_near, start_sigma=start_sigma,
+              fit_drag=fit_drag, free_lift=free_lift)
+    if len(inputs) == 1:
+        out_p = check_output_path(out, inputs)
+        if path_csv is not None:
+            check_output_path(path_csv, list(inputs) + [out])
+        rec, d = _fit_one(inputs[0], **kw)
+        if path_csv is not None:
+            write_csv(path_csv, PATH_HEADER, _path_rows(d),
+                      comment="fitted path, no-spin reference from the same launch state, and their difference (m)")
+        write_json(out_p, rec)
+        return flight_summary(rec) + f"\nwrote {out_p}"
+    out_dir = Path(out)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError("with several inputs, -o must be a folder", path=str(out))
+    if path_csv is not None:
+        raise InputError("--path-csv works with one input; with several, each flight file holds its points")
+    out_dir.mkdir(parents=True, exist_ok=True)
+    rows, lines, stems = [], [], set()
+    for i, path in enumerate(inputs):
+        stem = Path(path).stem
+        if stem in stems:
+            stem = f"{stem}-{i + 1}"
+        stems.add(stem)
+        try:
+            rec, _ = _fit_one(path, **kw)
+        except BallTrajError as e:
+            rows.append(summary_row(str(path), None, e.one_line()))
+            lines.append(f"{path}: failed: {e.one_line()}")
+            continue
+        write_json(out_dir / f"{stem}.json", rec)
+        rows.append(summary_row(str(path), rec))
+        lines.append(f"{path}: {rec['launch']['speed_mps']:.2f} m/s, {rec['spin']['transverse_rate_rpm']:.0f} rpm "
+                     f"transverse, deflection {rec['deflection']['horizontal_m'] * 100:+.1f} cm horizontal, "
+                     f"{rec['deflection']['vertical_m'] * 100:+.1f} cm vertical")
+    write_csv(out_dir / "summary.csv", SUMMARY_HEADER, rows)
+    n_ok = sum(1 for r in rows if r[1] == "ok")
+    lines.append(f"{n_ok} of {len(rows)} flights fitted; wrote {out_dir / 'summary.csv'}")
+    if n_ok == 0:
+        raise InputError("no flight could be fitted: " + rows[0][-1], path=str(inputs[0]))
+    return "\n".join(lines)

@@ -1,4 +1,5 @@
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -69,7 +70,7 @@ def test_up_throw_with_quadratic_drag():
 
 def test_horizontal_drag_only_decay():
     # Source: v(t) = v0/(1 + k v0 t), x = ln(1 + k v0 t)/k; REFERENCES.md 6.3 (k = 6.322e-3 1/m)
-    m = FlightModel(**{**baseball_reference_model().__dict__, "gravity": 0.0})
+    m = replace(baseball_reference_model(), gravity=0.0)
     k = m.k_factor * 0.35
     assert k == pytest.approx(6.322e-3, rel=1e-3)
     tr = integrate(m, 0.0, np.array([[0, 0, 0, 40.0, 0, 0]]), FlightParameters.make(1), (0, 0.5), max_step=0.01)
@@ -149,7 +150,7 @@ def test_energy_conserved_without_drag_and_lost_with_drag():
     tr = integrate(m0, 0.0, s0[None], p, (0, 3.0), max_step=0.005)
     e = 0.5 * np.sum(tr.state[0, :, 3:] ** 2, axis=1) + G * tr.state[0, :, 2]
     assert np.ptp(e) / e[0] < 1e-9
-    m1 = FlightModel(**{**m0.__dict__, "drag_params": {"value": 0.35}})
+    m1 = replace(m0, drag_params={"value": 0.35})
     tr = integrate(m1, 0.0, s0[None], p, (0, 3.0), max_step=0.005)
     e = 0.5 * np.sum(tr.state[0, :, 3:] ** 2, axis=1) + G * tr.state[0, :, 2]
     assert np.all(np.diff(e) < 0)
@@ -183,7 +184,7 @@ def test_deflection_of_section_8_3_pitch():
     m = FlightModel(mass_kg=0.145, diameter_m=0.07378, air_density=0.0, air_viscosity=1.8e-5,
                     drag_model="constant", drag_params={"value": 0.35}, lift_model="sawicki2003")
     rho = 0.018062 * 2 * 0.145 / (math.pi * 0.03689**2)
-    m = FlightModel(**{**m.__dict__, "air_density": rho})
+    m = replace(m, air_density=rho)
     s0 = np.array([0, 0, 1.8, 40.0, 0, 0])
     p = FlightParameters.make(1, spin=[0, -2200 * RPM, 0])
     d = plane_deflection(m, 0.0, s0, p, 16.8)
