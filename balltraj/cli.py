@@ -121,6 +121,9 @@ def fit(
     humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
     altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude [m]."),
     ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name, kept in the flight file."),
+    session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight file."),
+    notes: Optional[str] = typer.Option(None, "--notes", help="Free text kept in the flight file."),
     path_csv: Optional[Path] = typer.Option(None, "--path-csv", help="Write fitted and no-spin paths and their difference."),
     out: Path = typer.Option(..., "-o", "--out", help="Flight file (one input) or folder (several)."),
 ):
@@ -135,8 +138,28 @@ def fit(
             inputs=inputs, ball=_ball(ball, ball_file),
             air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
             start_near=start_near, start_sigma=start_sigma, fit_drag=fit_drag, free_lift=free_lift,
-            path_csv=path_csv, out=out,
+            path_csv=path_csv, out=out, labels={"athlete": athlete, "session": session, "notes": notes},
         )
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@app.command()
+def report(
+    flights: List[Path] = typer.Argument(..., help="Flight file(s) (JSON) from fit, simulate or analyze."),
+    units: str = typer.Option("metric", "--units", help="metric or imperial."),
+    fmt: str = typer.Option("html", "--format", help="html (any number of flights), png or pdf (one flight)."),
+    what_if_altitude: List[float] = typer.Option([], "--what-if-altitude", help="Also re-fly at this altitude [m]."),
+    what_if_temperature: List[float] = typer.Option([], "--what-if-temperature", help="Also re-fly at this temperature [deg C]."),
+    out: Path = typer.Option(..., "-o", "--out", help="Report file to write."),
+):
+    """Write a report a coach can read: headline numbers, paths with and without spin, fit quality."""
+    try:
+        from .commands import run_report
+
+        text = run_report(flights=flights, units=units, out=out, fmt=fmt, altitudes=what_if_altitude,
+                          temperatures=what_if_temperature)
     except BallTrajError as e:
         _fail(e)
     _echo(text)

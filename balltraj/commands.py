@@ -169,8 +169,17 @@ def summary_row(source, rec: Optional[dict], error: Optional[str] = None) -> lis
             "; ".join(rec.get("warnings", []))]
 
 
+def _label(rec: dict, labels: Optional[dict]) -> dict:
+    for k, v in (labels or {}).items():
+        if v is not None:
+            if len(v) > 500:
+                raise InputError(f"--{k} is longer than 500 characters")
+            rec[k] = v
+    return rec
+
+
 def run_fit(*, inputs: Sequence[Path], ball, air, target_x, start_near, start_sigma, fit_drag, free_lift,
-            path_csv, out) -> str:
+            path_csv, out, labels: Optional[dict] = None) -> str:
     from .errors import BallTrajError
     from .formats import check_output_path, write_csv, write_json
 
@@ -181,6 +190,7 @@ def run_fit(*, inputs: Sequence[Path], ball, air, target_x, start_near, start_si
         if path_csv is not None:
             check_output_path(path_csv, list(inputs) + [out])
         rec, d = _fit_one(inputs[0], **kw)
+        _label(rec, labels)
         if path_csv is not None:
             write_csv(path_csv, PATH_HEADER, _path_rows(d),
                       comment="fitted path, no-spin reference from the same launch state, and their difference (m)")
@@ -200,6 +210,7 @@ def run_fit(*, inputs: Sequence[Path], ball, air, target_x, start_near, start_si
         stems.add(stem)
         try:
             rec, _ = _fit_one(path, **kw)
+            _label(rec, labels)
         except BallTrajError as e:
             rows.append(summary_row(str(path), None, e.one_line()))
             lines.append(f"{path}: failed: {e.one_line()}")
@@ -214,4 +225,90 @@ def run_fit(*, inputs: Sequence[Path], ball, air, target_x, start_near, start_si
     lines.append(f"{n_ok} of {len(rows)} flights fitted; wrote {out_dir / 'summary.csv'}")
     if n_ok == 0:
         raise InputError("no flight could be fitted: " + rows[0][-1], path=str(inputs[0]))
+    return "\n".join(lines)
+
+
+def _title(path, rec) -> str:
+    name = Path(str(path)).stem
+    who = rec.get("athlete")
+    return f"{name} — {who}" if who else name
+
+
+def run_report(*, flights: Sequence[Path], units: str, out: Path, fmt: str = "html",
+               altitudes: Sequence[float] = (), temperatures: Sequence[float] = ()) -> str:
+    from .formats import atomic_write_bytes, check_output_path, read_flight_file
+
+    if units not in ("metric", "imperial"):
+        raise InputError(f"--units must be metric or imperial, got {units!r}")
+    if fmt not in ("html", "png", "pdf"):
+        raise InputError(f"--format must be html, png or pdf, got {fmt!r}")
+    out_p = check_output_path(out, flights)
+    recs = [read_flight_file(f) for f in flights]
+    titles = [_title(f, r) for f, r in zip(flights, recs)]
+    if fmt == "html":
+        from .report.html import build_report
+
+        page = build_report(recs, titles, units, {"altitudes": list(altitudes), "temperatures": list(temperatures)})
+        atomic_write_bytes(out_p, page.encode("utf-8"))
+    else:
+        if len(recs) != 1:
+            raise InputError(f"--format {fmt} makes a page for one flight; give one flight file or use html")
+        from .report.page import one_page
+
+        atomic_write_bytes(out_p, one_page(recs[0], titles[0], units, fmt))
+    return f"wrote {out_p} ({len(recs)} flight{'s' if len(recs) > 1 else ''}, {units})"
+
+
+def _sample_dir() -> Path:
+    for cand in (Path.cwd() / "sample_clips", Path(__file__).resolve().parents[1] / "sample_clips"):
+        if (cand / "tracks").is_dir():
+            return cand
+    raise InputError("the bundled sample session was not found",
+                     hint="run balltraj demo from the balltraj source folder (it holds sample_clips/)")
+
+
+def run_demo(out: Path, progress=None) -> str:
+    """Fit the bundled sample session, write flight files and one report, compare with truth."""
+    import json
+
+    from .formats import read_json, write_csv, write_json
+    from .physics.air import air_conditions
+    from .physics.balls import get_ball
+    from .report.html import build_report
+    from .formats import atomic_write_bytes
+
+    samples = _sample_dir()
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise InputError("the demo output must be a folder", path=str(out))
+    out.mkdir(parents=True, exist_ok=True)
+    rows, recs, titles, lines = [], [], [], []
+    tracks = sorted((samples / "tracks").glob("*.csv"))
+    header = f"{'flight':<16} {'athlete':<12} {'speed m/s':>10} {'spin rpm':>9} {'left cm':>8} {'up cm':>7}   truth: left, up cm"
+    lines.append(header)
+    for path in tracks:
+        truth = read_json(path.with_suffix(".truth.json"))
+        ball = get_ball(truth["truth"]["ball"])
+        air = air_conditions(**truth["air_kwargs"])
+        rec, d = _fit_one(path, ball=ball, air=air, target_x=str(truth["target_x_m"]), start_near=None,
+                          start_sigma=0.3, fit_drag=False, free_lift=False)
+        rec["athlete"], rec["session"] = truth["athlete"], truth["session"]
+        rec["notes"] = "Invented demo data (not a real club or athlete)."
+        write_json(out / f"{path.stem}.json", rec)
+        recs.append(rec)
+        titles.append(path.stem)
+        rows.append(summary_row(str(path), rec))
+        D, TD = rec["deflection"], truth["truth"]["deflection"]
+        lines.append(f"{path.stem:<16} {truth['athlete']:<12} {rec['launch']['speed_mps']:>10.2f} "
+                     f"{rec['spin']['transverse_rate_rpm']:>9.0f} {D['horizontal_m'] * 100:>8.1f} {D['vertical_m'] * 100:>7.1f}"
+                     f"   {TD['horizontal_m'] * 100:.1f}, {TD['vertical_m'] * 100:.1f}")
+        if progress:
+            progress()
+    write_csv(out / "summary.csv", SUMMARY_HEADER, rows)
+    page = build_report(recs, titles, "metric")
+    atomic_write_bytes(out / "report.html", page.encode("utf-8"))
+    lines.append("")
+    lines.append(f"flight files and summary.csv in {out}/; open {out / 'report.html'} in a browser")
+    lines.append("(invented demo session: the club and the athletes do not exist)")
+    _ = json
     return "\n".join(lines)

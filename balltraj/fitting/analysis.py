@@ -137,6 +137,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
                                    reject_outliers=False)
     baseline = baseline_summary(ca, model, target_x)
     defl = deflection_dict(d)
+    dcov_list = dcov.tolist()
     unc = {
         "launch": {"position_m": fit.sigmas()[:3].tolist(), "velocity_mps": fit.sigmas()[3:6].tolist(),
                    "speed_mps": sig["speed_mps"], "elevation_deg": sig["elevation_deg"],
@@ -145,7 +146,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "aero": {"drag_coefficient": sig["drag_coefficient"], "lift_coefficient": sig["lift_coefficient"],
                  "spin_parameter": sig["spin_parameter"]},
         "deflection": {"horizontal_m": sig["deflection_horizontal_m"], "vertical_m": sig["deflection_vertical_m"],
-                       "correlation": sig["deflection_correlation"]},
+                       "correlation": sig["deflection_correlation"], "covariance_m2": dcov_list},
         "method": "linearised (Jacobian) covariance scaled by the residual variance",
     }
     spin["observable"] = spin_observable
@@ -155,8 +156,8 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
     rec = {
         "schema": SCHEMA, "source": source or "fit", "tool_version": __version__, "ball": ball.name,
         "ball_properties": ball_dict(ball, model), "air": air.to_dict(),
-        "model": model_dict(model, drag_scale=fit.drag_scale, lift_override=fit.lift_override),
-        "fit_spin_vector": fit.spin.tolist(),
+        "model": model_dict(model, drag_scale=fit.drag_scale, lift_override=fit.lift_override,
+                            spin_vector=fit.spin),
         "launch": launch_dict(fit.t0, fit.state0),
         "spin": spin, "aero": aero, "deflection": defl, "break": d.break_summary(),
         "uncertainty": unc,

@@ -40,7 +40,7 @@ def aero_at(model: FlightModel, velocity, spin, lift_override: float = float("na
 
 
 def model_dict(model: FlightModel, drag_scale: float = 1.0, lift_override: float = float("nan"),
-               spin_decay_s: float = float("inf")) -> dict:
+               spin_decay_s: float = float("inf"), spin_vector=None) -> dict:
     """Everything needed to re-fly the flight (report what-ifs, reference paths)."""
     return {
         "mass_kg": model.mass_kg, "diameter_m": model.diameter_m, "air_density_kg_m3": model.air_density,
@@ -50,6 +50,7 @@ def model_dict(model: FlightModel, drag_scale: float = 1.0, lift_override: float
         "lift_params": dict(model.lift_params), "drag_scale": drag_scale,
         "lift_coefficient_override": None if not math.isfinite(lift_override) else lift_override,
         "spin_decay_s": None if not math.isfinite(spin_decay_s) else spin_decay_s,
+        "spin_vector_radps": None if spin_vector is None else [float(x) for x in spin_vector],
     }
 
 
@@ -132,7 +133,7 @@ def simulate_record(ball: Ball, air: AirConditions, model: FlightModel, state0, 
     rec: dict[str, Any] = {
         "schema": SCHEMA, "source": "simulate", "tool_version": __version__, "ball": ball.name,
         "ball_properties": ball_dict(ball, model), "air": air.to_dict(),
-        "model": model_dict(model, spin_decay_s=spin_decay_s),
+        "model": model_dict(model, spin_decay_s=spin_decay_s, spin_vector=spin),
         "launch": launch_dict(t0, s0),
         "spin": spin_dict(spin, s0[3:], gyro_observed=True),
         "aero": aero_at(model, s0[3:], spin),
