@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import math
+import re
 
 import matplotlib
 
@@ -32,7 +33,8 @@ def _svg(fig) -> str:
     fig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None})
     plt.close(fig)
     text = buf.getvalue()
-    return text[text.index("<svg"):]
+    text = text[text.index("<svg"):]
+    return re.sub(r"<metadata>.*?</metadata>", "", text, flags=re.S)
 
 
 def length_scale(units: str) -> tuple[float, str, float, str]:

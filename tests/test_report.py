@@ -1,0 +1,143 @@
+import json
+import shutil
+import subprocess
+import sys
+import xml.etree.ElementTree as ET
+
+import pytest
+from typer.testing import CliRunner
+
+from balltraj.cli import app
+from balltraj.report.paths import record_paths, what_if
+
+from synth import make_track, write_track
+
+runner = CliRunner()
+
+
+@pytest.fixture(scope="module")
+def flight_file(tmp_path_factory):
+    d = tmp_path_factory.mktemp("rep")
+    t, xyz, _ = make_track("baseball", seed=21)
+    p = d / "pitch.csv"
+    write_track(p, t, xyz)
+    out = d / "flight.json"
+    r = runner.invoke(app, ["fit", str(p), "--ball", "baseball", "--target-x", "17", "-o", str(out),
+                            "--athlete", "Ana <b>&\"Q\"</b>", "--session", "Tues & Thurs"])
+    assert r.exit_code == 0, r.output
+    return out
+
+
+def test_report_html_is_self_contained_and_escaped(flight_file, tmp_path):
+    out = tmp_path / "r.html"
+    r = runner.invoke(app, ["report", str(flight_file), "-o", str(out)])
+    assert r.exit_code == 0, r.output
+    page = out.read_text()
+    assert "Ana &lt;b&gt;&amp;&quot;Q&quot;&lt;/b&gt;" in page and "<b>&" not in page
+    # nothing to fetch: no external src/href/url() (xmlns namespace names are not requests)
+    import re
+
+    assert not re.search(r"""(src|href)\s*=\s*["']?(https?:|//)""", page)
+    assert "url(http" not in page and "@import" not in page
+    assert page.count("<svg") >= 5
+    rec = json.loads(flight_file.read_text())
+    assert f"{rec['launch']['speed_mps'] * 3.6:.1f}" in page  # headline speed in km/h
+    assert "not officiating decisions" in page
+
+
+def test_imperial_units(flight_file, tmp_path):
+    out = tmp_path / "r.html"
+    assert runner.invoke(app, ["report", str(flight_file), "--units", "imperial", "-o", str(out)]).exit_code == 0
+    rec = json.loads(flight_file.read_text())
+    # Source: 1 mph = 0.44704 m/s (exact)
+    assert f"{rec['launch']['speed_mps'] / 0.44704:.1f} ±" in out.read_text()
+    assert " in " in out.read_text()
+
+
+def test_plotted_target_plane_data_match_the_record(flight_file):
+    rec = json.loads(flight_file.read_text())
+    p = record_paths(rec)
+    # the re-flown paths reproduce the recorded crossings and deflection
+    assert p.crossing[1] - p.ref_crossing[1] == pytest.approx(rec["deflection"]["horizontal_m"], abs=1e-9)
+    assert p.crossing[2] - p.ref_crossing[2] == pytest.approx(rec["deflection"]["vertical_m"], abs=1e-9)
+    nospin = what_if(rec, no_spin=True)
+    assert nospin["deflection_horizontal_m"] == pytest.approx(0, abs=1e-12)
+
+
+def test_what_if_altitude_less_drag_and_lift(flight_file):
+    rec = json.loads(flight_file.read_text())
+    base = what_if(rec)
+    high = what_if(rec, altitude_m=1609.0)  # thinner air: less spin deflection
+    assert high["air_density_kg_m3"] < 0.9 * rec["model"]["air_density_kg_m3"]
+    assert abs(high["deflection_vertical_m"]) < abs(base["deflection_vertical_m"])
+
+
+def test_several_flights_and_png_pdf(flight_file, tmp_path):
+    other = tmp_path / "other.json"
+    rec = json.loads(flight_file.read_text())
+    rec["athlete"] = "Someone Else"
+    other.write_text(json.dumps(rec))
+    out = tmp_path / "both.html"
+    assert runner.invoke(app, ["report", str(flight_file), str(other), "-o", str(out)]).exit_code == 0
+    assert "Flights side by side" in out.read_text() and "By athlete and session" in out.read_text()
+    png, pdf = tmp_path / "one.png", tmp_path / "one.pdf"
+    assert runner.invoke(app, ["report", str(flight_file), "--format", "png", "-o", str(png)]).exit_code == 0
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert runner.invoke(app, ["report", str(flight_file), "--format", "pdf", "-o", str(pdf)]).exit_code == 0
+    assert pdf.read_bytes()[:5] == b"%PDF-"
+
+
+def test_svg_plots_parse(flight_file, tmp_path):
+    out = tmp_path / "r.html"
+    runner.invoke(app, ["report", str(flight_file), "-o", str(out)])
+    page = out.read_text()
+    i = page.index("<svg")
+    j = page.index("</svg>", i) + 6
+    ET.fromstring(page[i:j])
+
+
+@pytest.mark.parametrize("content,needle", [("not json", "not valid JSON"),
+                                            ('{"schema": "balltraj.flight/9"}', "schema"),
+                                            ('{"schema": "balltraj.flight/1"}', "missing section")])
+def test_bad_flight_files(tmp_path, content, needle):
+    p = tmp_path / "f.json"
+    p.write_text(content)
+    r = subprocess.run([sys.executable, "-m", "balltraj", "report", str(p), "-o", str(tmp_path / "r.html")],
+                       capture_output=True, text=True)
+    assert r.returncode == 2 and needle in r.stderr and str(p) in r.stderr
+    assert not (tmp_path / "r.html").exists()
+
+
+def test_missing_key_is_named(flight_file, tmp_path):
+    rec = json.loads(flight_file.read_text())
+    del rec["spin"]["transverse_axis"]
+    p = tmp_path / "f.json"
+    p.write_text(json.dumps(rec))
+    r = subprocess.run([sys.executable, "-m", "balltraj", "report", str(p), "-o", str(tmp_path / "r.html")],
+                       capture_output=True, text=True)
+    assert r.returncode == 2 and "spin.transverse_axis" in r.stderr
+
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+
+@pytest.mark.browser
+@pytest.mark.skipif(CHROMIUM is None and "CI" not in __import__("os").environ, reason="no chromium here")
+def test_report_in_headless_browser(flight_file, tmp_path):
+    assert CHROMIUM, "CI must install Debian's chromium (.ci/run does)"
+    out = tmp_path / "r.html"
+    runner.invoke(app, ["report", str(flight_file), "-o", str(out)])
+    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={tmp_path / 'u'}"]
+    shot = tmp_path / "shot.png"
+    subprocess.run([CHROMIUM, *flags, "--window-size=900,1400", f"--screenshot={shot}", out.as_uri()],
+                   capture_output=True, timeout=120)
+    text = subprocess.run([CHROMIUM, *flags, "--dump-dom", out.as_uri()], capture_output=True, text=True,
+                          timeout=120).stdout
+    rec = json.loads(flight_file.read_text())
+    assert f"{rec['launch']['speed_mps'] * 3.6:.1f}" in text
+    assert f"{rec['spin']['transverse_rate_rpm']:.0f} ±" in text
+    import matplotlib.image as mpimg
+
+    img = mpimg.imread(shot)
+    assert img.shape[0] > 1000 and img.std() > 0.05  # not blank
