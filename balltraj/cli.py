@@ -110,7 +110,8 @@ def fit(
     inputs: List[Path] = typer.Argument(..., help="Track CSV(s) (t,x,y,z[,sigma])."),
     ball: str = typer.Option(..., "--ball", help="Ball name (see `balltraj balls`)."),
     target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: last tracked x)."),
-    camera: Optional[Path] = typer.Option(None, "--camera", help="Camera or rig file (image-space fit; not yet available)."),
+    camera: Optional[Path] = typer.Option(None, "--camera", help="Camera or rig file: fit pixel observations (t,camera,u,v) in image space."),
+    flight: Optional[int] = typer.Option(None, "--flight", help="Which flight of an observations file with a flight column."),
     start_near: Optional[str] = typer.Option(None, "--start-near", help="Rough start point X,Y,Z [m]."),
     start_sigma: float = typer.Option(0.3, "--start-sigma", help="How rough --start-near is [m]."),
     fit_drag: bool = typer.Option(False, "--fit-drag", help="Also fit a scale on the drag model."),
@@ -131,14 +132,12 @@ def fit(
     try:
         from .commands import run_fit
 
-        if camera is not None:
-            raise InputError("the image-space fit (--camera) is not available in this version",
-                             path=str(camera), hint="fit a 3D track CSV (t,x,y,z) instead")
         text = run_fit(
             inputs=inputs, ball=_ball(ball, ball_file),
             air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
             start_near=start_near, start_sigma=start_sigma, fit_drag=fit_drag, free_lift=free_lift,
             path_csv=path_csv, out=out, labels={"athlete": athlete, "session": session, "notes": notes},
+            camera=camera, flight=flight,
         )
     except BallTrajError as e:
         _fail(e)
@@ -180,6 +179,88 @@ def demo(out: Path = typer.Option(Path("balltraj-demo"), "--out", help="Folder f
         from .commands import run_demo
 
         text = run_demo(out)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+calibrate_app = typer.Typer(help="Calibrate cameras: a printable board, the lens from board views, the scene "
+                            "(camera pose) from field landmarks.", no_args_is_help=True)
+app.add_typer(calibrate_app, name="calibrate")
+
+
+@calibrate_app.command("board")
+def calibrate_board(
+    cols: int = typer.Option(9, "--cols", help="Inner corners across."),
+    rows: int = typer.Option(6, "--rows", help="Inner corners down."),
+    square_mm: float = typer.Option(30.0, "--square-mm", help="Square size [mm]."),
+    out: Path = typer.Option(..., "-o", "--out", help="Board file; writes NAME.png and NAME.pdf."),
+):
+    """Write a printable checkerboard (PNG and PDF) at a stated square size."""
+    try:
+        from .commands import run_calibrate_board
+
+        text = run_calibrate_board(cols=cols, rows=rows, square_mm=square_mm, out=out)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@calibrate_app.command("lens")
+def calibrate_lens_cmd(
+    inputs: List[Path] = typer.Argument(..., help="Images of the printed board, or a video of it."),
+    cols: int = typer.Option(9, "--cols", help="Inner corners across."),
+    rows: int = typer.Option(6, "--rows", help="Inner corners down."),
+    square_mm: float = typer.Option(30.0, "--square-mm", help="Square size as printed [mm]."),
+    name: str = typer.Option("camera", "--name", help="Camera name."),
+    every: int = typer.Option(10, "--every", help="With a video: use every Nth frame."),
+    out: Path = typer.Option(..., "-o", "--out", help="Lens (camera) file to write."),
+):
+    """Calibrate the lens (focal length, centre, distortion) from views of a checkerboard."""
+    try:
+        from .commands import run_calibrate_lens
+
+        text = run_calibrate_lens(inputs=inputs, cols=cols, rows=rows, square_mm=square_mm, name=name, out=out,
+                                  every=every)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@calibrate_app.command("scene")
+def calibrate_scene_cmd(
+    landmarks: Optional[Path] = typer.Option(None, "--landmarks", help="CSV of landmarks: x,y,z,u,v[,name]."),
+    template: Optional[str] = typer.Option(None, "--template", help="Field markings: baseball-pitch, soccer-goal, "
+                                           "tennis-court, cricket-pitch."),
+    points: Optional[Path] = typer.Option(None, "--points", help="With --template: CSV name,u,v of the marks seen."),
+    lens: Optional[Path] = typer.Option(None, "--lens", help="Lens file from `calibrate lens`."),
+    image_size: Optional[str] = typer.Option(None, "--image-size", help="WxH when there is no lens file."),
+    name: str = typer.Option("camera", "--name", help="Camera name."),
+    out: Path = typer.Option(..., "-o", "--out", help="Camera file to write."),
+):
+    """Place the camera in the world frame from landmarks whose positions are known."""
+    try:
+        from .commands import run_calibrate_scene
+
+        text = run_calibrate_scene(landmarks=landmarks, template=template, points=points, lens=lens,
+                                   image_size=image_size, name=name, out=out)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@app.command()
+def triangulate(
+    observations: Path = typer.Argument(..., help="Observations CSV (t,camera,u,v) from two or more cameras."),
+    camera: Path = typer.Option(..., "--camera", help="Rig file with every camera."),
+    flight: Optional[int] = typer.Option(None, "--flight", help="Which flight, when the file has a flight column."),
+    out: Path = typer.Option(..., "-o", "--out", help="3D track CSV to write."),
+):
+    """Export a 3D track (t,x,y,z) triangulated from two or more calibrated cameras."""
+    try:
+        from .commands import run_triangulate
+
+        text = run_triangulate(observations=observations, camera=camera, out=out, flight=flight)
     except BallTrajError as e:
         _fail(e)
     _echo(text)

@@ -64,7 +64,8 @@ def flight_summary(rec: dict, units: str = "metric") -> str:
     f = rec["fit"]
     if f["n_points"]:
         lines.append(f"fit             {f['n_points']} points, {f['n_outliers']} outliers, "
-                     f"rms residual {f['rms_residual'] * 1000:.1f} mm")
+                     + (f"rms residual {f['rms_residual'] * 1000:.1f} mm" if f["residual_unit"] == "m"
+                        else f"rms residual {f['rms_residual']:.2f} px"))
     for w in rec.get("warnings", []):
         lines.append(f"warning: {w}")
     return "\n".join(lines)
@@ -115,27 +116,53 @@ def run_simulate(*, ball, air, position, speed, elevation, azimuth, spin_rpm, sp
     return flight_summary(rec) + f"\nair             {air.source}; density {air.density:.4f} kg/m^3\nwrote {out_p}"
 
 
-def _fit_one(path, *, ball, air, target_x, start_near, start_sigma, fit_drag, free_lift):
+def _fit_one(path, *, ball, air, target_x, start_near, start_sigma, fit_drag, free_lift, cameras=None,
+             flight=None):
     from .errors import BallTrajError
     from .fitting.analysis import fit_record
     from .fitting.flight_fit import FitOptions, fit_flight
-    from .formats import read_track_csv
+    from .formats import csv_columns, read_observations_csv, read_track_csv
     from .physics.flight import FlightModel
 
-    track = read_track_csv(path)
     model = FlightModel.for_ball(ball, air)
     if not (math.isfinite(start_sigma) and start_sigma > 0):
         raise InputError(f"--start-sigma must be a positive number of metres, got {start_sigma}")
     opts = FitOptions(fit_drag=fit_drag, free_lift=free_lift,
                       start_near=None if start_near is None else parse_vector(start_near, "--start-near"),
                       start_sigma=start_sigma)
+    cols = csv_columns(path)
+    image = {"u", "v", "camera"} <= set(cols)
     try:
-        fit = fit_flight(model, track.t, track.xyz, track.sigma, opts)
+        if image:
+            if cameras is None:
+                raise InputError("this file holds pixel observations (t,camera,u,v); give --camera CAMERA.json",
+                                 path=str(path))
+            from .fitting.image_fit import fit_flight_image
+
+            obs = _one_flight(read_observations_csv(path), flight)
+            fit = fit_flight_image(model, obs.t, obs.camera, obs.uv, cameras, radius_px=obs.radius_px, options=opts)
+        else:
+            track = read_track_csv(path)
+            fit = fit_flight(model, track.t, track.xyz, track.sigma, opts)
         rec, d = fit_record(fit, ball, air, model, target_x=_target(target_x), source=str(path))
     except BallTrajError as e:
         raise e.with_path(str(path)) from None
     rec["air_note"] = air.source
     return rec, d
+
+
+def _one_flight(obs, flight):
+    if obs.flight is None:
+        return obs
+    ids = sorted(set(obs.flight.tolist()))
+    if flight is None:
+        if len(ids) > 1:
+            raise InputError(f"the file holds {len(ids)} flights ({', '.join(f'{i:g}' for i in ids)})",
+                             path=obs.path, hint="choose one with --flight N")
+        return obs
+    if flight not in ids:
+        raise InputError(f"there is no flight {flight} (flights: {', '.join(f'{i:g}' for i in ids)})", path=obs.path)
+    return obs.select(obs.flight == flight)
 
 
 def _path_rows(d):
@@ -179,12 +206,14 @@ def _label(rec: dict, labels: Optional[dict]) -> dict:
 
 
 def run_fit(*, inputs: Sequence[Path], ball, air, target_x, start_near, start_sigma, fit_drag, free_lift,
-            path_csv, out, labels: Optional[dict] = None) -> str:
+            path_csv, out, labels: Optional[dict] = None, camera: Optional[Path] = None,
+            flight: Optional[int] = None) -> str:
     from .errors import BallTrajError
-    from .formats import check_output_path, write_csv, write_json
+    from .formats import check_output_path, read_cameras, write_csv, write_json
 
+    cams = None if camera is None else read_cameras(camera)
     kw = dict(ball=ball, air=air, target_x=target_x, start_near=start_near, start_sigma=start_sigma,
-              fit_drag=fit_drag, free_lift=free_lift)
+              fit_drag=fit_drag, free_lift=free_lift, cameras=cams, flight=flight)
     if len(inputs) == 1:
         out_p = check_output_path(out, inputs)
         if path_csv is not None:
@@ -312,3 +341,168 @@ def run_demo(out: Path, progress=None) -> str:
     lines.append("(invented demo session: the club and the athletes do not exist)")
     _ = json
     return "\n".join(lines)
+
+
+# ------------------------------------------------------------------------------ cameras
+IMAGE_EXT = {".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff"}
+
+
+def _read_gray(path):
+    import cv2
+
+    img = cv2.imread(str(path), cv2.IMREAD_GRAYSCALE)
+    if img is None:
+        raise InputError("cannot read this image", path=str(path), hint="give PNG or JPEG images, or a video")
+    return img
+
+
+def _video_frames(path, every: int = 10, limit: int = 60):
+    import cv2
+
+    cap = cv2.VideoCapture(str(path))
+    if not cap.isOpened():
+        raise InputError("cannot open this video", path=str(path))
+    out, k = [], 0
+    while len(out) < limit:
+        ok, frame = cap.read()
+        if not ok:
+            break
+        if k % every == 0:
+            out.append((f"{Path(path).name}#{k}", cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY)))
+        k += 1
+    cap.release()
+    if not out:
+        raise InputError("the video holds no readable frames", path=str(path))
+    return out
+
+
+def run_calibrate_lens(*, inputs: Sequence[Path], cols: int, rows: int, square_mm: float, name: str, out: Path,
+                       every: int = 10) -> str:
+    from .camera.calibrate import calibrate_lens
+    from .formats import check_output_path, write_json
+
+    if cols < 3 or rows < 3 or not (square_mm > 0 and math.isfinite(square_mm)):
+        raise InputError("--cols and --rows must be at least 3 and --square-mm positive")
+    out_p = check_output_path(out, inputs)
+    views = []
+    for p in inputs:
+        if not Path(p).exists():
+            raise InputError("no such file", path=str(p))
+        if Path(p).suffix.lower() in IMAGE_EXT:
+            views.append((Path(p).name, _read_gray(p)))
+        else:
+            views += _video_frames(p, every=every)
+    res = calibrate_lens(views, cols, rows, square_mm / 1000.0, name)
+    d = res.camera.to_dict()
+    d["calibration"] = {"kind": "lens", "rms_px": res.rms_px, "views_used": res.used,
+                        "per_view_rms_px": dict(zip(res.used, res.per_view_px)), "rejected": res.rejected,
+                        "coverage": res.coverage, "warnings": res.warnings,
+                        "note": "rvec/tvec are placeholders until `balltraj calibrate scene` places the camera"}
+    write_json(out_p, d)
+    lines = [f"lens of {name!r}: focal {res.camera.K[0, 0]:.1f} x {res.camera.K[1, 1]:.1f} px, centre "
+             f"({res.camera.K[0, 2]:.1f}, {res.camera.K[1, 2]:.1f}) px, rms reprojection {res.rms_px:.3f} px",
+             f"{len(res.used)} views used, {len(res.rejected)} rejected"]
+    lines += [f"  rejected {k}: {v}" for k, v in res.rejected.items()]
+    lines += [f"  {k}: {e:.3f} px" for k, e in zip(res.used, res.per_view_px)]
+    lines += [f"warning: {w}" for w in res.warnings]
+    lines.append(f"wrote {out_p}")
+    return "\n".join(lines)
+
+
+def run_calibrate_board(*, cols: int, rows: int, square_mm: float, out: Path) -> str:
+    import io
+
+    from .camera.calibrate import board_figure
+    from .formats import atomic_write_bytes, check_output_path
+
+    if cols < 3 or rows < 3 or cols > 40 or rows > 40 or not (5 <= square_mm <= 200):
+        raise InputError("a board needs 3..40 inner corners each way and squares of 5..200 mm")
+    out_p = check_output_path(out)
+    fig = board_figure(cols, rows, square_mm)
+    written = []
+    for ext in (".png", ".pdf"):
+        buf = io.BytesIO()
+        fig.savefig(buf, format=ext[1:], dpi=300)
+        target = out_p.with_suffix(ext)
+        atomic_write_bytes(target, buf.getvalue())
+        written.append(str(target))
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)
+    return f"board {cols}x{rows} inner corners, squares {square_mm:g} mm: wrote {', '.join(written)} (print at 100 %)"
+
+
+def run_calibrate_scene(*, landmarks: Optional[Path], template: Optional[str], points: Optional[Path],
+                        lens: Optional[Path], image_size: Optional[str], name: str, out: Path) -> str:
+    from .camera.calibrate import calibrate_scene, describe_pose, template_points
+    from .formats import check_output_path, numeric_column, read_cameras, read_csv_table, write_json
+
+    out_p = check_output_path(out, [p for p in (landmarks, points, lens) if p is not None])
+    lens_cam = None if lens is None else read_cameras(lens)[0]
+    if template is not None:
+        tpl = template_points(template)
+        if points is None:
+            raise InputError("--template needs --points PIXELS.csv (columns name,u,v)",
+                             hint=f"landmark names: {', '.join(tpl['points'])}")
+        table = read_csv_table(points, ["name", "u", "v"])
+        names = table.columns["name"]
+        unknown = [n for n in names if n not in tpl["points"]]
+        if unknown:
+            raise InputError(f"unknown landmark(s) {', '.join(unknown)} for template {template}", path=str(points),
+                             hint=f"the template names: {', '.join(tpl['points'])}")
+        world = np.array([tpl["points"][n] for n in names])
+        uv = np.column_stack([numeric_column(table, "u"), numeric_column(table, "v")])
+        frame, src = tpl["frame"], str(points)
+    elif landmarks is not None:
+        table = read_csv_table(landmarks, ["x", "y", "z", "u", "v"], ["name"])
+        world = np.column_stack([numeric_column(table, c) for c in "xyz"])
+        uv = np.column_stack([numeric_column(table, "u"), numeric_column(table, "v")])
+        names = table.columns.get("name") or [f"landmark {i + 1}" for i in range(table.n_rows)]
+        frame, src = "as given by the landmark coordinates in the CSV", str(landmarks)
+    else:
+        raise InputError("give --landmarks LANDMARKS.csv (x,y,z,u,v) or --template NAME --points PIXELS.csv")
+    if lens_cam is not None:
+        size = lens_cam.image_size
+    elif image_size is not None:
+        try:
+            w, h = (int(x) for x in image_size.lower().split("x"))
+        except ValueError:
+            raise InputError(f"--image-size must look like 1280x720, got {image_size!r}") from None
+        size = (w, h)
+    else:
+        raise InputError("give --lens LENS.json or --image-size WxH")
+    try:
+        res = calibrate_scene(world, uv, list(names), lens_cam, size, name=name, frame=frame)
+    except InputError as e:
+        raise e.with_path(src) from None
+    d = res.camera.to_dict()
+    d["calibration"] = {"kind": "scene", "world_frame": res.frame, "rms_px": res.rms_px,
+                        "landmark_errors_px": res.errors_px, "focal_estimated_from_landmarks": res.focal_estimated,
+                        "template": template}
+    write_json(out_p, d)
+    lines = [describe_pose(res.camera), f"world frame: {res.frame}",
+             f"rms reprojection {res.rms_px:.2f} px over {len(names)} landmarks"]
+    lines += [f"  {k}: {v:.2f} px" for k, v in res.errors_px.items()]
+    if res.focal_estimated:
+        lines.append("note: focal length estimated from the landmarks (no lens file); lens distortion assumed zero")
+    lines.append(f"wrote {out_p}")
+    return "\n".join(lines)
+
+
+def run_triangulate(*, observations: Path, camera: Path, out: Path, flight: Optional[int] = None) -> str:
+    from .camera.triangulate import triangulate_observations
+    from .formats import check_output_path, read_cameras, read_observations_csv, write_csv
+
+    out_p = check_output_path(out, [observations, camera])
+    cams = read_cameras(camera)
+    obs = _one_flight(read_observations_csv(observations), flight)
+    try:
+        t, xyz = triangulate_observations(obs.t, obs.camera, obs.uv, cams)
+    except InputError as e:
+        raise e.with_path(str(observations)) from None
+    if len(t) < 2:
+        raise InputError("the cameras' observations do not overlap in time", path=str(observations),
+                         hint="check the time offsets in the rig file")
+    write_csv(out_p, ["t", "x", "y", "z"], ([float(a), *map(float, b)] for a, b in zip(t, xyz)),
+              comment=f"triangulated from {observations} with {camera}")
+    return f"triangulated {len(t)} points from {len(set(obs.camera))} cameras; wrote {out_p}"

@@ -198,6 +198,16 @@ def read_csv_table(path, required: Sequence[str], optional: Sequence[str] = ()) 
     return CsvTable(str(path), cols, len(rows) - 1, [ln for ln, _ in lines[1:]])
 
 
+def csv_columns(path) -> list[str]:
+    """Lower-cased header names of a CSV (first non-comment line)."""
+    text = _read_text(path)
+    for ln in text.splitlines():
+        if ln.strip() and not ln.lstrip().startswith("#"):
+            sep = ";" if (";" in ln and "," not in ln) else ","
+            return [h.strip().lower() for h in ln.split(sep)]
+    raise InputError("the file is empty", path=str(path), hint="expected a header row such as t,x,y,z")
+
+
 def numeric_column(table: CsvTable, name: str, *, allow_empty: bool = False) -> np.ndarray:
     out = np.empty(table.n_rows)
     for k, s in enumerate(table.columns[name]):
@@ -300,3 +310,65 @@ def read_flight_file(path) -> dict:
     if "uncertainty" not in d or not isinstance(d["uncertainty"], dict):
         raise InputError("missing section 'uncertainty'", path=str(path))
     return d
+
+
+@dataclass(frozen=True)
+class Observations:
+    """Pixel observations: times [s], camera names, u, v [px], optional radius [px], flight ids."""
+
+    path: str
+    t: np.ndarray
+    camera: list[str]
+    uv: np.ndarray
+    radius_px: np.ndarray | None
+    quality: np.ndarray | None
+    flight: np.ndarray | None
+
+    def __len__(self) -> int:
+        return len(self.t)
+
+    def select(self, mask) -> "Observations":
+        m = np.asarray(mask, bool)
+        return Observations(self.path, self.t[m], [c for c, k in zip(self.camera, m) if k], self.uv[m],
+                            None if self.radius_px is None else self.radius_px[m],
+                            None if self.quality is None else self.quality[m],
+                            None if self.flight is None else self.flight[m])
+
+
+def read_observations_csv(path) -> Observations:
+    """Read an observations CSV (columns t,camera,u,v; optional radius_px, quality, flight)."""
+    table = read_csv_table(path, ["t", "camera", "u", "v"], ["radius_px", "quality", "flight"])
+    t = numeric_column(table, "t")
+    uv = np.column_stack([numeric_column(table, "u"), numeric_column(table, "v")])
+    cams = table.columns["camera"]
+    for k, c in enumerate(cams):
+        if not c:
+            raise InputError(f"line {table.line_numbers[k]}: the camera name is empty", path=str(path))
+    radius = numeric_column(table, "radius_px", allow_empty=True) if "radius_px" in table.columns else None
+    if radius is not None and np.any(radius[np.isfinite(radius)] <= 0):
+        raise InputError("radius_px must be positive", path=str(path))
+    quality = numeric_column(table, "quality", allow_empty=True) if "quality" in table.columns else None
+    flight = numeric_column(table, "flight") if "flight" in table.columns else None
+    if np.abs(uv).max() > 1e5:
+        raise InputError("a pixel coordinate beyond 100000 is absurd", path=str(path))
+    # time must increase within each camera (and flight)
+    keys = [(c, None if flight is None else flight[k]) for k, c in enumerate(cams)]
+    last: dict = {}
+    for k, key in enumerate(keys):
+        if key in last and t[k] <= t[last[key]]:
+            raise InputError(f"line {table.line_numbers[k]}: time does not increase for camera {key[0]!r}",
+                             path=str(path), hint="sort the rows by time; remove duplicates")
+        last[key] = k
+    if np.ptp(t) > 3600:
+        raise InputError("the observations span more than an hour", path=str(path), hint="times must be seconds")
+    return Observations(str(path), t, list(cams), uv, radius, quality, flight)
+
+
+def read_cameras(path):
+    """Read a camera file or a rig file into a list of cameras."""
+    from .camera.model import cameras_from_json
+
+    try:
+        return cameras_from_json(read_json(path))
+    except BallTrajError as e:
+        raise e.with_path(str(path)) from None

@@ -64,7 +64,9 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float) -
     central differences, one batched integration for all deflections)."""
     p = fit.params
     k = len(p)
-    h = 1e-5 * np.maximum(np.abs(p), typical_scales(fit.options))
+    typ = typical_scales(fit.options)
+    typ = np.concatenate([typ, np.full(k - len(typ), 0.01)])  # extra unknowns: time offsets [s]
+    h = 1e-5 * np.maximum(np.abs(p), typ)
     P = np.vstack([p + np.diag(h), p - np.diag(h)])
     states, params = batch_unpack(fit, model, P)
     D = _derived(states, params, fit.basis, model)
@@ -89,8 +91,9 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         raise FitError(f"the fit failed: {fit.message}",
                        hint="check the track (units, time column) or give more points")
     inl = ~fit.outliers
+    xyz_fit = fit.fitted_xyz if fit.fitted_xyz is not None else fit.observed
     if target_x is None:
-        target_x = float(fit.observed[inl][-1, 0])
+        target_x = float(xyz_fit[inl][-1, 0])
     params = FlightParameters.make(1, spin=fit.spin, drag_scale=fit.drag_scale, lift_override=fit.lift_override)
     d = plane_deflection(model, fit.t0, fit.state0, params, target_x, ground_z=None)
     sig, dcov = derived_uncertainties(fit, model, target_x)
@@ -130,12 +133,27 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
                         "calibration error, or the wrong ball")
     if fit.n_outliers > 0.2 * fit.n_points:
         warnings.append(f"{fit.n_outliers} of {fit.n_points} points were flagged as outliers")
-    g_check = _gravity_check(fit, model)
-    if g_check:
-        warnings.append(g_check)
-    ca = fit_constant_acceleration(fit.t[inl], fit.observed[inl], fit.sigma[inl], t_ref=fit.t0,
-                                   reject_outliers=False)
-    baseline = baseline_summary(ca, model, target_x)
+    image = fit.residual_unit == "px"
+    if not image:
+        g_check = _gravity_check(fit, model)
+        if g_check:
+            warnings.append(g_check)
+        ca = fit_constant_acceleration(fit.t[inl], fit.observed[inl], fit.sigma[inl], t_ref=fit.t0,
+                                       reject_outliers=False)
+        baseline = baseline_summary(ca, model, target_x)
+    else:
+        tp, xp = fit.extra["pseudo_track"]
+        ca = fit_constant_acceleration(tp, xp, t_ref=fit.t0)
+        baseline = baseline_summary(ca, model, target_x)
+        baseline["track"] = fit.extra["start_from"]
+        depth = fit.extra.get("launch_depth_sigma_m", {})
+        if len(fit.extra["cameras"]) == 1:
+            name = fit.extra["cameras"][0]
+            warnings.append(
+                f"one camera: depth along its line of sight is pinned only by "
+                f"{'the start hint, ' if fit.options.start_near is not None else ''}the ball's apparent size and drag; "
+                f"launch depth uncertainty ± {depth.get(name, float('nan')):.2f} m. Speed, spin and deflection "
+                "inherit it (see their uncertainties)")
     defl = deflection_dict(d)
     dcov_list = dcov.tolist()
     unc = {
@@ -163,12 +181,15 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "uncertainty": unc,
         "fit": {
             "n_points": fit.n_points, "n_outliers": fit.n_outliers, "rms_residual": fit.rms_residual,
-            "residual_unit": "m", "residual_scale": fit.residual_scale, "message": fit.message,
+            "residual_unit": fit.residual_unit, "residual_scale": fit.residual_scale, "message": fit.message,
             "evaluations": fit.nfev, "unknowns": list(fit.names),
             "options": {"fit_drag": fit.options.fit_drag, "free_lift": fit.options.free_lift,
                         "start_near": fit.options.start_near, "start_sigma": fit.options.start_sigma},
-            "points": {"t": fit.t.tolist(), "observed": fit.observed.tolist(), "residual": fit.residuals.tolist(),
-                       "outlier": fit.outliers.tolist()},
+            "points": ({"t": fit.t.tolist(), "observed": fit.observed.tolist(), "residual": fit.residuals.tolist(),
+                        "outlier": fit.outliers.tolist()} if not image else
+                       {"t": fit.t.tolist(), "observed_px": fit.observed.tolist(), "residual": fit.residuals.tolist(),
+                        "outlier": fit.outliers.tolist(), "fitted_m": fit.fitted_xyz.tolist()}),
+            "cameras": {k: v for k, v in fit.extra.items() if k != "pseudo_track"} if image else None,
         },
         "baseline": baseline,
         "warnings": warnings,

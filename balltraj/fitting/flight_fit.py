@@ -76,6 +76,9 @@ class FlightFit:
     nfev: int
     options: FitOptions = field(default_factory=FitOptions)
     undetermined: tuple[str, ...] = ()
+    fitted_xyz: np.ndarray | None = None  # (N, 3) fitted positions at the observation times [m]
+    residual_unit: str = "m"
+    extra: dict = field(default_factory=dict)  # e.g. time offsets, depth notes (image fits)
 
     @property
     def n_points(self) -> int:
@@ -114,31 +117,57 @@ def _basis(v) -> np.ndarray:
     return np.stack([e1, e2])
 
 
-class _Problem:
-    """Residuals of many parameter sets at once."""
+def unpack_params(P, basis, options: FitOptions):
+    """States (B, 6) and FlightParameters of parameter sets P (B, k) (extra columns ignored)."""
+    P = np.atleast_2d(P)
+    n = P.shape[0]
+    comp = P[:, 6:8]
+    vec = comp[:, :1] * basis[0] + comp[:, 1:2] * basis[1]
+    lift = np.linalg.norm(comp, axis=1) if options.free_lift else None
+    scale = np.exp(P[:, 8]) if options.fit_drag else None
+    return P[:, :6], FlightParameters.make(n, spin=vec, drag_scale=scale, lift_override=lift)
 
-    def __init__(self, model: FlightModel, t, xyz, sigma, basis, options: FitOptions):
+
+def physics_names(options: FitOptions) -> list[str]:
+    names = ["x0", "y0", "z0", "vx0", "vy0", "vz0"]
+    names += ["lift_1", "lift_2"] if options.free_lift else ["spin_1", "spin_2"]
+    if options.fit_drag:
+        names.append("log_drag_scale")
+    return names
+
+
+class _Problem:
+    """Residuals of many parameter sets at once. Subclasses say what is observed."""
+
+    extra_names: tuple[str, ...] = ()
+    extra_typical: tuple[float, ...] = ()
+
+    def __init__(self, model: FlightModel, t0: float, sigma, basis, options: FitOptions):
         self.model = model
-        self.t = np.asarray(t, dtype=float)
-        self.xyz = np.asarray(xyz, dtype=float)
+        self.t0 = float(t0)
         self.sigma = np.asarray(sigma, dtype=float)
         self.basis = basis
         self.opt = options
-        self.t0 = float(self.t[0])
-        names = ["x0", "y0", "z0", "vx0", "vy0", "vz0"]
-        names += ["lift_1", "lift_2"] if options.free_lift else ["spin_1", "spin_2"]
-        if options.fit_drag:
-            names.append("log_drag_scale")
-        self.names = tuple(names)
-        self.typical = typical_scales(options)
-        self._mask = np.ones(len(self.t), bool)
+        self.names = tuple(physics_names(options)) + tuple(self.extra_names)
+        self.typical = np.concatenate([typical_scales(options), np.asarray(self.extra_typical, float)])
+        self.n_phys = len(self.names) - len(self.extra_names)
+        self._mask = np.ones(len(self.sigma), bool)
         self._cache: dict = {}
         self.back_s = 0.0
-        if options.start_near is not None:
-            self.hint = np.asarray(options.start_near, dtype=float)
-        else:
-            self.hint = None
+        self.hint = None if options.start_near is None else np.asarray(options.start_near, dtype=float)
 
+    # --- to be provided by subclasses
+    def span(self, P) -> tuple[float, float]:
+        raise NotImplementedError
+
+    def point_residuals(self, tr: Trajectory, P) -> np.ndarray:
+        """(B, N, c) residuals in units of each point's sigma."""
+        raise NotImplementedError
+
+    def first_position(self) -> np.ndarray:
+        raise NotImplementedError
+
+    # --- shared
     @property
     def mask(self):
         return self._mask
@@ -148,42 +177,41 @@ class _Problem:
         self._mask = value
         self._cache.clear()
 
+    def rescale_sigma(self, factor: float) -> None:
+        self.sigma = self.sigma * factor
+        self._cache.clear()
+
     def set_hint_span(self, speed):
         if self.hint is not None:
-            dist = float(np.linalg.norm(self.hint - self.xyz[0]))
+            dist = float(np.linalg.norm(self.hint - self.first_position()))
             self.back_s = min(2.0, 1.5 * dist / max(speed, 1.0) + 0.05)
 
     def unpack(self, P):
-        P = np.atleast_2d(P)
-        n = P.shape[0]
-        states = P[:, :6]
-        comp = P[:, 6:8]
-        vec = comp[:, :1] * self.basis[0] + comp[:, 1:2] * self.basis[1]
-        if self.opt.free_lift:
-            params = FlightParameters.make(n, spin=vec, lift_override=np.linalg.norm(comp, axis=1))
-        else:
-            params = FlightParameters.make(n, spin=vec)
-        if self.opt.fit_drag:
-            params = FlightParameters(params.spin, np.exp(P[:, 8]), params.lift_override, params.spin_decay_s)
-        return states, params
+        return unpack_params(P, self.basis, self.opt)
 
     def trajectories(self, P) -> Trajectory:
         states, params = self.unpack(P)
-        return integrate(self.model, self.t0, states, params, (self.t0 - self.back_s, float(self.t[-1])),
+        lo, hi = self.span(np.atleast_2d(P))
+        return integrate(self.model, self.t0, states, params, (min(lo, self.t0 - self.back_s), max(hi, self.t0)),
                          max_step=self.opt.max_step)
 
     def residuals(self, P) -> np.ndarray:
+        P = np.atleast_2d(P)
         tr = self.trajectories(P)
-        pos = tr.positions(self.t[self.mask])
-        r = ((pos - self.xyz[self.mask]) / self.sigma[self.mask, None]).reshape(pos.shape[0], -1)
+        r = self.point_residuals(tr, P)[:, self._mask].reshape(P.shape[0], -1)
         if self.hint is not None:
             r = np.concatenate([r, self._hint_residuals(tr)], axis=1)
         return r
 
+    def point_norms(self, p) -> np.ndarray:
+        """Per-point residual norm in sigma units at p (all points, masked or not)."""
+        tr = self.trajectories(p[None])
+        return np.linalg.norm(self.point_residuals(tr, p[None])[0], axis=1)
+
     def _hint_residuals(self, tr: Trajectory) -> np.ndarray:
         tc, sc = tr.first_crossing(0, self.hint[0], +1)
         at_t0 = tr.sample([self.t0])[:, 0, :]
-        use = np.where(np.isfinite(tc) & (tc <= self.t0 + 1e-9), 1, 0).astype(bool)
+        use = np.isfinite(tc) & (tc <= self.t0 + 1e-9)
         p = np.where(use[:, None], sc[:, :3], at_t0[:, :3])
         return (p - self.hint) / self.opt.start_sigma
 
@@ -198,9 +226,8 @@ class _Problem:
             R = self.residuals(P)
             return ((R[:k] - R[k:]) / (2 * h[:, None])).T
         key = p.tobytes()
-        if key in self._cache:
-            return self._cache[key][1]
-        self.fun(p)
+        if key not in self._cache:
+            self.fun(p)
         return self._cache[key][1]
 
     def fun(self, p):
@@ -213,6 +240,83 @@ class _Problem:
             self._cache.clear()
             self._cache[key] = (R[0], ((R[1:] - R[0]) / h[:, None]).T)
         return self._cache[key][0]
+
+
+class _TrackProblem(_Problem):
+    """Observed: 3D positions [m]."""
+
+    def __init__(self, model, t, xyz, sigma, basis, options):
+        self.t = np.asarray(t, dtype=float)
+        self.xyz = np.asarray(xyz, dtype=float)
+        super().__init__(model, self.t[0], sigma, basis, options)
+
+    def span(self, P):
+        return float(self.t[0]), float(self.t[-1])
+
+    def first_position(self):
+        return self.xyz[0]
+
+    def point_residuals(self, tr, P):
+        return (tr.positions(self.t) - self.xyz) / self.sigma[None, :, None]
+
+
+@dataclass(frozen=True)
+class SolveResult:
+    p: np.ndarray
+    covariance: np.ndarray
+    s2: float
+    outliers: np.ndarray
+    nfev: int
+    message: str
+    undetermined: tuple[str, ...]
+    success: bool
+
+
+def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_points: int = 5) -> SolveResult:
+    """Robust pass, outlier flags, final least-squares pass and scaled covariance."""
+    n = len(prob.sigma)
+    nfev = 0
+    p = np.asarray(p0, dtype=float)
+    outliers = np.zeros(n, bool)
+    if options.robust:
+        sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="soft_l1", f_scale=2.0,
+                            x_scale="jac", max_nfev=options.max_nfev)
+        nfev += sol.nfev
+        p = sol.x
+        d = prob.point_norms(p)
+        scale = _robust_sigma(d)
+        if estimate_sigma and scale > 0:
+            prob.rescale_sigma(max(scale, 1e-6))
+            d = d / scale
+        elif scale > 1:
+            d = d / scale
+        outliers = d > options.outlier_threshold
+        if n - outliers.sum() < min_points:
+            outliers = np.zeros(n, bool)
+        prob.mask = ~outliers
+    sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
+                        max_nfev=options.max_nfev)
+    nfev += sol.nfev
+    p = sol.x
+    J = prob.jacobian(p, central=True)
+    r = prob.fun(p)
+    dof = max(1, r.size - len(p))
+    s2 = float(r @ r / dof)
+    message = "converged" if sol.success else f"stopped: {sol.message}"
+    undetermined: list[str] = []
+    try:
+        cn = np.linalg.norm(J, axis=0)
+        cn[cn == 0] = 1.0
+        _, sv, vt = np.linalg.svd(J / cn, full_matrices=False)
+        if not np.all(np.isfinite(sv)) or sv[-1] < 1e-10 * sv[0]:
+            undetermined.append(prob.names[int(np.argmax(np.abs(vt[-1])))] if np.all(np.isfinite(vt)) else "?")
+            raise np.linalg.LinAlgError
+        cov = (vt.T / sv**2) @ vt / np.outer(cn, cn) * s2
+    except np.linalg.LinAlgError:
+        cov = np.full((len(p), len(p)), np.nan)
+        message = "ill-conditioned: " + ", ".join(undetermined) + " is not determined by the data"
+    success = bool(sol.success) and not undetermined and bool(np.all(np.isfinite(p)))
+    return SolveResult(p, cov, s2, outliers, nfev, message, tuple(undetermined), success)
 
 
 def _start(t, xyz, sigma, model: FlightModel, options: FitOptions):
@@ -271,68 +375,22 @@ def fit_flight(model: FlightModel, t, xyz, sigma=None, options: FitOptions = Fit
         # noise scale from the robust residuals of the start fit over its window (refined below)
         r = np.linalg.norm(ca.residuals[ca.inliers], axis=1)
         sig = np.full(n, max(_robust_sigma(r), 1e-4))
-    prob = _Problem(model, t, xyz, sig, basis, options)
+    prob = _TrackProblem(model, t, xyz, sig, basis, options)
     prob.set_hint_span(float(np.linalg.norm(p0[3:6])))
-
-    fun, jac = prob.fun, prob.jacobian
-    nfev = 0
-    p = p0
-    outliers = np.zeros(n, bool)
-    if options.robust:
-        sol = least_squares(fun, p, jac=jac, method="trf", loss="soft_l1", f_scale=2.0, x_scale="jac",
-                            max_nfev=options.max_nfev)
-        nfev += sol.nfev
-        p = sol.x
-        tr = prob.trajectories(p[None])
-        res = xyz - tr.positions(t)[0]
-        d = np.linalg.norm(res / prob.sigma[:, None], axis=1)
-        if not given_sigma:
-            s = max(_robust_sigma(d) * prob.sigma[0], 1e-5)
-            prob.sigma = np.full(n, s)
-            d = np.linalg.norm(res, axis=1) / s
-        else:
-            d = d / max(_robust_sigma(d), 1e-12) if _robust_sigma(d) > 1 else d
-        outliers = d > options.outlier_threshold
-        if n - outliers.sum() < 5:
-            outliers = np.zeros(n, bool)
-        prob.mask = ~outliers
-    sol = least_squares(fun, p, jac=jac, method="trf", loss="linear", x_scale="jac", max_nfev=options.max_nfev)
-    nfev += sol.nfev
-    p = sol.x
-    J = prob.jacobian(p, central=True)
-    r = fun(p)
-    dof = max(1, r.size - len(p))
-    s2 = float(r @ r / dof)
-    message = "converged" if sol.success else f"stopped: {sol.message}"
-    undetermined = []
-    try:
-        # scaled covariance: column-normalise for a stable inverse
-        cn = np.linalg.norm(J, axis=0)
-        cn[cn == 0] = 1.0
-        Js = J / cn
-        u, sv, vt = np.linalg.svd(Js, full_matrices=False)
-        if sv[-1] < 1e-10 * sv[0]:
-            null = np.abs(vt[-1])
-            undetermined.append(prob.names[int(np.argmax(null))])
-            raise np.linalg.LinAlgError
-        cov = (vt.T / sv**2) @ vt / np.outer(cn, cn) * s2
-    except np.linalg.LinAlgError:
-        cov = np.full((len(p), len(p)), np.nan)
-        message = "ill-conditioned: " + (", ".join(undetermined) or "some quantity") + " is not determined by the data"
-    tr = prob.trajectories(p[None])
-    fitted = tr.positions(t)[0]
+    res = solve(prob, p0, options, estimate_sigma=not given_sigma)
+    p = res.p
+    fitted = prob.trajectories(p[None]).positions(t)[0]
     states, params = prob.unpack(p[None])
-    success = bool(sol.success) and not undetermined and np.all(np.isfinite(p))
     return FlightFit(
-        success=success, message=message, names=prob.names, params=p, covariance=cov, t0=prob.t0,
-        state0=states[0], spin=params.spin[0], drag_scale=float(params.drag_scale[0]),
+        success=res.success, message=res.message, names=prob.names, params=p, covariance=res.covariance,
+        t0=prob.t0, state0=states[0], spin=params.spin[0], drag_scale=float(params.drag_scale[0]),
         lift_override=float(params.lift_override[0]), basis=basis, t=t, observed=xyz, fitted=fitted,
-        residuals=xyz - fitted, sigma=prob.sigma.copy(), outliers=outliers, residual_scale=math.sqrt(s2),
-        nfev=nfev, options=options, undetermined=tuple(undetermined),
+        residuals=xyz - fitted, sigma=prob.sigma.copy(), outliers=res.outliers,
+        residual_scale=math.sqrt(res.s2), nfev=res.nfev, options=options, undetermined=res.undetermined,
+        fitted_xyz=fitted,
     )
 
 
 def batch_unpack(fit: FlightFit, model: FlightModel, P):
     """States and flight parameters for parameter sets P (B, k) in the layout of ``fit``."""
-    prob = _Problem(model, fit.t, fit.observed, fit.sigma, fit.basis, fit.options)
-    return prob.unpack(P)
+    return unpack_params(P, fit.basis, fit.options)

@@ -224,6 +224,19 @@ class Trajectory:
         return ((2 * s3 - 3 * s2 + 1)[None, :, None] * y0 + ((s3 - 2 * s2 + s) * h)[None, :, None] * d0
                 + (-2 * s3 + 3 * s2)[None, :, None] * y1 + ((s3 - s2) * h)[None, :, None] * d1)
 
+    def positions_rows(self, times) -> np.ndarray:
+        """Positions (N, T, 3) with one row of times per flight, ``times`` (N, T)."""
+        times = np.asarray(times, dtype=float)
+        i = np.clip(np.searchsorted(self.t, times, side="right") - 1, 0, len(self.t) - 2)
+        h = self.t[i + 1] - self.t[i]
+        s = (times - self.t[i]) / h
+        rows = np.arange(self.n_flights)[:, None]
+        y0, y1 = self.state[rows, i, :3], self.state[rows, i + 1, :3]
+        d0, d1 = self.state[rows, i, 3:], self.state[rows, i + 1, 3:]
+        s2, s3 = s * s, s * s * s
+        return ((2 * s3 - 3 * s2 + 1)[..., None] * y0 + ((s3 - 2 * s2 + s) * h)[..., None] * d0
+                + (-2 * s3 + 3 * s2)[..., None] * y1 + ((s3 - s2) * h)[..., None] * d1)
+
     def first_crossing(self, component: int, level, direction: int = +1, after=None):
         """First time each flight's coordinate ``component`` crosses ``level`` going ``direction``.
 

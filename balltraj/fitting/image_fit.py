@@ -1,0 +1,205 @@
+"""The flight fit in image space: reprojection error in pixels through one or more cameras.
+
+Extra unknowns: one time offset per camera after the first (unsynchronised phones). Rolling
+shutter: an observation at row v is taken at t + offset + (v / height) * readout_s.
+
+With one camera the depth along the line of sight trades off against the unknown lift almost
+perfectly, so every honest constraint is used: the ``start_near`` hint (three residuals, see
+:mod:`.flight_fit`), the ball's apparent radius (r_px = f R / depth, when observations carry
+``radius_px``), gravity and drag. The remaining depth uncertainty is reported.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..camera.model import Camera
+from ..camera.triangulate import triangulate_observations
+from ..errors import FitError
+from ..physics.flight import FlightModel
+from .flight_fit import FitOptions, FlightFit, _Problem, _start, solve
+
+RADIUS_SIGMA_PX = 0.5  # floor of the apparent-radius noise [px] (common practice: sub-pixel edges)
+RADIUS_SIGMA_REL = 0.05  # and 5 % of the radius
+
+
+class _ImageProblem(_Problem):
+    def __init__(self, model, t, cam_idx, uv, radius, cameras: list[Camera], sigma_px, basis, options,
+                 fit_offsets: bool):
+        self.t_obs = np.asarray(t, float)
+        self.cam_idx = np.asarray(cam_idx, int)
+        self.uv = np.asarray(uv, float)
+        self.cameras = cameras
+        self.fit_offsets = fit_offsets and len(cameras) > 1
+        if self.fit_offsets:
+            self.extra_names = tuple(f"time_offset_{c.name}" for c in cameras[1:])
+            self.extra_typical = tuple(0.01 for _ in cameras[1:])
+        self.base_offset = np.array([c.time_offset_s for c in cameras])
+        h = np.array([c.image_size[1] for c in cameras], float)
+        ro = np.array([c.readout_s for c in cameras])
+        self.shutter = ro[self.cam_idx] * self.uv[:, 1] / h[self.cam_idx]
+        self.radius = None if radius is None else np.asarray(radius, float)
+        self.R_ball = model.radius_m
+        rig_t = self.t_obs + self.base_offset[self.cam_idx] + self.shutter
+        super().__init__(model, float(rig_t.min()), sigma_px, basis, options)
+        if self.radius is not None:
+            r = np.where(np.isfinite(self.radius), self.radius, 0.0)
+            self.radius_sigma = np.maximum(RADIUS_SIGMA_PX, RADIUS_SIGMA_REL * r)
+        self.focal = np.array([c.focal_px for c in cameras])
+
+    def offsets(self, P) -> np.ndarray:
+        """(B, C) time offsets."""
+        B = P.shape[0]
+        off = np.tile(self.base_offset, (B, 1))
+        if self.fit_offsets:
+            off[:, 1:] += P[:, self.n_phys:]
+        return off
+
+    def times(self, P) -> np.ndarray:
+        return self.t_obs[None, :] + self.offsets(P)[:, self.cam_idx] + self.shutter[None, :]
+
+    def span(self, P):
+        tt = self.times(P)
+        return float(tt.min()) - 1e-3, float(tt.max()) + 1e-3
+
+    def first_position(self):
+        return self._first_xyz
+
+    def positions(self, tr, P):
+        return tr.positions_rows(self.times(P))
+
+    def point_residuals(self, tr, P):
+        pos = self.positions(tr, P)
+        B, N = pos.shape[:2]
+        ncol = 3 if self.radius is not None else 2
+        out = np.zeros((B, N, ncol))
+        for c, cam in enumerate(self.cameras):
+            m = self.cam_idx == c
+            if not m.any():
+                continue
+            pred = cam.project(pos[:, m])
+            pred = np.where(np.isfinite(pred), pred, 1e6)  # behind the camera: huge residual
+            out[:, m, :2] = (pred - self.uv[m]) / self.sigma[m, None]
+            if self.radius is not None:
+                depth = cam.depth(pos[:, m])
+                r_pred = self.focal[c] * self.R_ball / np.maximum(depth, 1e-3)
+                ok = np.isfinite(self.radius[m])
+                out[:, m, 2] = np.where(ok, (r_pred - np.nan_to_num(self.radius[m])) / self.radius_sigma[m], 0.0)
+        return out
+
+    def point_norms(self, p):
+        tr = self.trajectories(p[None])
+        return np.linalg.norm(self.point_residuals(tr, p[None])[0, :, :2], axis=1)
+
+
+def _pseudo_points(t, cam_idx, uv, radius, cameras, model, hint):
+    """Rough 3D points for start values: triangulated (several cameras), or back-projected along
+    each ray to a depth from the apparent radius or from the start hint (one camera)."""
+    names = [cameras[i].name for i in cam_idx]
+    if len(set(cam_idx)) >= 2:
+        try:
+            tt, xyz = triangulate_observations(t, names, uv, cameras)
+            if len(tt) >= 6:
+                return tt, xyz, "triangulated"
+        except Exception:  # noqa: BLE001 - fall back to one camera
+            pass
+    c0 = int(np.bincount(cam_idx).argmax())
+    cam = cameras[c0]
+    m = cam_idx == c0
+    origin, rays = cam.rays(uv[m])
+    axis = cam.R[2]
+    if radius is not None and np.isfinite(radius[m]).sum() >= 0.5 * m.sum():
+        r = radius[m]
+        depth = cam.focal_px * model.radius_m / np.where(np.isfinite(r), r, np.nan)
+        good = np.isfinite(depth)
+        depth = np.interp(np.arange(len(depth)), np.nonzero(good)[0], depth[good])
+        # smooth the noisy depths with a quadratic in time
+        tm = t[m] + cam.time_offset_s
+        depth = np.polyval(np.polyfit(tm - tm[0], depth, 2), tm - tm[0])
+        how = "apparent radius"
+    elif hint is not None:
+        depth = np.full(m.sum(), float((np.asarray(hint) - origin) @ axis))
+        how = "start hint depth"
+    else:
+        raise FitError("one camera cannot place the ball in depth without help",
+                       hint="give --start-near X,Y,Z (where the flight starts) or observations with radius_px")
+    depth = np.maximum(depth, 0.3)
+    xyz = origin + rays * (depth / (rays @ axis))[:, None]
+    return t[m] + cam.time_offset_s, xyz, how
+
+
+def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Camera], radius_px=None,
+                     options: FitOptions = FitOptions(), sigma_px: float | None = None,
+                     fit_offsets: bool = True) -> FlightFit:
+    """Fit the flight model to pixel observations of one or more cameras."""
+    t = np.asarray(t, float)
+    uv = np.asarray(uv, float)
+    names = [c.name for c in cameras]
+    idx = {n: i for i, n in enumerate(names)}
+    missing = sorted(set(camera_names) - set(names))
+    if missing:
+        raise FitError(f"observations name camera(s) {', '.join(missing)} that the camera file does not define",
+                       hint=f"the camera file defines: {', '.join(names)}")
+    cam_idx = np.array([idx[c] for c in camera_names])
+    used = sorted(set(cam_idx.tolist()))
+    cams = [cameras[i] for i in used]
+    remap = {old: new for new, old in enumerate(used)}
+    cam_idx = np.array([remap[i] for i in cam_idx])
+    n = len(t)
+    n_unknowns = 8 + int(options.fit_drag) + (len(cams) - 1 if fit_offsets else 0)
+    if 2 * n < n_unknowns + 4 or n < 6:
+        raise FitError(f"{n} observations are too few to fit {n_unknowns} unknowns",
+                       hint="a flight needs at least 6 observed frames; 20 or more for a useful spin estimate")
+    for c, cam in enumerate(cams):
+        m = cam_idx == c
+        w, h = cam.image_size
+        if np.any((uv[m, 0] < -0.5 * w) | (uv[m, 0] > 1.5 * w) | (uv[m, 1] < -0.5 * h) | (uv[m, 1] > 1.5 * h)):
+            raise FitError(f"observations of camera {cam.name!r} lie far outside its {w}x{h} image",
+                           hint="check that the camera file matches the clip (image size, orientation)")
+    radius = None if radius_px is None else np.asarray(radius_px, float)
+    tp, xyz_p, how = _pseudo_points(t, cam_idx, uv, radius, cams, model, options.start_near)
+    sig0 = np.ones(len(tp))
+    p0, basis, _ = _start(tp, xyz_p, sig0, model, options)
+    given = sigma_px is not None
+    sig = np.full(n, float(sigma_px) if given else 1.0)
+    prob = _ImageProblem(model, t, cam_idx, uv, radius, cams, sig, basis, options, fit_offsets)
+    # launch at the first rig time: move the start state there
+    dt0 = prob.t0 - tp[0]
+    p0[:3] = p0[:3] + p0[3:6] * dt0
+    prob._first_xyz = p0[:3]
+    if prob.fit_offsets:
+        p0 = np.concatenate([p0, np.zeros(len(cams) - 1)])
+    prob.set_hint_span(float(np.linalg.norm(p0[3:6])))
+    res = solve(prob, p0, options, estimate_sigma=not given, min_points=6)
+    p = res.p
+    tr = prob.trajectories(p[None])
+    pos = prob.positions(tr, p[None])[0]
+    pred = np.zeros_like(uv)
+    for c, cam in enumerate(cams):
+        m = cam_idx == c
+        pred[m] = cam.project(pos[m])
+    states, params = prob.unpack(p[None])
+    extra = {"cameras": [c.name for c in cams], "start_from": how, "pseudo_track": (tp, xyz_p)}
+    if prob.fit_offsets:
+        sig_p = np.sqrt(np.clip(np.diag(res.covariance), 0, None))
+        extra["time_offsets_s"] = {c.name: float(c.time_offset_s + (p[prob.n_phys + k - 1] if k else 0.0))
+                                   for k, c in enumerate(cams)}
+        extra["time_offset_sigma_s"] = {c.name: float(sig_p[prob.n_phys + k - 1]) if k else 0.0
+                                        for k, c in enumerate(cams)}
+    cov_pos = res.covariance[:3, :3]
+    depth_sigma = {}
+    for cam in cams:
+        d = states[0, :3] - cam.centre
+        d /= np.linalg.norm(d)
+        depth_sigma[cam.name] = float(math.sqrt(max(d @ cov_pos @ d, 0.0))) if np.all(np.isfinite(cov_pos)) else math.nan
+    extra["launch_depth_sigma_m"] = depth_sigma
+    return FlightFit(
+        success=res.success, message=res.message, names=prob.names, params=p, covariance=res.covariance,
+        t0=prob.t0, state0=states[0], spin=params.spin[0], drag_scale=float(params.drag_scale[0]),
+        lift_override=float(params.lift_override[0]), basis=basis, t=t, observed=uv, fitted=pred,
+        residuals=uv - pred, sigma=prob.sigma.copy(), outliers=res.outliers,
+        residual_scale=math.sqrt(res.s2), nfev=res.nfev, options=options, undetermined=res.undetermined,
+        fitted_xyz=pos, residual_unit="px", extra=extra,
+    )
