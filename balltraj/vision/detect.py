@@ -1,0 +1,160 @@
+"""Moving-ball candidates in each frame.
+
+1. Foreground: absolute difference against a running-average background at half resolution
+   (static clutter becomes background; the ball passes too fast to enter it).
+2. Blobs: external contours of the thresholded difference; size-gated by the ball radius the
+   camera file and the ball's size predict at that pixel (the ball between the ground and a few
+   metres up).
+3. Measurement at full resolution in a small window: weights w = max(|I - B| - T/2, 0) (a soft
+   matte against the background); the weighted centroid is the position at mid-exposure, the
+   second moments give the apparent radius (a disc of radius r has variance r^2/4 per axis) and the
+   motion-blur streak (a streak of length L adds L^2/12 along its direction).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from ..camera.model import Camera
+
+
+@dataclass(frozen=True)
+class Candidate:
+    u: float
+    v: float
+    radius_px: float
+    streak_px: float
+    angle_rad: float
+    area_px: float
+    contrast: float
+
+
+def radius_gate_map(camera: Camera | None, ball_radius_m: float | None, size: tuple[int, int],
+                    cells=(32, 18), z_range=(0.0, 4.0), depth_limits=(0.8, 120.0)):
+    """Coarse map of (r_min, r_max) apparent radius [px] per image cell."""
+    w, h = size
+    if camera is None or ball_radius_m is None:
+        return None
+    cx = (np.arange(cells[0]) + 0.5) * w / cells[0]
+    cy = (np.arange(cells[1]) + 0.5) * h / cells[1]
+    uu, vv = np.meshgrid(cx, cy)
+    origin, d = camera.rays(np.stack([uu, vv], axis=-1))
+    axis = camera.R[2]
+    # the part of each ray inside the slab z_range[0] <= z <= z_range[1] (the ball's plausible heights)
+    dz = d[..., 2]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s0 = (z_range[0] - origin[2]) / dz
+        s1 = (z_range[1] - origin[2]) / dz
+    lo = np.where(np.abs(dz) > 1e-9, np.minimum(s0, s1), np.where(z_range[0] <= origin[2] <= z_range[1], 0, np.inf))
+    hi = np.where(np.abs(dz) > 1e-9, np.maximum(s0, s1), np.where(z_range[0] <= origin[2] <= z_range[1], np.inf, -np.inf))
+    lo = np.maximum(lo, 0.0)
+    cosang = d @ axis
+    near = np.clip(lo * cosang, *depth_limits)
+    far = np.clip(hi * cosang, *depth_limits)
+    empty = hi <= lo  # the ray never passes the slab: no gating information, be permissive
+    near = np.where(empty, depth_limits[0], near)
+    far = np.where(empty, depth_limits[1], far)
+    f = camera.focal_px
+    rmin = np.maximum(0.6, 0.5 * f * ball_radius_m / far)
+    rmax = 2.0 * f * ball_radius_m / near + 1.0
+    return rmin, rmax
+
+
+class Detector:
+    """Stateful per-clip detector; call :meth:`process` on consecutive frames."""
+
+    def __init__(self, width: int, height: int, *, gate=None, alpha: float = 0.03, min_threshold: float = 12.0,
+                 max_candidates: int = 40):
+        self.w, self.h = width, height
+        self.sw, self.sh = width // 2, height // 2
+        self.gate = gate
+        self.alpha = alpha
+        self.min_threshold = min_threshold
+        self.max_candidates = max_candidates
+        self.bg_small = None
+        self.bg_full = None
+        self.threshold = min_threshold
+        self.k = 0
+        self._kernel = np.ones((5, 5), np.uint8)
+
+    def _gate(self, u, v):
+        if self.gate is None:
+            return 0.6, max(self.w, self.h) / 8
+        rmin, rmax = self.gate
+        gy, gx = rmin.shape
+        i = min(gy - 1, max(0, int(v / self.h * gy)))
+        j = min(gx - 1, max(0, int(u / self.w * gx)))
+        return float(rmin[i, j]), float(rmax[i, j])
+
+    def process(self, frame) -> list[Candidate]:
+        gray = cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY) if frame.ndim == 3 else frame
+        small = cv2.resize(gray, (self.sw, self.sh), interpolation=cv2.INTER_AREA)
+        self.k += 1
+        if self.bg_small is None:
+            self.bg_small = small.astype(np.float32)
+            self.bg_full = gray.astype(np.float32)
+            return []
+        bg8 = cv2.convertScaleAbs(self.bg_small)
+        diff = cv2.absdiff(small, bg8)
+        if self.k % 32 == 2:  # noise level of the difference image -> threshold
+            med = float(np.median(diff[::4, ::4]))
+            self.threshold = max(self.min_threshold, 6.0 * 1.4826 * med)
+        _, mask = cv2.threshold(diff, self.threshold, 255, cv2.THRESH_BINARY)
+        contours, _ = cv2.findContours(mask, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+        cands: list[Candidate] = []
+        if len(contours) <= 20 * self.max_candidates:
+            for c in contours:
+                x, y, bw, bh = cv2.boundingRect(c)
+                if bw * bh < 1:
+                    continue
+                cand = self._measure(gray, 2 * x, 2 * y, 2 * bw, 2 * bh)
+                if cand is not None:
+                    cands.append(cand)
+        # background update away from the foreground (no ghosts of the ball), plus a slow update
+        # everywhere so that objects put down for good join the background
+        keep = cv2.bitwise_not(cv2.dilate(mask, self._kernel))
+        cv2.accumulateWeighted(small, self.bg_small, self.alpha, mask=keep)
+        if self.k % 4 == 0:
+            cv2.accumulateWeighted(gray, self.bg_full, min(1.0, 4 * self.alpha),
+                                   mask=cv2.resize(keep, (self.w, self.h), interpolation=cv2.INTER_NEAREST))
+        if self.k % 16 == 0:
+            cv2.accumulateWeighted(small, self.bg_small, 0.1 * self.alpha)
+        if len(cands) > self.max_candidates:  # lighting change or camera shake: keep the strongest
+            cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
+        return cands
+
+    def _measure(self, gray, x, y, bw, bh):
+        pad = 4
+        x0, y0 = max(0, x - pad), max(0, y - pad)
+        x1, y1 = min(self.w, x + bw + pad), min(self.h, y + bh + pad)
+        roi = gray[y0:y1, x0:x1].astype(np.float32)
+        diff = np.abs(roi - self.bg_full[y0:y1, x0:x1])
+        wgt = np.maximum(diff - 0.5 * self.threshold, 0.0)
+        m = cv2.moments(wgt)
+        if m["m00"] <= 0:
+            return None
+        cx, cy = m["m10"] / m["m00"], m["m01"] / m["m00"]
+        mu20, mu02, mu11 = m["mu20"] / m["m00"], m["mu02"] / m["m00"], m["mu11"] / m["m00"]
+        tr, det = mu20 + mu02, mu20 * mu02 - mu11**2
+        disc = math.sqrt(max(tr * tr / 4 - det, 0.0))
+        l1, l2 = tr / 2 + disc, max(tr / 2 - disc, 0.0)
+        # the soft matte's weights taper toward the edge: a disc's weighted variance is a bit below r^2/4
+        r = 2.0 * math.sqrt(l2) * 1.08
+        streak = math.sqrt(max(12.0 * (l1 - l2), 0.0))
+        u, v = x0 + cx, y0 + cy
+        rmin, rmax = self._gate(u, v)
+        if not (rmin <= r <= rmax):
+            return None
+        area = float(np.count_nonzero(wgt))
+        if streak > 3 * max(r, 1) + 40:  # a long thin thing (a line, a limb), not a blurred ball
+            return None
+        fill = area / max(1.0, math.pi * r * r + 2 * r * streak)
+        if fill < 0.3:
+            return None
+        return Candidate(u=u + 0.0, v=v + 0.0, radius_px=r, streak_px=streak,
+                         angle_rad=0.5 * math.atan2(2 * mu11, mu20 - mu02), area_px=area,
+                         contrast=float(wgt.max()))

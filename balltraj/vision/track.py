@@ -1,0 +1,218 @@
+"""Linking candidates into flights.
+
+Each track predicts its next image position from a constant-acceleration fit (in u and v against
+time) to its last points; once locked on, only candidates in a small window around the prediction
+are considered. New tracks start from pairs of unclaimed candidates in consecutive frames that
+move fast enough to be a thrown ball. A track survives a few missed frames (occlusion, a blurred
+frame), ends when the ball leaves the frame, stops or bounces (a sudden reversal of its vertical
+image motion; the bounce is flagged), and is kept as a flight when it has enough points and moved
+far enough. Slow movers (people, flags) fail the speed test.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .detect import Candidate
+
+
+@dataclass
+class _Track:
+    points: list = field(default_factory=list)  # (k, t, Candidate)
+    misses: int = 0
+    confirmed: bool = False
+    ended: str = ""
+    bounce: bool = False
+
+    def times(self):
+        return np.array([p[1] for p in self.points])
+
+    def uv(self):
+        return np.array([[p[2].u, p[2].v] for p in self.points])
+
+    def predict(self, t):
+        ts, uv = self.times()[-8:], self.uv()[-8:]
+        if len(ts) == 1:
+            return uv[-1], 0.0
+        deg = 2 if len(ts) >= 4 else 1
+        tt = ts - ts[-1]
+        A = np.vander(tt, deg + 1)
+        coef, *_ = np.linalg.lstsq(A, uv, rcond=None)
+        res = uv - A @ coef
+        spread = float(np.sqrt(np.mean(np.sum(res**2, axis=1)))) if len(ts) > deg + 1 else 0.0
+        return np.vander(np.array([t - ts[-1]]), deg + 1)[0] @ coef, spread
+
+    def speed_px_per_s(self):
+        ts, uv = self.times(), self.uv()
+        if len(ts) < 2:
+            return 0.0
+        d = np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.maximum(np.diff(ts), 1e-9)
+        return float(np.median(d))
+
+
+def _net_speed(tr: _Track) -> float:
+    ts, uv = tr.times(), tr.uv()
+    return float(np.linalg.norm(uv[-1] - uv[0]) / max(ts[-1] - ts[0], 1e-9))
+
+
+def _smoothness_px(tr: _Track) -> float:
+    """Median distance of the points from a smooth curve (cubic in time, in windows of 24 points)."""
+    ts, uv = tr.times(), tr.uv()
+    res = []
+    for a in range(0, len(ts), 12):
+        sl = slice(a, min(len(ts), a + 24))
+        if sl.stop - sl.start < 8:
+            continue
+        tt = ts[sl] - ts[sl].mean()
+        A = np.vander(tt, 4)
+        coef, *_ = np.linalg.lstsq(A, uv[sl], rcond=None)
+        res.extend(np.linalg.norm(uv[sl] - A @ coef, axis=1))
+    return float(np.median(res)) if res else 0.0
+
+
+@dataclass(frozen=True)
+class TrackedFlight:
+    flight: int
+    t: np.ndarray
+    frame: np.ndarray
+    uv: np.ndarray
+    radius_px: np.ndarray
+    streak_px: np.ndarray
+    quality: np.ndarray
+    bounce: bool
+    end_reason: str
+
+
+class Tracker:
+    def __init__(self, width, height, fps_hint: float = 240.0, *, min_speed_px_s: float | None = None,
+                 max_speed_px_s: float | None = None, max_misses: int = 10, min_points: int = 8,
+                 confirm: int = 4):
+        self.w, self.h = width, height
+        diag = float(np.hypot(width, height))
+        self.min_speed = min_speed_px_s if min_speed_px_s is not None else 0.25 * diag  # px/s
+        self.max_speed = max_speed_px_s if max_speed_px_s is not None else 25.0 * diag
+        self.max_misses = max_misses
+        self.min_points = min_points
+        self.confirm = confirm
+        self.active: list[_Track] = []
+        self.finished: list[_Track] = []
+        self.pool: list[tuple[int, float, Candidate]] = []  # unclaimed candidates of recent frames
+
+    def update(self, k: int, t: float, cands: list[Candidate]) -> None:
+        free = list(range(len(cands)))
+        # locked-on tracks first (longest first), then tentative ones
+        for tr in sorted(self.active, key=lambda x: (not x.confirmed, -len(x.points))):
+            pred, spread = tr.predict(t)
+            last = tr.points[-1][2]
+            dt = t - tr.points[-1][1]
+            step = tr.speed_px_per_s() * dt
+            gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 * step if tr.confirmed else 0.6 * step)
+            best, best_d = None, gate
+            for i in free:
+                c = cands[i]
+                d = float(np.hypot(c.u - pred[0], c.v - pred[1]))
+                if d < best_d and 0.33 * last.radius_px - 2 <= c.radius_px <= 3 * last.radius_px + 2:
+                    best, best_d = i, d
+            if best is not None:
+                c = cands[best]
+                if tr.confirmed and self._is_bounce(tr, t, c):
+                    tr.ended, tr.bounce = "bounce", True
+                    continue
+                tr.points.append((k, t, c))
+                tr.misses = 0
+                free.remove(best)
+                if not tr.confirmed and len(tr.points) >= self.confirm:
+                    tr.confirmed = self._plausible(tr)
+                    if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
+                        tr.ended = "not a flight"
+            else:
+                tr.misses += 1
+                if not (-0.05 * self.w <= pred[0] <= 1.05 * self.w and -0.05 * self.h <= pred[1] <= 1.05 * self.h):
+                    tr.ended = "left the frame"
+                elif tr.misses > (self.max_misses if tr.confirmed else 2):
+                    tr.ended = "lost"
+        still = []
+        for tr in self.active:
+            (self.finished if tr.ended else still).append(tr)
+        self.active = still
+        # seed new tracks from unclaimed candidates and the recent pool
+        new_pool = []
+        for i in free:
+            c = cands[i]
+            seeded = False
+            for (k0, t0, c0) in self.pool:
+                dt = t - t0
+                if dt <= 0 or k - k0 > 2:
+                    continue
+                sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
+                if self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2:
+                    self.active.append(_Track(points=[(k0, t0, c0), (k, t, c)]))
+                    seeded = True
+                    break
+            if not seeded:
+                new_pool.append((k, t, c))
+        self.pool = [p for p in self.pool if k - p[0] < 2] + new_pool
+
+    def _merge(self, tracks: list[_Track]) -> list[_Track]:
+        """Join fragments of one flight split by an occlusion: B starts soon after A was lost and
+        A's curve, extrapolated, lands on B's first points."""
+        tracks = sorted(tracks, key=lambda x: x.points[0][1])
+        out: list[_Track] = []
+        for tr in tracks:
+            joined = False
+            for prev in out:
+                if prev.ended not in ("lost", "clip ended") or prev.bounce:
+                    continue
+                gap = tr.points[0][1] - prev.points[-1][1]
+                if not (0 < gap <= 0.15):
+                    continue
+                pred, spread = prev.predict(tr.points[0][1])
+                first = tr.points[0][2]
+                tol = 6.0 + 3.0 * first.radius_px + 3.0 * spread + 0.05 * prev.speed_px_per_s() * gap
+                if np.hypot(first.u - pred[0], first.v - pred[1]) <= tol:
+                    prev.points.extend(tr.points)
+                    prev.ended, prev.bounce = tr.ended, tr.bounce
+                    joined = True
+                    break
+            if not joined:
+                out.append(tr)
+        return out
+
+    def _plausible(self, tr: _Track) -> bool:
+        return _net_speed(tr) >= self.min_speed
+
+    def _is_bounce(self, tr: _Track, t, c) -> bool:
+        ts, uv = tr.times()[-6:], tr.uv()[-6:]
+        if len(ts) < 5:
+            return False
+        vv = np.diff(uv[:, 1]) / np.diff(ts)
+        v_now = (c.v - uv[-1, 1]) / max(t - ts[-1], 1e-9)
+        # falling (v increasing downward) then suddenly rising by far more than gravity could turn it
+        return vv[-1] > 0 and v_now < -0.3 * abs(vv[-1]) and abs(v_now - vv[-1]) > 0.5 * tr.speed_px_per_s()
+
+    def finish(self) -> list[TrackedFlight]:
+        for tr in self.active:
+            tr.ended = tr.ended or "clip ended"
+        done = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
+        self.active = []
+        flights = []
+        for tr in done:
+            if not tr.confirmed or len(tr.points) < self.min_points:
+                continue
+            uv = tr.uv()
+            if np.linalg.norm(uv[-1] - uv[0]) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
+                continue
+            if _smoothness_px(tr) > max(1.5, 0.5 * float(np.median([p[2].radius_px for p in tr.points]))):
+                continue  # a thrown ball follows a smooth curve in the image; people and flags do not
+            flights.append(tr)
+        flights.sort(key=lambda x: x.points[0][1])
+        out = []
+        for i, tr in enumerate(flights):
+            cs = [p[2] for p in tr.points]
+            out.append(TrackedFlight(
+                flight=i + 1, t=tr.times(), frame=np.array([p[0] for p in tr.points]), uv=tr.uv(),
+                radius_px=np.array([c.radius_px for c in cs]), streak_px=np.array([c.streak_px for c in cs]),
+                quality=np.array([min(1.0, c.contrast / 60.0) for c in cs]), bounce=tr.bounce, end_reason=tr.ended))
+        return out
