@@ -184,6 +184,82 @@ def demo(out: Path = typer.Option(Path("balltraj-demo"), "--out", help="Folder f
     _echo(text)
 
 
+@app.command()
+def track(
+    clip: Path = typer.Argument(..., help="Video clip."),
+    camera: Optional[Path] = typer.Option(None, "--camera", help="Camera file (gates the ball's size in pixels)."),
+    ball: str = typer.Option("baseball", "--ball", help="Ball name (its size gates detections)."),
+    capture_fps: Optional[float] = typer.Option(None, "--capture-fps", help="True capture rate of a slow-motion file stored time-stretched."),
+    overlay: Optional[Path] = typer.Option(None, "--overlay", help="Also write a video with detections and tracks drawn."),
+    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    out: Path = typer.Option(..., "-o", "--out", help="Observations CSV to write."),
+):
+    """Find and track the ball in a clip; write timed pixel observations, one flight id per throw."""
+    try:
+        from .commands import run_track
+
+        text = run_track(clip=clip, camera=camera, ball=_ball(ball, ball_file), capture_fps=capture_fps, out=out,
+                         overlay=overlay, show_progress=sys.stderr.isatty())
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@app.command()
+def analyze(
+    clip: Path = typer.Argument(..., help="Video clip."),
+    camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clip."),
+    ball: str = typer.Option(..., "--ball", help="Ball name."),
+    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: last tracked x)."),
+    start_near: Optional[str] = typer.Option(None, "--start-near", help="Rough start point X,Y,Z [m]."),
+    start_sigma: float = typer.Option(0.3, "--start-sigma", help="How rough --start-near is [m]."),
+    capture_fps: Optional[float] = typer.Option(None, "--capture-fps", help="True capture rate of a time-stretched slow-motion file."),
+    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
+    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
+    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa]."),
+    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
+    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude [m]."),
+    athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name, kept in the flight files."),
+    session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight files."),
+    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    out: Path = typer.Option(..., "--out", help="Folder for observations.csv, flight.json and report.html."),
+):
+    """The whole job on one clip: track, fit in image space, report."""
+    try:
+        from .commands import run_analyze
+
+        text = run_analyze(clip=clip, camera=camera, ball=_ball(ball, ball_file),
+                           air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
+                           start_near=start_near, start_sigma=start_sigma, capture_fps=capture_fps, out=out,
+                           labels={"athlete": athlete, "session": session}, show_progress=sys.stderr.isatty())
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@app.command()
+def render(
+    flight: Path = typer.Argument(..., help="Flight file (e.g. from simulate) whose flight to show."),
+    camera: Path = typer.Option(..., "--camera", help="Camera file to film it with."),
+    fps: float = typer.Option(240.0, "--fps", help="Frames per second."),
+    duration: Optional[float] = typer.Option(None, "--duration", help="Clip length [s] (default: the flight plus margins)."),
+    start: float = typer.Option(0.2, "--start", help="When the flight starts in the clip [s]."),
+    exposure: float = typer.Option(0.001, "--exposure", help="Shutter time [s] (motion blur)."),
+    noise: float = typer.Option(2.0, "--noise", help="Sensor noise (grey levels)."),
+    seed: int = typer.Option(0, "--seed", help="Random seed of the scene."),
+    out: Path = typer.Option(..., "-o", "--out", help="Clip to write (.mp4, mp4v codec); truth goes beside it."),
+):
+    """Render a synthetic practice clip of a flight, with its truth (for checks and demos)."""
+    try:
+        from .commands import run_render
+
+        text = run_render(flight=flight, camera=camera, out=out, fps=fps, duration=duration, start=start,
+                          exposure=exposure, noise=noise, seed=seed)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
 calibrate_app = typer.Typer(help="Calibrate cameras: a printable board, the lens from board views, the scene "
                             "(camera pose) from field landmarks.", no_args_is_help=True)
 app.add_typer(calibrate_app, name="calibrate")

@@ -506,3 +506,183 @@ def run_triangulate(*, observations: Path, camera: Path, out: Path, flight: Opti
     write_csv(out_p, ["t", "x", "y", "z"], ([float(a), *map(float, b)] for a, b in zip(t, xyz)),
               comment=f"triangulated from {observations} with {camera}")
     return f"triangulated {len(t)} points from {len(set(obs.camera))} cameras; wrote {out_p}"
+
+
+# ------------------------------------------------------------------------------ video
+OBS_HEADER = ["t", "camera", "u", "v", "radius_px", "quality", "flight", "frame", "streak_px", "bounce"]
+
+
+def _progress_bar(label: str):
+    """A rich progress bar on stderr (the CLI's; library code takes a callback)."""
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+    return Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(), transient=True,
+                    console=__import__("rich.console", fromlist=["Console"]).Console(stderr=True))
+
+
+def _track(clip, cams, ball, capture_fps, overlay, show_progress):
+    from .vision.pipeline import track_clip
+
+    cam = cams[0] if cams else None
+    if show_progress:
+        with _progress_bar(f"tracking {Path(clip).name}") as bar:
+            task = bar.add_task("t", total=None)
+            res = track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, overlay_path=overlay,
+                             progress=lambda n, total: bar.update(task, completed=n, total=total or None))
+    else:
+        res = track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, overlay_path=overlay)
+    return res
+
+
+def _no_ball(clip, res):
+    from .vision.pipeline import NO_BALL_HINT
+
+    return InputError(f"no ball flight was found in {res.n_frames} frames ({res.fps_measured:.0f} frames/s)",
+                      path=str(clip), hint=NO_BALL_HINT)
+
+
+def _obs_rows(res, camera_name):
+    for f in res.flights:
+        for i in range(len(f.t)):
+            yield [float(f.t[i]), camera_name, float(f.uv[i, 0]), float(f.uv[i, 1]), float(f.radius_px[i]),
+                   float(f.quality[i]), f.flight, int(f.frame[i]), float(f.streak_px[i]), int(f.bounce)]
+
+
+def run_track(*, clip: Path, camera: Optional[Path], ball, capture_fps: Optional[float], out: Path,
+              overlay: Optional[Path], show_progress: bool = False) -> str:
+    from .formats import check_output_path, read_cameras, write_csv
+
+    out_p = check_output_path(out, [clip])
+    if overlay is not None:
+        check_output_path(overlay, [clip, out])
+    if capture_fps is not None and not (1 <= capture_fps <= 10000):
+        raise InputError(f"--capture-fps must be 1..10000, got {capture_fps}")
+    cams = read_cameras(camera) if camera is not None else None
+    res = _track(clip, cams, ball, capture_fps, overlay, show_progress)
+    if not res.flights:
+        raise _no_ball(clip, res)
+    name = cams[0].name if cams else "camera"
+    comment = "\n".join([f"tracked from {clip}"] + [f"flight {f.flight}: {len(f.t)} points, "
+                                                    f"{f.t[0]:.3f}-{f.t[-1]:.3f} s, ended: {f.end_reason}"
+                                                    for f in res.flights])
+    write_csv(out_p, OBS_HEADER, _obs_rows(res, name), comment=comment)
+    lines = [f"{res.n_frames} frames at {res.fps_measured:.1f} frames/s; {len(res.flights)} flight(s)"]
+    lines += [f"  flight {f.flight}: {len(f.t)} points, {f.t[0]:.3f}-{f.t[-1]:.3f} s, ended: {f.end_reason}"
+              + (" (bounce)" if f.bounce else "") for f in res.flights]
+    lines += [f"warning: {w}" for w in res.warnings]
+    lines.append(f"wrote {out_p}")
+    return "\n".join(lines)
+
+
+def analyze_clip(*, clip: Path, cams, ball, air, target_x, start_near, start_sigma, capture_fps, out_dir: Path,
+                 show_progress: bool = False, labels: Optional[dict] = None, units: str = "metric") -> tuple[list, str]:
+    """Track, fit every flight in image space, write observations, flight files and the report
+    into ``out_dir`` (written into a temporary folder first, then moved into place)."""
+    import shutil
+    import tempfile
+
+    from .errors import BallTrajError
+    from .fitting.analysis import fit_record
+    from .fitting.flight_fit import FitOptions
+    from .fitting.image_fit import fit_flight_image
+    from .formats import atomic_write_bytes, write_csv, write_json
+    from .physics.flight import FlightModel
+    from .report.html import build_report
+
+    res = _track(clip, cams, ball, capture_fps, None, show_progress)
+    if not res.flights:
+        raise _no_ball(clip, res)
+    model = FlightModel.for_ball(ball, air)
+    opts = FitOptions(start_near=None if start_near is None else parse_vector(start_near, "--start-near"),
+                      start_sigma=start_sigma)
+    recs, lines, failures = [], [], []
+    for f in res.flights:
+        try:
+            fit = fit_flight_image(model, f.t, [cams[0].name] * len(f.t), f.uv, cams[:1], radius_px=f.radius_px,
+                                   options=opts)
+            rec, _ = fit_record(fit, ball, air, model, target_x=_target(target_x), source=f"{clip}#flight-{f.flight}")
+        except BallTrajError as e:
+            failures.append(f"flight {f.flight}: {e.one_line()}")
+            continue
+        rec["clip"] = {"path": str(clip), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
+                       "end_reason": f.end_reason}
+        _label(rec, labels)
+        rec["air_note"] = air.source
+        recs.append(rec)
+    if not recs:
+        raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip),
+                         hint="check the camera file, or give --start-near")
+    out_dir = Path(out_dir)
+    parent = out_dir.parent if str(out_dir.parent) else Path(".")
+    if not parent.is_dir():
+        raise InputError("the folder that should hold --out does not exist", path=str(out_dir))
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=parent))
+    try:
+        write_csv(tmp / "observations.csv", OBS_HEADER, _obs_rows(res, cams[0].name), comment=f"tracked from {clip}")
+        names = ["flight.json"] if len(recs) == 1 else [f"flight-{i + 1}.json" for i in range(len(recs))]
+        for n, rec in zip(names, recs):
+            write_json(tmp / n, rec)
+        titles = [f"{Path(clip).stem}" + ("" if len(recs) == 1 else f" flight {i + 1}") for i in range(len(recs))]
+        atomic_write_bytes(tmp / "report.html", build_report(recs, titles, units).encode("utf-8"))
+        out_dir.mkdir(exist_ok=True)
+        for item in tmp.iterdir():
+            __import__("os").replace(item, out_dir / item.name)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    for n, rec in zip(names, recs):
+        D = rec["deflection"]
+        lines.append(f"{n}: {rec['launch']['speed_mps']:.2f} m/s, {rec['spin']['transverse_rate_rpm']:.0f} rpm "
+                     f"transverse, moved {D['horizontal_m'] * 100:+.1f} cm left / {D['vertical_m'] * 100:+.1f} cm up "
+                     f"by spin at x = {D['target_x_m']:.2f} m")
+    lines += [f"warning: {w}" for w in res.warnings] + [f"warning: {m}" for m in failures]
+    lines.append(f"wrote {out_dir}/observations.csv, {', '.join(names)}, report.html")
+    return recs, "\n".join(lines)
+
+
+def run_analyze(*, clip, camera, ball, air, target_x, start_near, start_sigma, capture_fps, out, labels=None,
+                show_progress=False) -> str:
+    from .formats import read_cameras
+
+    cams = read_cameras(camera)
+    if len(cams) != 1:
+        raise InputError("analyze takes one camera file (the camera that filmed the clip)", path=str(camera))
+    if not (math.isfinite(start_sigma) and start_sigma > 0):
+        raise InputError(f"--start-sigma must be a positive number of metres, got {start_sigma}")
+    _, text = analyze_clip(clip=clip, cams=cams, ball=ball, air=air, target_x=target_x, start_near=start_near,
+                           start_sigma=start_sigma, capture_fps=capture_fps, out_dir=out, show_progress=show_progress,
+                           labels=labels)
+    return text
+
+
+def run_render(*, flight: Path, camera: Path, out: Path, fps: float, duration: Optional[float], start: float,
+               exposure: float, noise: float, seed: int) -> str:
+    """Render a synthetic clip of a flight file's flight seen by a camera; write the truth beside it."""
+    from .fitting.record import model_from_dict
+    from .formats import check_output_path, read_cameras, read_flight_file, write_csv
+    from .physics.flight import FlightParameters, fly
+    from .vision.render import Scene, render_clip
+
+    out_p = check_output_path(out, [flight, camera])
+    rec = read_flight_file(flight)
+    cams = read_cameras(camera)
+    model, params = model_from_dict(rec["model"])
+    spin = np.asarray(rec["model"].get("spin_vector_radps") or [0, 0, 0], float)
+    params = FlightParameters.make(1, spin=spin, drag_scale=params.drag_scale, lift_override=params.lift_override,
+                                   spin_decay_s=params.spin_decay_s)
+    L = rec["launch"]
+    s0 = np.array(L["position_m"] + L["velocity_mps"], float)
+    if not (10 <= fps <= 1000) or not (0 < exposure <= 0.05) or not (0 <= noise <= 50):
+        raise InputError("--fps must be 10..1000, --exposure 0..0.05 s and --noise 0..50")
+    tr = fly(model, 0.0, s0, params, ground_z=0.0, t_max=10.0)
+    tg, _ = tr.first_crossing(2, 0.0, -1)
+    t_fl = float(tg[0]) if np.isfinite(tg[0]) else float(tr.t[-1])
+    dur = duration if duration is not None else start + t_fl + 0.2
+    fn = lambda ts: tr.positions(np.clip(np.asarray(ts) - start, 0, t_fl))[0]  # noqa: E731
+    scene = Scene(cams[0], fps=fps, duration_s=dur, exposure_s=exposure, noise=noise, seed=seed,
+                  ball_radius_m=model.radius_m, flights=[(start, start + t_fl, fn)])
+    truth = render_clip(scene, out_p)
+    tpath = out_p.with_suffix(".truth.csv")
+    write_csv(tpath, ["t", "flight", "u", "v", "radius_px", "x", "y", "z"],
+              ([r[k] for k in ("t", "flight", "u", "v", "radius_px", "x", "y", "z")] for r in truth),
+              comment=f"synthetic clip rendered by balltraj from {flight}")
+    return f"rendered {int(round(dur * fps))} frames ({cams[0].image_size[0]}x{cams[0].image_size[1]}, {fps:g} fps); wrote {out_p} and {tpath}"

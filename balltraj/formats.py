@@ -23,6 +23,8 @@ from .errors import BallTrajError, InputError
 from .physics.balls import Ball, ball_from_dict
 
 MAX_INPUT_BYTES = 200 * 1024 * 1024
+_UMASK = os.umask(0o022)
+os.umask(_UMASK)
 MAX_ROWS = 2_000_000
 ABSURD_COORDINATE_M = 10_000.0
 
@@ -43,6 +45,7 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
             f.write(data)
             f.flush()
             os.fsync(f.fileno())
+        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600 files; give the usual permissions
         os.replace(tmp, path)
     except OSError as e:
         _silent_unlink(tmp)

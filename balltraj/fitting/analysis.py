@@ -12,7 +12,7 @@ from ..errors import FitError
 from ..physics.aero import invert_lift
 from ..physics.air import AirConditions
 from ..physics.balls import Ball
-from ..physics.flight import FlightModel, FlightParameters, velocity_angles
+from ..physics.flight import FlightModel, FlightParameters, integrate, velocity_angles
 from ..physics.potential_flow import MAX_IDEAL_LIFT_COEFFICIENT, ideal_lift_bound
 from ..physics.reference import batch_deflections, plane_deflection
 from ..units import RPM
@@ -59,7 +59,31 @@ def _wrap_deg(d):
     return (d + 180.0) % 360.0 - 180.0
 
 
-def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float) -> tuple[dict, np.ndarray]:
+def states_at(model: FlightModel, t0: float, states, params: FlightParameters, t_new: float) -> np.ndarray:
+    """Batched states (B, 6) moved from t0 to t_new along their flights."""
+    if t_new == t0:
+        return np.asarray(states, float)
+    tr = integrate(model, t0, states, params, (min(t0, t_new), max(t0, t_new)), max_step=0.01)
+    return tr.sample([t_new])[:, 0, :]
+
+
+def launch_time(fit: FlightFit, model: FlightModel) -> float:
+    """The first observation, or, with a start hint, where the fitted path passes the hint's plane
+    x = X (when that is before the first observation): the release point the user named."""
+    if fit.options.start_near is None:
+        return fit.t0
+    hx = float(fit.options.start_near[0])
+    if hx >= fit.state0[0] or fit.state0[3] <= 0:
+        return fit.t0
+    params = FlightParameters.make(1, spin=fit.spin, drag_scale=fit.drag_scale, lift_override=fit.lift_override)
+    back = min(3.0, 2.0 * (fit.state0[0] - hx) / fit.state0[3] + 0.05)
+    tr = integrate(model, fit.t0, fit.state0[None], params, (fit.t0 - back, fit.t0), max_step=0.01)
+    tc, _ = tr.first_crossing(0, hx, +1)
+    return float(tc[0]) if np.isfinite(tc[0]) and tc[0] < fit.t0 else fit.t0
+
+
+def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
+                          t_launch: float | None = None) -> tuple[dict, np.ndarray]:
     """One-sigma uncertainties of the derived quantities and of the deflection (delta method,
     central differences, one batched integration for all deflections)."""
     p = fit.params
@@ -69,8 +93,10 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float) -
     h = 1e-5 * np.maximum(np.abs(p), typ)
     P = np.vstack([p + np.diag(h), p - np.diag(h)])
     states, params = batch_unpack(fit, model, P)
+    tl = fit.t0 if t_launch is None else t_launch
+    states = states_at(model, fit.t0, states, params, tl)
     D = _derived(states, params, fit.basis, model)
-    dfl = batch_deflections(model, fit.t0, states, params, target_x)
+    dfl = batch_deflections(model, tl, states, params, target_x)
     vals = np.concatenate([D, dfl], axis=1)
     diff = vals[:k] - vals[k:]
     diff[:, 4] = _wrap_deg(diff[:, 4])
@@ -95,10 +121,12 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
     if target_x is None:
         target_x = float(xyz_fit[inl][-1, 0])
     params = FlightParameters.make(1, spin=fit.spin, drag_scale=fit.drag_scale, lift_override=fit.lift_override)
-    d = plane_deflection(model, fit.t0, fit.state0, params, target_x, ground_z=None)
-    sig, dcov = derived_uncertainties(fit, model, target_x)
-    val = _derived(fit.state0[None], params, fit.basis, model)[0]
-    v0 = fit.state0[3:]
+    t_launch = launch_time(fit, model)
+    state_l = states_at(model, fit.t0, fit.state0[None], params, t_launch)[0]
+    d = plane_deflection(model, t_launch, state_l, params, target_x, ground_z=None)
+    sig, dcov = derived_uncertainties(fit, model, target_x, t_launch)
+    val = _derived(state_l[None], params, fit.basis, model)[0]
+    v0 = state_l[3:]
     w_eff = _effective_spin(fit.spin, fit.lift_override, v0, model)
     spin = spin_dict(np.nan_to_num(w_eff), v0, gyro_observed=False)
     free = math.isfinite(fit.lift_override)
@@ -158,6 +186,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
     dcov_list = dcov.tolist()
     unc = {
         "launch": {"position_m": fit.sigmas()[:3].tolist(), "velocity_mps": fit.sigmas()[3:6].tolist(),
+                   "note": "position and velocity sigmas are at the first observation",
                    "speed_mps": sig["speed_mps"], "elevation_deg": sig["elevation_deg"],
                    "azimuth_deg": sig["azimuth_deg"]},
         "spin": {"rate_rpm": srate, "transverse_rate_rpm": srate, "transverse_axis_deg": sig["axis_angle_deg"]},
@@ -176,7 +205,9 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "ball_properties": ball_dict(ball, model), "air": air.to_dict(),
         "model": model_dict(model, drag_scale=fit.drag_scale, lift_override=fit.lift_override,
                             spin_vector=fit.spin),
-        "launch": launch_dict(fit.t0, fit.state0),
+        "launch": {**launch_dict(t_launch, state_l),
+                   "at": "the start hint's plane" if t_launch != fit.t0 else "the first used observation",
+                   "first_observation_t_s": fit.t0},
         "spin": spin, "aero": aero, "deflection": defl, "break": d.break_summary(),
         "uncertainty": unc,
         "fit": {

@@ -122,10 +122,27 @@ def unpack_params(P, basis, options: FitOptions):
     P = np.atleast_2d(P)
     n = P.shape[0]
     comp = P[:, 6:8]
-    vec = comp[:, :1] * basis[0] + comp[:, 1:2] * basis[1]
+    e1, e2 = transverse_basis(P[:, 3:6])
+    vec = comp[:, :1] * e1 + comp[:, 1:2] * e2
     lift = np.linalg.norm(comp, axis=1) if options.free_lift else None
     scale = np.exp(P[:, 8]) if options.fit_drag else None
     return P[:, :6], FlightParameters.make(n, spin=vec, drag_scale=scale, lift_override=lift)
+
+
+def transverse_basis(v) -> tuple[np.ndarray, np.ndarray]:
+    """Per-row unit vectors e1 = z x v_hat (horizontal) and e2 = v_hat x e1, perpendicular to each
+    launch velocity (B, 3): the spin unknowns are transverse to the launch velocity exactly."""
+    v = np.atleast_2d(np.asarray(v, dtype=float))
+    vhat = v / np.linalg.norm(v, axis=1, keepdims=True)
+    e1 = np.stack([-vhat[:, 1], vhat[:, 0], np.zeros(len(v))], axis=1)
+    n1 = np.linalg.norm(e1, axis=1)
+    vertical = n1 < 1e-6
+    if vertical.any():
+        e1[vertical] = np.cross(np.array([1.0, 0.0, 0.0]), vhat[vertical])
+        n1[vertical] = np.linalg.norm(e1[vertical], axis=1)
+    e1 /= n1[:, None]
+    e2 = np.cross(vhat, e1)
+    return e1, e2
 
 
 def physics_names(options: FitOptions) -> list[str]:
@@ -197,16 +214,18 @@ class _Problem:
 
     def residuals(self, P) -> np.ndarray:
         P = np.atleast_2d(P)
-        tr = self.trajectories(P)
-        r = self.point_residuals(tr, P)[:, self._mask].reshape(P.shape[0], -1)
-        if self.hint is not None:
-            r = np.concatenate([r, self._hint_residuals(tr)], axis=1)
-        return r
+        with np.errstate(all="ignore"):  # wild trial steps may overflow; they get a huge residual
+            tr = self.trajectories(P)
+            r = self.point_residuals(tr, P)[:, self._mask].reshape(P.shape[0], -1)
+            if self.hint is not None:
+                r = np.concatenate([r, self._hint_residuals(tr)], axis=1)
+        return np.nan_to_num(r, nan=1e6, posinf=1e6, neginf=-1e6)
 
     def point_norms(self, p) -> np.ndarray:
         """Per-point residual norm in sigma units at p (all points, masked or not)."""
-        tr = self.trajectories(p[None])
-        return np.linalg.norm(self.point_residuals(tr, p[None])[0], axis=1)
+        with np.errstate(all="ignore"):
+            tr = self.trajectories(p[None])
+            return np.nan_to_num(np.linalg.norm(self.point_residuals(tr, p[None])[0], axis=1), nan=1e6)
 
     def _hint_residuals(self, tr: Trajectory) -> np.ndarray:
         tc, sc = tr.first_crossing(0, self.hint[0], +1)
@@ -272,7 +291,8 @@ class SolveResult:
     success: bool
 
 
-def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_points: int = 5) -> SolveResult:
+def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_points: int = 5,
+          sigma_floor: float = 0.0) -> SolveResult:
     """Robust pass, outlier flags, final least-squares pass and scaled covariance."""
     n = len(prob.sigma)
     nfev = 0
@@ -286,7 +306,9 @@ def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_poi
         d = prob.point_norms(p)
         scale = _robust_sigma(d)
         if estimate_sigma and scale > 0:
-            prob.rescale_sigma(max(scale, 1e-6))
+            # never trust a noise level below the floor (systematic errors of the measurements)
+            scale = max(scale, sigma_floor / float(np.median(prob.sigma)), 1e-6)
+            prob.rescale_sigma(scale)
             d = d / scale
         elif scale > 1:
             d = d / scale
@@ -295,7 +317,7 @@ def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_poi
             outliers = np.zeros(n, bool)
         prob.mask = ~outliers
     sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
-                        max_nfev=options.max_nfev)
+                        max_nfev=options.max_nfev, ftol=1e-12, xtol=1e-10, gtol=1e-12)
     nfev += sol.nfev
     p = sol.x
     J = prob.jacobian(p, central=True)

@@ -22,7 +22,10 @@ from ..physics.flight import FlightModel
 from .flight_fit import FitOptions, FlightFit, _Problem, _start, solve
 
 RADIUS_SIGMA_PX = 0.5  # floor of the apparent-radius noise [px] (common practice: sub-pixel edges)
-RADIUS_SIGMA_REL = 0.05  # and 5 % of the radius
+RADIUS_SIGMA_REL = 0.05  # and 5 % of the radius, per point
+PIXEL_SIGMA_FLOOR = 0.15  # px: centroids are not better than this (compression, blur, shading)
+RADIUS_BIAS_SIGMA_PX = 0.3  # and a common additive bias (edge threshold, blur): prior 0.3 px
+RADIUS_SCALE_SIGMA = 0.06  # a common scale error of all measured radii (blur, edge threshold): prior 6 %
 
 
 class _ImageProblem(_Problem):
@@ -33,14 +36,20 @@ class _ImageProblem(_Problem):
         self.uv = np.asarray(uv, float)
         self.cameras = cameras
         self.fit_offsets = fit_offsets and len(cameras) > 1
+        names, typ = [], []
         if self.fit_offsets:
-            self.extra_names = tuple(f"time_offset_{c.name}" for c in cameras[1:])
-            self.extra_typical = tuple(0.01 for _ in cameras[1:])
+            names += [f"time_offset_{c.name}" for c in cameras[1:]]
+            typ += [0.01 for _ in cameras[1:]]
+        self.use_radius = radius is not None and np.isfinite(np.asarray(radius, float)).any()
+        if self.use_radius:
+            names += ["log_radius_scale", "radius_bias_px"]
+            typ += [0.01, 0.01]
+        self.extra_names, self.extra_typical = tuple(names), tuple(typ)
         self.base_offset = np.array([c.time_offset_s for c in cameras])
         h = np.array([c.image_size[1] for c in cameras], float)
         ro = np.array([c.readout_s for c in cameras])
         self.shutter = ro[self.cam_idx] * self.uv[:, 1] / h[self.cam_idx]
-        self.radius = None if radius is None else np.asarray(radius, float)
+        self.radius = np.asarray(radius, float) if self.use_radius else None
         self.R_ball = model.radius_m
         rig_t = self.t_obs + self.base_offset[self.cam_idx] + self.shutter
         super().__init__(model, float(rig_t.min()), sigma_px, basis, options)
@@ -54,8 +63,21 @@ class _ImageProblem(_Problem):
         B = P.shape[0]
         off = np.tile(self.base_offset, (B, 1))
         if self.fit_offsets:
-            off[:, 1:] += P[:, self.n_phys:]
+            off[:, 1:] += P[:, self.n_phys:self.n_phys + len(self.cameras) - 1]
         return off
+
+    def radius_scale(self, P) -> np.ndarray:
+        return np.exp(P[:, -2]) if self.use_radius else np.ones(P.shape[0])
+
+    def radius_bias(self, P) -> np.ndarray:
+        return P[:, -1] if self.use_radius else np.zeros(P.shape[0])
+
+    def residuals(self, P):
+        r = super().residuals(P)
+        if self.use_radius:
+            P = np.atleast_2d(P)
+            r = np.concatenate([r, P[:, -2:-1] / RADIUS_SCALE_SIGMA, P[:, -1:] / RADIUS_BIAS_SIGMA_PX], axis=1)
+        return r
 
     def times(self, P) -> np.ndarray:
         return self.t_obs[None, :] + self.offsets(P)[:, self.cam_idx] + self.shutter[None, :]
@@ -73,7 +95,9 @@ class _ImageProblem(_Problem):
     def point_residuals(self, tr, P):
         pos = self.positions(tr, P)
         B, N = pos.shape[:2]
-        ncol = 3 if self.radius is not None else 2
+        ncol = 3 if self.use_radius else 2
+        scale = self.radius_scale(np.atleast_2d(P))[:, None]
+        bias = self.radius_bias(np.atleast_2d(P))[:, None]
         out = np.zeros((B, N, ncol))
         for c, cam in enumerate(self.cameras):
             m = self.cam_idx == c
@@ -82,9 +106,9 @@ class _ImageProblem(_Problem):
             pred = cam.project(pos[:, m])
             pred = np.where(np.isfinite(pred), pred, 1e6)  # behind the camera: huge residual
             out[:, m, :2] = (pred - self.uv[m]) / self.sigma[m, None]
-            if self.radius is not None:
+            if self.use_radius:
                 depth = cam.depth(pos[:, m])
-                r_pred = self.focal[c] * self.R_ball / np.maximum(depth, 1e-3)
+                r_pred = scale * self.focal[c] * self.R_ball / np.maximum(depth, 1e-3) + bias
                 ok = np.isfinite(self.radius[m])
                 out[:, m, 2] = np.where(ok, (r_pred - np.nan_to_num(self.radius[m])) / self.radius_sigma[m], 0.0)
         return out
@@ -171,8 +195,10 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
     prob._first_xyz = p0[:3]
     if prob.fit_offsets:
         p0 = np.concatenate([p0, np.zeros(len(cams) - 1)])
+    if prob.use_radius:
+        p0 = np.concatenate([p0, [0.0, 0.0]])
     prob.set_hint_span(float(np.linalg.norm(p0[3:6])))
-    res = solve(prob, p0, options, estimate_sigma=not given, min_points=6)
+    res = solve(prob, p0, options, estimate_sigma=not given, min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR)
     p = res.p
     tr = prob.trajectories(p[None])
     pos = prob.positions(tr, p[None])[0]

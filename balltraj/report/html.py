@@ -121,8 +121,10 @@ def flight_section(rec: dict, units: str, title: str, what_if_options: dict) -> 
         F = rec["fit"]
         parts.append("<h2>How well the model fits the tracked points</h2>")
         parts.append(f'<div class="wide">{res}</div>')
+        typical = (f"{F['rms_residual']:.2f} px in the image" if F.get("residual_unit") == "px"
+                   else _len(F["rms_residual"], units))
         parts.append(f"<p>{F['n_points']} tracked points, {F['n_outliers']} ignored as outliers; typical distance "
-                     f"from the fitted path {esc(_len(F['rms_residual'], units))} (rms). {esc(F.get('message', ''))}.</p>")
+                     f"from the fitted path {esc(typical)} (rms). {esc(F.get('message', ''))}.</p>")
     parts.append("<h2>Coefficients</h2>")
     parts.append(f'<div class="wide">{plots.coefficient_plots(rec)}</div>')
     A = rec["aero"]

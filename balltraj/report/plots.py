@@ -113,11 +113,16 @@ def residuals_plot(rec: dict, units: str = "metric") -> str | None:
         return None
     big, bu, small, su = length_scale(units)
     t = np.asarray(pts["t"])
-    res = np.asarray(pts["residual"]) * (1000 if units == "metric" else small)
+    pixels = rec["fit"].get("residual_unit") == "px"
+    res = np.asarray(pts["residual"])
+    if pixels:
+        unit, names = "px", ("u", "v")
+    else:
+        res = res * (1000 if units == "metric" else small)
+        unit, names = ("mm" if units == "metric" else "in"), ("x", "y", "z")
     out = np.asarray(pts["outlier"], bool)
-    unit = "mm" if units == "metric" else "in"
     fig, ax = plt.subplots(figsize=(6.2, 2.4))
-    for k, (name, col) in enumerate(zip("xyz", ["#0f766e", "#7c3aed", "#b45309"])):
+    for k, (name, col) in enumerate(zip(names, ["#0f766e", "#7c3aed", "#b45309"])):
         ax.plot(t[~out], res[~out, k], ".", ms=3, color=col, label=f"{name}")
     if out.any():
         lim = np.abs(res[~out]).max() * 1.5 if (~out).any() else 1

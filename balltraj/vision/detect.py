@@ -109,8 +109,8 @@ class Detector:
         if len(contours) <= 20 * self.max_candidates:
             for c in contours:
                 x, y, bw, bh = cv2.boundingRect(c)
-                if bw * bh < 1:
-                    continue
+                if bw * bh < 1 or x <= 0 or y <= 0 or x + bw >= self.sw or y + bh >= self.sh:
+                    continue  # cut by the image edge: its centroid would be biased
                 cand = self._measure(gray, 2 * x, 2 * y, 2 * bw, 2 * bh)
                 if cand is not None:
                     cands.append(cand)

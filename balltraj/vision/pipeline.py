@@ -34,7 +34,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
                          hint="calibrate the camera at the clip's resolution and orientation")
     gate = radius_gate_map(camera, ball_radius_m, (info.width, info.height))
     det = Detector(info.width, info.height, gate=gate)
-    trk = Tracker(info.width, info.height)
+    trk = Tracker(info.width, info.height, focal_px=None if camera is None else camera.focal_px,
+                  ball_radius_m=ball_radius_m)
     times, n = [], 0
     writer = None
     drawn: list = []

@@ -52,6 +52,32 @@ class _Track:
         return float(np.median(d))
 
 
+def world_speed(tr: _Track, focal_px: float, ball_radius_m: float) -> float:
+    """Typical speed [m/s] the track would have if it were the ball: depth from the apparent
+    radius (f R / r, smoothed by a quadratic in time), sideways speed from the image motion."""
+    ts, uv = tr.times(), tr.uv()
+    r = np.array([p[2].radius_px for p in tr.points])
+    tt = ts - ts.mean()
+    depth = focal_px * ball_radius_m / np.maximum(r, 0.3)
+    deg = 2 if len(ts) >= 6 else 1
+    dc = np.polyfit(tt, depth, deg)
+    d_s = np.polyval(dc, tt)
+    radial = np.polyval(np.polyder(dc), tt)
+    uc = [np.polyfit(tt, uv[:, k], min(3, len(ts) - 1)) for k in range(2)]
+    du = np.hypot(np.polyval(np.polyder(uc[0]), tt), np.polyval(np.polyder(uc[1]), tt))
+    lateral = du * np.maximum(d_s, 0.1) / focal_px
+    return float(np.median(np.hypot(lateral, radial)))
+
+
+def _radius_consistent(tr: _Track) -> bool:
+    """Median scatter of the apparent radius about a quadratic in time within 10 % (0.3 px floor)."""
+    r = np.array([p[2].radius_px for p in tr.points])
+    ts = tr.times()
+    tt = ts - ts.mean()
+    rf = np.polyval(np.polyfit(tt, r, 2), tt)
+    return float(np.median(np.abs(r - rf))) <= max(0.1 * float(np.median(r)), 0.3)
+
+
 def _net_speed(tr: _Track) -> float:
     ts, uv = tr.times(), tr.uv()
     return float(np.linalg.norm(uv[-1] - uv[0]) / max(ts[-1] - ts[0], 1e-9))
@@ -88,14 +114,19 @@ class TrackedFlight:
 class Tracker:
     def __init__(self, width, height, fps_hint: float = 240.0, *, min_speed_px_s: float | None = None,
                  max_speed_px_s: float | None = None, max_misses: int = 10, min_points: int = 8,
-                 confirm: int = 4):
+                 confirm: int = 4, focal_px: float | None = None, ball_radius_m: float | None = None,
+                 min_ball_speed_mps: float = 3.0, max_ball_speed_mps: float = 90.0):
         self.w, self.h = width, height
         diag = float(np.hypot(width, height))
-        self.min_speed = min_speed_px_s if min_speed_px_s is not None else 0.25 * diag  # px/s
+        self.min_speed = min_speed_px_s if min_speed_px_s is not None else 0.1 * diag  # px/s
         self.max_speed = max_speed_px_s if max_speed_px_s is not None else 25.0 * diag
         self.max_misses = max_misses
         self.min_points = min_points
         self.confirm = confirm
+        self.focal_px = focal_px
+        self.ball_radius_m = ball_radius_m
+        self.min_ball_speed = min_ball_speed_mps
+        self.max_ball_speed = max_ball_speed_mps
         self.active: list[_Track] = []
         self.finished: list[_Track] = []
         self.pool: list[tuple[int, float, Candidate]] = []  # unclaimed candidates of recent frames
@@ -206,6 +237,12 @@ class Tracker:
                 continue
             if _smoothness_px(tr) > max(1.5, 0.5 * float(np.median([p[2].radius_px for p in tr.points]))):
                 continue  # a thrown ball follows a smooth curve in the image; people and flags do not
+            if not _radius_consistent(tr):
+                continue  # a ball's apparent size changes smoothly with its distance
+            if self.focal_px and self.ball_radius_m:
+                ws = world_speed(tr, self.focal_px, self.ball_radius_m)
+                if ws < self.min_ball_speed or ws > self.max_ball_speed:
+                    continue  # as big as it looks, a "ball" this slow (a person, a bag) or this fast is not one
             flights.append(tr)
         flights.sort(key=lambda x: x.points[0][1])
         out = []
