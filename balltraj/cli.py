@@ -6,8 +6,13 @@ Heavy modules (scipy, matplotlib, cv2) are imported inside the commands that nee
 
 from __future__ import annotations
 
+import os
 import sys
 from pathlib import Path
+
+# quiet OpenCV's and FFmpeg's own console chatter (errors reach the user as one balltraj line)
+os.environ.setdefault("OPENCV_LOG_LEVEL", "OFF")
+os.environ.setdefault("OPENCV_FFMPEG_LOGLEVEL", "-8")
 from typing import List, Optional
 
 import typer
@@ -178,7 +183,7 @@ def demo(out: Path = typer.Option(Path("balltraj-demo"), "--out", help="Folder f
     try:
         from .commands import run_demo
 
-        text = run_demo(out)
+        text = run_demo(out, show_progress=sys.stderr.isatty())
     except BallTrajError as e:
         _fail(e)
     _echo(text)

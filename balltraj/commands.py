@@ -290,56 +290,72 @@ def run_report(*, flights: Sequence[Path], units: str, out: Path, fmt: str = "ht
 
 def _sample_dir() -> Path:
     for cand in (Path.cwd() / "sample_clips", Path(__file__).resolve().parents[1] / "sample_clips"):
-        if (cand / "tracks").is_dir():
+        if cand.is_dir() and any(cand.glob("*.truth.json")):
             return cand
     raise InputError("the bundled sample session was not found",
                      hint="run balltraj demo from the balltraj source folder (it holds sample_clips/)")
 
 
-def run_demo(out: Path, progress=None) -> str:
-    """Fit the bundled sample session, write flight files and one report, compare with truth."""
-    import json
-
-    from .formats import read_json, write_csv, write_json
+def run_demo(out: Path, show_progress: bool = False) -> str:
+    """The whole job on the bundled sample session: each clip is tracked, fitted in image space and
+    reported; the tracked 3D sample flights are fitted too; one report holds them all."""
+    from .formats import atomic_write_bytes, read_cameras, read_json, write_csv
     from .physics.air import air_conditions
     from .physics.balls import get_ball
     from .report.html import build_report
-    from .formats import atomic_write_bytes
 
     samples = _sample_dir()
+    root = samples.parent
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise InputError("the demo output must be a folder", path=str(out))
     out.mkdir(parents=True, exist_ok=True)
-    rows, recs, titles, lines = [], [], [], []
-    tracks = sorted((samples / "tracks").glob("*.csv"))
-    header = f"{'flight':<16} {'athlete':<12} {'speed m/s':>10} {'spin rpm':>9} {'left cm':>8} {'up cm':>7}   truth: left, up cm"
-    lines.append(header)
-    for path in tracks:
-        truth = read_json(path.with_suffix(".truth.json"))
-        ball = get_ball(truth["truth"]["ball"])
-        air = air_conditions(**truth["air_kwargs"])
-        rec, d = _fit_one(path, ball=ball, air=air, target_x=str(truth["target_x_m"]), start_near=None,
+    rows, recs, titles = [], [], []
+    lines = [f"{'flight':<18} {'athlete':<11} {'speed m/s':>9} {'spin rpm':>8} {'left cm':>8} {'up cm':>7}"
+             f"   truth: left, up cm"]
+
+    def line(name, athlete, rec, truth):
+        D, TD = rec["deflection"], truth["deflection"]
+        lines.append(f"{name:<18} {athlete:<11} {rec['launch']['speed_mps']:>9.2f} "
+                     f"{rec['spin']['transverse_rate_rpm']:>8.0f} {D['horizontal_m'] * 100:>8.1f} "
+                     f"{D['vertical_m'] * 100:>7.1f}   {TD['horizontal_m'] * 100:.1f}, {TD['vertical_m'] * 100:.1f}")
+
+    for clip in sorted(samples.glob("*.mp4")):
+        meta = read_json(clip.with_suffix(".truth.json"))
+        ball = get_ball(meta["ball"])
+        air = air_conditions(**meta["air_kwargs"])
+        cams = read_cameras(root / meta["camera"])
+        crecs, _ = analyze_clip(clip=clip, cams=cams, ball=ball, air=air, target_x=str(meta["target_x_m"]),
+                                start_near=",".join(str(v) for v in meta["start_near"]), start_sigma=0.3,
+                                capture_fps=None, out_dir=out / clip.stem, show_progress=show_progress,
+                                labels={"athlete": meta["athlete"], "session": meta["session"],
+                                        "notes": "Invented demo data (not a real club or athlete)."})
+        for rec in crecs:
+            recs.append(rec)
+            titles.append(clip.stem)
+            rows.append(summary_row(str(clip), rec))
+            line(clip.stem, meta["athlete"], rec, meta["truth"])
+    for path in sorted((samples / "tracks").glob("*.csv")):
+        meta = read_json(path.with_suffix(".truth.json"))
+        ball = get_ball(meta["truth"]["ball"])
+        air = air_conditions(**meta["air_kwargs"])
+        rec, _ = _fit_one(path, ball=ball, air=air, target_x=str(meta["target_x_m"]), start_near=None,
                           start_sigma=0.3, fit_drag=False, free_lift=False)
-        rec["athlete"], rec["session"] = truth["athlete"], truth["session"]
-        rec["notes"] = "Invented demo data (not a real club or athlete)."
+        _label(rec, {"athlete": meta["athlete"], "session": meta["session"],
+                     "notes": "Invented demo data (not a real club or athlete)."})
+        from .formats import write_json
+
         write_json(out / f"{path.stem}.json", rec)
         recs.append(rec)
         titles.append(path.stem)
         rows.append(summary_row(str(path), rec))
-        D, TD = rec["deflection"], truth["truth"]["deflection"]
-        lines.append(f"{path.stem:<16} {truth['athlete']:<12} {rec['launch']['speed_mps']:>10.2f} "
-                     f"{rec['spin']['transverse_rate_rpm']:>9.0f} {D['horizontal_m'] * 100:>8.1f} {D['vertical_m'] * 100:>7.1f}"
-                     f"   {TD['horizontal_m'] * 100:.1f}, {TD['vertical_m'] * 100:.1f}")
-        if progress:
-            progress()
+        line(path.stem, meta["athlete"], rec, meta["truth"])
     write_csv(out / "summary.csv", SUMMARY_HEADER, rows)
-    page = build_report(recs, titles, "metric")
-    atomic_write_bytes(out / "report.html", page.encode("utf-8"))
-    lines.append("")
-    lines.append(f"flight files and summary.csv in {out}/; open {out / 'report.html'} in a browser")
-    lines.append("(invented demo session: the club and the athletes do not exist)")
-    _ = json
+    atomic_write_bytes(out / "report.html", build_report(recs, titles, "metric").encode("utf-8"))
+    lines += ["", f"clips: per-clip folders with observations.csv, flight.json and report.html in {out}/",
+              f"all flights: {out / 'summary.csv'} and {out / 'report.html'} (open it in a browser)",
+              "invented demo session: the club and the athletes do not exist.",
+              "Keep people and cameras out of the ball's path; these are estimates, not officiating decisions."]
     return "\n".join(lines)
 
 

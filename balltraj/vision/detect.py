@@ -121,8 +121,11 @@ class Detector:
         if self.k % 4 == 0:
             cv2.accumulateWeighted(gray, self.bg_full, min(1.0, 4 * self.alpha),
                                    mask=cv2.resize(keep, (self.w, self.h), interpolation=cv2.INTER_NEAREST))
-        if self.k % 16 == 0:
-            cv2.accumulateWeighted(small, self.bg_small, 0.1 * self.alpha)
+        # slower unmasked update: ghosts (what the first frame hid) and slow movers fade in ~100 frames;
+        # a passing ball leaves well under 1 % of its contrast behind
+        cv2.accumulateWeighted(small, self.bg_small, 0.25 * self.alpha)
+        if self.k % 4 == 0:
+            cv2.accumulateWeighted(gray, self.bg_full, self.alpha)
         if len(cands) > self.max_candidates:  # lighting change or camera shake: keep the strongest
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands

@@ -69,6 +69,16 @@ def world_speed(tr: _Track, focal_px: float, ball_radius_m: float) -> float:
     return float(np.median(np.hypot(lateral, radial)))
 
 
+def _blur_consistent(tr: _Track) -> bool:
+    """A ball's streak is at most the distance it moves in one frame interval (the exposure is
+    shorter than the interval), plus the blur of its edge."""
+    uv, ts = tr.uv(), tr.times()
+    step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.diff(ts))) * float(np.median(np.diff(ts)))
+    streak = float(np.median([p[2].streak_px for p in tr.points]))
+    r = float(np.median([p[2].radius_px for p in tr.points]))
+    return streak <= 1.2 * step + 2.0 + 0.5 * r
+
+
 def _radius_consistent(tr: _Track) -> bool:
     """Median scatter of the apparent radius about a quadratic in time within 10 % (0.3 px floor)."""
     r = np.array([p[2].radius_px for p in tr.points])
@@ -194,8 +204,8 @@ class Tracker:
         for tr in tracks:
             joined = False
             for prev in out:
-                if prev.ended not in ("lost", "clip ended") or prev.bounce:
-                    continue
+                if prev.ended not in ("lost", "clip ended", "bounce"):
+                    continue  # a suspected bounce that the next fragment continues was not one
                 gap = tr.points[0][1] - prev.points[-1][1]
                 if not (0 < gap <= 0.15):
                     continue
@@ -237,6 +247,8 @@ class Tracker:
                 continue
             if _smoothness_px(tr) > max(1.5, 0.5 * float(np.median([p[2].radius_px for p in tr.points]))):
                 continue  # a thrown ball follows a smooth curve in the image; people and flags do not
+            if not _blur_consistent(tr):
+                continue  # elongated far beyond what its own motion can smear: a limb, a pole, a person
             if not _radius_consistent(tr):
                 continue  # a ball's apparent size changes smoothly with its distance
             if self.focal_px and self.ball_radius_m:

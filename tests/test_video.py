@@ -1,0 +1,160 @@
+import json
+import math
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from typer.testing import CliRunner
+
+from balltraj.camera.model import look_at_camera
+from balltraj.cli import app
+from balltraj.physics.air import air_conditions
+from balltraj.physics.balls import get_ball
+from balltraj.physics.flight import FlightModel, FlightParameters, fly, launch_state
+from balltraj.vision.clip import read_frames
+from balltraj.vision.pipeline import track_clip
+from balltraj.vision.render import Scene, render_clip
+
+ROOT = Path(__file__).resolve().parents[1]
+runner = CliRunner()
+CAM = look_at_camera("side", [9.0, -12.0, 1.4], [9.0, 0.0, 1.3], 520, (640, 360))
+
+
+def _pitch(speed, y0, spin_axis, rpm=2000):
+    ball = get_ball("baseball")
+    model = FlightModel.for_ball(ball, air_conditions())
+    s0 = launch_state([0, y0, 1.8], speed, math.radians(-1), 0.0)
+    ax = np.asarray(spin_axis, float)
+    spin = rpm * 2 * math.pi / 60 * ax / np.linalg.norm(ax)
+    tr = fly(model, 0.0, s0, FlightParameters.make(1, spin=spin), stop_x=19, ground_z=None)
+    t_end = float(tr.first_crossing(0, 18.5)[0][0])
+    return tr, t_end, model
+
+
+@pytest.fixture(scope="module")
+def two_throws(tmp_path_factory):
+    d = tmp_path_factory.mktemp("clip")
+    flights = []
+    for start, speed, y0, axis in ((0.1, 38.0, 0.2, [0, -1, 0.2]), (0.85, 33.0, -0.2, [0, 0.6, 0.8])):
+        tr, t_end, model = _pitch(speed, y0, axis)
+        flights.append((start, start + t_end, lambda ts, tr=tr, s=start, e=t_end: tr.positions(np.clip(ts - s, 0, e))[0]))
+    scene = Scene(CAM, duration_s=1.55, flights=flights, ball_radius_m=model.radius_m, seed=5)
+    path = d / "two throws.mp4"
+    truth = render_clip(scene, path)
+    (d / "cam.json").write_text(json.dumps(CAM.to_dict()))
+    return path, truth, d
+
+
+def test_timestamps_are_container_times(two_throws):
+    path, _, _ = two_throws
+    times = [t for _, t, _ in read_frames(path)]
+    # Source: the clip was written at a constant 240 frames/s (OpenCV VideoWriter)
+    assert np.allclose(np.diff(times), 1 / 240, atol=1e-5)
+    assert times[0] == 0.0 and len(times) == int(round(1.55 * 240))
+
+
+def test_two_throws_tracked_in_time_order_with_subpixel_centroids(two_throws):
+    path, truth, _ = two_throws
+    res = track_clip(path, CAM, 0.0369)
+    assert len(res.flights) == 2
+    assert res.flights[0].t[0] < res.flights[1].t[0]
+    tt = np.array([r["t"] for r in truth])
+    for f in res.flights:
+        rows = [truth[int(np.argmin(np.abs(tt - t)))] for t in f.t]
+        err = np.hypot(f.uv[:, 0] - [r["u"] for r in rows], f.uv[:, 1] - [r["v"] for r in rows])
+        assert np.median(err) <= 0.3
+        assert {r["flight"] for r in rows} == {f.flight}
+        # most of the visible flight was tracked
+        visible = sum(1 for r in truth if r["flight"] == f.flight)
+        assert len(f.t) >= 0.8 * visible
+
+
+def test_track_cli_and_overlay(two_throws):
+    path, _, d = two_throws
+    out, ov = d / "obs.csv", d / "overlay.mp4"
+    r = runner.invoke(app, ["track", str(path), "--camera", str(d / "cam.json"), "-o", str(out), "--overlay", str(ov)])
+    assert r.exit_code == 0, r.output
+    lines = [l for l in out.read_text().splitlines() if not l.startswith("#")]
+    assert lines[0].startswith("t,camera,u,v,radius_px,quality,flight")
+    assert {l.split(",")[6] for l in lines[1:]} == {"1", "2"}
+    assert ov.stat().st_size > 10_000
+
+
+@pytest.mark.parametrize("name,content,needle", [
+    ("missing.mp4", None, "no such clip"),
+    ("notes.mp4", b"this is not a video at all\n", "text file"),
+    ("empty.mp4", b"", "empty"),
+    ("noise.mp4", bytes(range(256)) * 40, "cannot open"),
+])
+def test_bad_clips(tmp_path, name, content, needle):
+    p = tmp_path / name
+    if content is not None:
+        p.write_bytes(content)
+    r = subprocess.run([sys.executable, "-m", "balltraj", "track", str(p), "-o", str(tmp_path / "o.csv")],
+                       capture_output=True, text=True)
+    assert r.returncode == 2, r.stderr
+    assert needle in r.stderr and len(r.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "o.csv").exists()
+
+
+def test_truncated_clip(two_throws, tmp_path):
+    path, _, d = two_throws
+    data = path.read_bytes()
+    p = tmp_path / "cut.mp4"
+    p.write_bytes(data[: len(data) // 3])
+    r = subprocess.run([sys.executable, "-m", "balltraj", "track", str(p), "--camera", str(d / "cam.json"),
+                        "-o", str(tmp_path / "o.csv")], capture_output=True, text=True)
+    assert r.returncode == 2 and r.stderr.startswith("error: ") and "Traceback" not in r.stderr
+
+
+def test_camera_size_mismatch(two_throws, tmp_path):
+    path, _, _ = two_throws
+    cam = look_at_camera("side", [9.0, -12.0, 1.4], [9.0, 0.0, 1.3], 520, (1280, 720))
+    cp = tmp_path / "c.json"
+    cp.write_text(json.dumps(cam.to_dict()))
+    r = subprocess.run([sys.executable, "-m", "balltraj", "track", str(path), "--camera", str(cp),
+                        "-o", str(tmp_path / "o.csv")], capture_output=True, text=True)
+    assert r.returncode == 2 and "1280x720" in r.stderr and "640x360" in r.stderr
+
+
+def test_clip_without_ball_says_so(tmp_path):
+    scene = Scene(CAM, duration_s=0.3, flights=[], seed=1)
+    p = tmp_path / "empty field.mp4"
+    render_clip(scene, p)
+    (tmp_path / "cam.json").write_text(json.dumps(CAM.to_dict()))
+    out = tmp_path / "result"
+    r = subprocess.run([sys.executable, "-m", "balltraj", "analyze", str(p), "--camera", str(tmp_path / "cam.json"),
+                        "--ball", "baseball", "--out", str(out)], capture_output=True, text=True)
+    assert r.returncode == 2 and "no ball flight was found" in r.stderr and "shutter" in r.stderr
+    assert not out.exists()
+
+
+@pytest.mark.parametrize("name", ["pitch-side", "free-kick-behind"])
+def test_sample_clips_end_to_end_within_5_cm(tmp_path, name):
+    meta = json.loads((ROOT / "sample_clips" / f"{name}.truth.json").read_text())
+    out = tmp_path / name
+    r = runner.invoke(app, ["analyze", str(ROOT / "sample_clips" / f"{name}.mp4"), "--camera",
+                            str(ROOT / meta["camera"]), "--ball", meta["ball"], "--target-x", str(meta["target_x_m"]),
+                            "--start-near", ",".join(map(str, meta["start_near"])), "--temperature", "18",
+                            "--humidity", "65", "--altitude", "120", "--out", str(out)])
+    assert r.exit_code == 0, r.output
+    rec = json.loads((out / "flight.json").read_text())
+    for k in ("horizontal_m", "vertical_m"):
+        assert abs(rec["deflection"][k] - meta["truth"]["deflection"][k]) < 0.05, (k, rec["deflection"][k])
+    assert (out / "observations.csv").exists() and (out / "report.html").exists()
+
+
+def test_render_cli_round_trip(tmp_path):
+    sim = tmp_path / "sim.json"
+    assert runner.invoke(app, ["simulate", "--ball", "baseball", "--position", "0,0,1.8", "--speed", "36",
+                               "--elevation", "0", "--spin-rpm", "2000", "--spin-axis", "0,-1,0", "--target-x", "18",
+                               "-o", str(sim)]).exit_code == 0
+    cam = tmp_path / "cam.json"
+    cam.write_text(json.dumps(CAM.to_dict()))
+    clip = tmp_path / "r.mp4"
+    r = runner.invoke(app, ["render", str(sim), "--camera", str(cam), "--duration", "0.7", "-o", str(clip)])
+    assert r.exit_code == 0, r.output
+    truth = [l for l in (tmp_path / "r.truth.csv").read_text().splitlines() if not l.startswith("#")]
+    assert truth[0] == "t,flight,u,v,radius_px,x,y,z" and len(truth) > 50
