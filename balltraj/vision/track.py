@@ -26,11 +26,29 @@ class _Track:
     ended: str = ""
     bounce: bool = False
 
+    _cache_n: int = -1
+    _t: np.ndarray = None
+    _uv: np.ndarray = None
+    _speed: float = 0.0
+
+    def _refresh(self):
+        if self._cache_n != len(self.points):
+            self._t = np.array([p[1] for p in self.points])
+            self._uv = np.array([[p[2].u, p[2].v] for p in self.points])
+            if len(self.points) >= 2:
+                d = np.hypot(*np.diff(self._uv, axis=0).T) / np.maximum(np.diff(self._t), 1e-9)
+                self._speed = float(np.median(d))
+            else:
+                self._speed = 0.0
+            self._cache_n = len(self.points)
+
     def times(self):
-        return np.array([p[1] for p in self.points])
+        self._refresh()
+        return self._t
 
     def uv(self):
-        return np.array([[p[2].u, p[2].v] for p in self.points])
+        self._refresh()
+        return self._uv
 
     def predict(self, t):
         ts, uv = self.times()[-8:], self.uv()[-8:]
@@ -45,11 +63,8 @@ class _Track:
         return np.vander(np.array([t - ts[-1]]), deg + 1)[0] @ coef, spread
 
     def speed_px_per_s(self):
-        ts, uv = self.times(), self.uv()
-        if len(ts) < 2:
-            return 0.0
-        d = np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.maximum(np.diff(ts), 1e-9)
-        return float(np.median(d))
+        self._refresh()
+        return self._speed
 
 
 def world_speed(tr: _Track, focal_px: float, ball_radius_m: float) -> float:
