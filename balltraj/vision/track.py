@@ -57,10 +57,14 @@ class _Track:
         deg = 2 if len(ts) >= 4 else 1
         tt = ts - ts[-1]
         A = np.vander(tt, deg + 1)
-        coef, *_ = np.linalg.lstsq(A, uv, rcond=None)
+        try:  # normal equations: much cheaper than an SVD on these tiny systems
+            coef = np.linalg.solve(A.T @ A, A.T @ uv)
+        except np.linalg.LinAlgError:
+            coef, *_ = np.linalg.lstsq(A, uv, rcond=None)
         res = uv - A @ coef
-        spread = float(np.sqrt(np.mean(np.sum(res**2, axis=1)))) if len(ts) > deg + 1 else 0.0
-        return np.vander(np.array([t - ts[-1]]), deg + 1)[0] @ coef, spread
+        spread = float(np.sqrt((res * res).sum() / len(ts))) if len(ts) > deg + 1 else 0.0
+        dt = t - ts[-1]
+        return (coef[-1] + dt * coef[-2] + (dt * dt * coef[0] if deg == 2 else 0.0)), spread
 
     def speed_px_per_s(self):
         self._refresh()
@@ -236,6 +240,14 @@ class Tracker:
                 out.append(tr)
         return out
 
+    def _looks_like_ball(self, tr: _Track) -> bool:
+        if not _blur_consistent(tr) or not _radius_consistent(tr):
+            return False
+        if self.focal_px and self.ball_radius_m:
+            ws = world_speed(tr, self.focal_px, self.ball_radius_m)
+            return self.min_ball_speed <= ws <= self.max_ball_speed
+        return True
+
     def _plausible(self, tr: _Track) -> bool:
         return _net_speed(tr) >= self.min_speed
 
@@ -262,14 +274,10 @@ class Tracker:
                 continue
             if _smoothness_px(tr) > max(1.5, 0.5 * float(np.median([p[2].radius_px for p in tr.points]))):
                 continue  # a thrown ball follows a smooth curve in the image; people and flags do not
-            if not _blur_consistent(tr):
-                continue  # elongated far beyond what its own motion can smear: a limb, a pole, a person
-            if not _radius_consistent(tr):
-                continue  # a ball's apparent size changes smoothly with its distance
-            if self.focal_px and self.ball_radius_m:
-                ws = world_speed(tr, self.focal_px, self.ball_radius_m)
-                if ws < self.min_ball_speed or ws > self.max_ball_speed:
-                    continue  # as big as it looks, a "ball" this slow (a person, a bag) or this fast is not one
+            # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
+            # big as it looks a speed no ball has (a walking person, a bag): not the ball
+            if not self._looks_like_ball(tr):
+                continue
             flights.append(tr)
         flights.sort(key=lambda x: x.points[0][1])
         out = []
