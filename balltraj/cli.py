@@ -265,6 +265,105 @@ def render(
     _echo(text)
 
 
+@app.command()
+def batch(
+    folder: Path = typer.Argument(..., help="Folder of clips."),
+    camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clips."),
+    ball: str = typer.Option(..., "--ball", help="Ball name."),
+    library: Path = typer.Option(..., "--library", help="Library file (SQLite; created if missing)."),
+    workers: int = typer.Option(1, "--workers", help="Local worker processes."),
+    cluster: Optional[str] = typer.Option(None, "--cluster", help="Dask scheduler address (tcp://host:8786)."),
+    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m]."),
+    start_near: Optional[str] = typer.Option(None, "--start-near", help="Rough start point X,Y,Z [m]."),
+    start_sigma: float = typer.Option(0.3, "--start-sigma", help="How rough --start-near is [m]."),
+    capture_fps: Optional[float] = typer.Option(None, "--capture-fps", help="True capture rate of time-stretched files."),
+    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
+    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
+    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa]."),
+    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
+    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude [m]."),
+    session: Optional[str] = typer.Option(None, "--session", help="Session name for these clips."),
+    athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name for these clips."),
+    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+):
+    """Analyse every clip in a folder into the flight library; resumable, never doubles a clip."""
+    try:
+        from .commands import run_batch_cmd
+
+        text = run_batch_cmd(folder=folder, camera=camera, ball=_ball(ball, ball_file),
+                             air=_air(air_density, temperature, pressure, humidity, altitude), library=library,
+                             workers=workers, cluster=cluster, target_x=target_x, start_near=start_near,
+                             start_sigma=start_sigma, capture_fps=capture_fps, session=session, athlete=athlete,
+                             show_progress=sys.stderr.isatty())
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+library_app = typer.Typer(help="The flight library: list, show, export and compare analysed clips.",
+                          no_args_is_help=True)
+app.add_typer(library_app, name="library")
+
+
+@library_app.command("list")
+def library_list(library: Path = typer.Argument(..., help="Library file.")):
+    """One line a clip: status, flights, session, athlete."""
+    try:
+        from .commands import run_library_list
+
+        text = run_library_list(library)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@library_app.command("show")
+def library_show(library: Path = typer.Argument(..., help="Library file."),
+                 clip: str = typer.Argument(..., help="Clip id, path or file name.")):
+    """The flights of one clip."""
+    try:
+        from .commands import run_library_show
+
+        text = run_library_show(library, clip)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@library_app.command("export")
+def library_export(
+    library: Path = typer.Argument(..., help="Library file."),
+    out: Path = typer.Option(..., "-o", "--out", help="CSV (or Parquet) file to write."),
+    per_flight: bool = typer.Option(False, "--per-flight", help="One row a flight instead of one a clip."),
+    fmt: str = typer.Option("csv", "--format", help="csv or parquet."),
+):
+    """Export the library: one row a clip with source, status and the headline results."""
+    try:
+        from .commands import run_library_export
+
+        text = run_library_export(library, out, per_flight, fmt)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
+@library_app.command("compare")
+def library_compare(
+    library: Path = typer.Argument(..., help="Library file."),
+    a: str = typer.Argument(..., help="First session or athlete."),
+    b: str = typer.Argument(..., help="Second session or athlete."),
+    by: str = typer.Option("session", "--by", help="session or athlete."),
+):
+    """Mean and spread of speed, transverse spin and deflection for two sessions or athletes."""
+    try:
+        from .commands import run_library_compare
+
+        text = run_library_compare(library, by, a, b)
+    except BallTrajError as e:
+        _fail(e)
+    _echo(text)
+
+
 calibrate_app = typer.Typer(help="Calibrate cameras: a printable board, the lens from board views, the scene "
                             "(camera pose) from field landmarks.", no_args_is_help=True)
 app.add_typer(calibrate_app, name="calibrate")

@@ -597,37 +597,23 @@ def analyze_clip(*, clip: Path, cams, ball, air, target_x, start_near, start_sig
     import shutil
     import tempfile
 
-    from .errors import BallTrajError
-    from .fitting.analysis import fit_record
-    from .fitting.flight_fit import FitOptions
-    from .fitting.image_fit import fit_flight_image
     from .formats import atomic_write_bytes, write_csv, write_json
-    from .physics.flight import FlightModel
+    from .library.batch import analyze_clip_records
     from .report.html import build_report
 
-    res = _track(clip, cams, ball, capture_fps, None, show_progress)
-    if not res.flights:
-        raise _no_ball(clip, res)
-    model = FlightModel.for_ball(ball, air)
-    opts = FitOptions(start_near=None if start_near is None else parse_vector(start_near, "--start-near"),
-                      start_sigma=start_sigma)
-    recs, lines, failures = [], [], []
-    for f in res.flights:
-        try:
-            fit = fit_flight_image(model, f.t, [cams[0].name] * len(f.t), f.uv, cams[:1], radius_px=f.radius_px,
-                                   options=opts)
-            rec, _ = fit_record(fit, ball, air, model, target_x=_target(target_x), source=f"{clip}#flight-{f.flight}")
-        except BallTrajError as e:
-            failures.append(f"flight {f.flight}: {e.one_line()}")
-            continue
-        rec["clip"] = {"path": str(clip), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
-                       "end_reason": f.end_reason}
+    sn = None if start_near is None else parse_vector(start_near, "--start-near")
+    if show_progress:
+        with _progress_bar(f"tracking {Path(clip).name}") as bar:
+            task = bar.add_task("t", total=None)
+            recs, res, failures = analyze_clip_records(
+                clip, cams, ball, air, target_x=_target(target_x), start_near=sn, start_sigma=start_sigma,
+                capture_fps=capture_fps, progress=lambda n, total: bar.update(task, completed=n, total=total or None))
+    else:
+        recs, res, failures = analyze_clip_records(clip, cams, ball, air, target_x=_target(target_x), start_near=sn,
+                                                   start_sigma=start_sigma, capture_fps=capture_fps)
+    lines = []
+    for rec in recs:
         _label(rec, labels)
-        rec["air_note"] = air.source
-        recs.append(rec)
-    if not recs:
-        raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip),
-                         hint="check the camera file, or give --start-near")
     out_dir = Path(out_dir)
     parent = out_dir.parent if str(out_dir.parent) else Path(".")
     if not parent.is_dir():
@@ -702,3 +688,125 @@ def run_render(*, flight: Path, camera: Path, out: Path, fps: float, duration: O
               ([r[k] for k in ("t", "flight", "u", "v", "radius_px", "x", "y", "z")] for r in truth),
               comment=f"synthetic clip rendered by balltraj from {flight}")
     return f"rendered {int(round(dur * fps))} frames ({cams[0].image_size[0]}x{cams[0].image_size[1]}, {fps:g} fps); wrote {out_p} and {tpath}"
+
+
+# ------------------------------------------------------------------------------ library
+def run_batch_cmd(*, folder: Path, camera: Path, ball, air, library: Path, workers: int, cluster: Optional[str],
+                  target_x, start_near, start_sigma, capture_fps, session, athlete, show_progress: bool) -> str:
+    from .formats import read_cameras
+    from .library.batch import BatchTask, find_clips, run_batch
+    from .library.store import file_hash, open_library, options_hash
+
+    if workers < 1 or workers > 64:
+        raise InputError(f"--workers must be 1..64, got {workers}")
+    clips = find_clips(folder)
+    cams = read_cameras(camera)
+    if len(cams) != 1:
+        raise InputError("batch takes one camera file (the camera that filmed the clips)", path=str(camera))
+    air_kw = {"density": air.density, "temperature_c": air.temperature_c}  # workers rebuild the same air
+    sn = None if start_near is None else parse_vector(start_near, "--start-near")
+    tx = _target(target_x)
+    options = {"ball": ball.name, "ball_properties": ball.to_dict(), "air_density": air.density,
+               "camera": cams[0].to_dict(), "target_x": tx, "start_near": sn, "start_sigma": start_sigma,
+               "capture_fps": capture_fps}
+    from . import __version__
+
+    opt_hash = options_hash({**options, "tool_version": __version__})
+    camera_hash = file_hash(camera)
+    lib = open_library(library)
+    try:
+        hashes = {str(c): file_hash(c) for c in clips}
+        tasks = [BatchTask(clip=str(c), camera_file=str(camera), ball=ball.to_dict(), air=air_kw, target_x=tx,
+                           start_near=sn, start_sigma=start_sigma, capture_fps=capture_fps) for c in clips]
+        if show_progress:
+            with _progress_bar("clips") as bar:
+                task = bar.add_task("c", total=len(tasks))
+                summ = run_batch(lib, tasks, hashes, opt_hash, options, camera_hash, workers=workers, cluster=cluster,
+                                 session=session, athlete=athlete,
+                                 progress=lambda n, total: bar.update(task, completed=n, total=total))
+        else:
+            summ = run_batch(lib, tasks, hashes, opt_hash, options, camera_hash, workers=workers, cluster=cluster,
+                             session=session, athlete=athlete)
+    finally:
+        lib.close()
+    lines = [f"{len(clips)} clips: {summ.done} analysed, {summ.failed} failed, {summ.skipped} already in the library"]
+    lines += [f"  failed: {m}" for m in summ.messages]
+    lines.append(f"library: {library}")
+    return "\n".join(lines)
+
+
+def run_library_list(library: Path) -> str:
+    from .library.store import open_library
+
+    with open_library(library, create=False) as lib:
+        rows = lib.clips()
+    if not rows:
+        return "the library is empty"
+    lines = [f"{'id':>4} {'status':<7} {'flights':>7} {'session':<20} {'athlete':<16} clip"]
+    for r in rows:
+        lines.append(f"{r['id']:>4} {r['status']:<7} {r['n_flights']:>7} {(r['session'] or '')[:20]:<20} "
+                     f"{(r['athlete'] or '')[:16]:<16} {r['path']}" + (f"  ({r['error']})" if r["error"] else ""))
+    return "\n".join(lines)
+
+
+def run_library_show(library: Path, clip: str) -> str:
+    from .library.store import open_library
+
+    with open_library(library, create=False) as lib:
+        rows = [r for r in lib.clips() if str(r["id"]) == clip or r["path"] == clip or Path(r["path"]).name == clip]
+        if not rows:
+            raise InputError(f"no clip {clip!r} in the library", path=str(library), hint="see balltraj library list")
+        out = []
+        for c in rows:
+            out.append(f"clip {c['id']}: {c['path']} ({c['status']}, {c['n_flights']} flights, balltraj "
+                       f"{c['tool_version']})" + (f": {c['error']}" if c["error"] else ""))
+            for f in lib.flights(c["id"]):
+                out.append(f"  flight {f['flight_index']}: {f['launch_speed_mps']:.2f} m/s, "
+                           f"{f['transverse_rate_rpm']:.0f} rpm transverse, moved {f['deflection_horizontal_m'] * 100:+.1f}"
+                           f" cm left / {f['deflection_vertical_m'] * 100:+.1f} cm up at x = {f['target_x_m']:.2f} m")
+    return "\n".join(out)
+
+
+def run_library_export(library: Path, out: Path, per_flight: bool, fmt: str) -> str:
+    from .formats import check_output_path, write_csv
+    from .library.store import export_rows, open_library
+
+    out_p = check_output_path(out, [library])
+    with open_library(library, create=False) as lib:
+        header, rows = export_rows(lib, per_flight=per_flight)
+        rows = list(rows)
+    if fmt == "parquet":
+        import io
+
+        import pandas as pd
+
+        from .formats import atomic_write_bytes
+
+        try:
+            buf = io.BytesIO()
+            pd.DataFrame(rows, columns=header).to_parquet(buf, index=False)
+        except ImportError:
+            raise InputError("Parquet export needs pyarrow", hint="pip install pyarrow, or export CSV") from None
+        atomic_write_bytes(out_p, buf.getvalue())
+    elif fmt == "csv":
+        write_csv(out_p, header, rows)
+    else:
+        raise InputError(f"--format must be csv or parquet, got {fmt!r}")
+    return f"wrote {len(rows)} rows to {out_p}"
+
+
+def run_library_compare(library: Path, by: str, a: str, b: str) -> str:
+    from .library.store import compare, open_library
+
+    if by not in ("session", "athlete"):
+        raise InputError(f"--by must be session or athlete, got {by!r}")
+    with open_library(library, create=False) as lib:
+        res = compare(lib, by, a, b)
+    lines = [f"{by:<10} {'flights':>7} {'speed m/s':>16} {'spin rpm':>14} {'left cm':>14} {'up cm':>14}"]
+    for d in res:
+        sp, sr, dh, dv = (d[k] for k in ("launch_speed_mps", "transverse_rate_rpm", "deflection_horizontal_m",
+                                         "deflection_vertical_m"))
+        lines.append(f"{d['name'][:10]:<10} {d['n']:>7} {sp[0]:>9.2f} ± {sp[1]:<4.2f} {sr[0]:>8.0f} ± {sr[1]:<3.0f} "
+                     f"{dh[0] * 100:>7.1f} ± {dh[1] * 100:<4.1f} {dv[0] * 100:>7.1f} ± {dv[1] * 100:<4.1f}")
+    lines.append("(mean ± standard deviation of the flights)")
+    return "\n".join(lines)

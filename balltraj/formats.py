@@ -81,6 +81,9 @@ def _clean(obj: Any) -> Any:
     return obj
 
 
+json_safe = _clean
+
+
 def write_json(path, obj: Mapping[str, Any]) -> None:
     """Write JSON atomically; NaN and infinities become null (never NaN in a flight file)."""
     text = json.dumps(_clean(obj), indent=2, allow_nan=False, ensure_ascii=False) + "\n"

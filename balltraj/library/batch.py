@@ -1,0 +1,188 @@
+"""Analysing clips: one clip to flight records (tracking + image-space fit), and batches of clips
+on local worker processes or a Dask cluster, recorded in the flight library.
+
+Workers only compute; the parent process writes each finished clip to the library in one
+transaction, so a killed batch loses at most the clips in flight, and a rerun does exactly those.
+"""
+
+from __future__ import annotations
+
+import time
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+from ..errors import BallTrajError, InputError
+
+CLIP_EXTENSIONS = {".mp4", ".mov", ".avi", ".mkv", ".m4v"}
+
+
+def analyze_clip_records(clip, cams, ball, air, *, target_x=None, start_near=None, start_sigma=0.3,
+                         capture_fps=None, progress=None):
+    """Track the ball in a clip and fit every flight in image space.
+
+    Returns (records, track_result, failures); raises InputError when no flight is found or none
+    could be fitted.
+    """
+    from ..fitting.analysis import fit_record
+    from ..fitting.flight_fit import FitOptions
+    from ..fitting.image_fit import fit_flight_image
+    from ..physics.flight import FlightModel
+    from ..vision.pipeline import NO_BALL_HINT, track_clip
+
+    cam = cams[0]
+    res = track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, progress=progress)
+    if not res.flights:
+        raise InputError(f"no ball flight was found in {res.n_frames} frames ({res.fps_measured:.0f} frames/s)",
+                         path=str(clip), hint=NO_BALL_HINT)
+    model = FlightModel.for_ball(ball, air)
+    opts = FitOptions(start_near=start_near, start_sigma=start_sigma)
+    recs, failures = [], []
+    for f in res.flights:
+        try:
+            fit = fit_flight_image(model, f.t, [cam.name] * len(f.t), f.uv, [cam], radius_px=f.radius_px, options=opts)
+            rec, _ = fit_record(fit, ball, air, model, target_x=target_x, source=f"{clip}#flight-{f.flight}")
+        except BallTrajError as e:
+            failures.append(f"flight {f.flight}: {e.one_line()}")
+            continue
+        rec["clip"] = {"path": str(clip), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
+                       "end_reason": f.end_reason}
+        rec["air_note"] = air.source
+        recs.append(rec)
+    if not recs:
+        raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip),
+                         hint="check the camera file, or give --start-near")
+    return recs, res, failures
+
+
+@dataclass(frozen=True)
+class BatchTask:
+    clip: str
+    camera_file: str
+    ball: dict  # Ball.to_dict() (workers rebuild it)
+    air: dict  # air_conditions keyword arguments
+    target_x: float | None = None
+    start_near: tuple | None = None
+    start_sigma: float = 0.3
+    capture_fps: float | None = None
+
+
+def run_task(task: BatchTask) -> dict:
+    """Worker entry point (module level, so processes and Dask can pickle it)."""
+    import os
+
+    os.environ.setdefault("OPENCV_LOG_LEVEL", "OFF")
+    os.environ.setdefault("OPENCV_FFMPEG_LOGLEVEL", "-8")
+    from ..formats import read_cameras
+    from ..physics.air import air_conditions
+    from ..physics.balls import Ball
+
+    t0 = time.time()
+    try:
+        b = dict(task.ball)
+        for k in ("mass_range_kg", "diameter_range_m", "lift_envelope"):
+            b[k] = tuple(b[k])
+        ball = Ball(**b)
+        cams = read_cameras(task.camera_file)
+        recs, _, failures = analyze_clip_records(task.clip, cams, ball, air_conditions(**task.air),
+                                                 target_x=task.target_x, start_near=task.start_near,
+                                                 start_sigma=task.start_sigma, capture_fps=task.capture_fps)
+        return {"clip": task.clip, "records": recs, "error": None, "warnings": failures, "started": t0}
+    except BallTrajError as e:
+        return {"clip": task.clip, "records": None, "error": e.one_line(), "warnings": [], "started": t0}
+    except Exception as e:  # noqa: BLE001 - one broken clip must not stop the batch
+        return {"clip": task.clip, "records": None, "error": f"internal error: {type(e).__name__}: {e}",
+                "warnings": [], "started": t0}
+
+
+def find_clips(folder) -> list[Path]:
+    p = Path(folder)
+    if not p.exists():
+        raise InputError("no such folder", path=str(folder))
+    if not p.is_dir():
+        raise InputError("this is a file, not a folder of clips", path=str(folder))
+    entries = list(p.iterdir())
+    if not entries:
+        raise InputError("the folder is empty", path=str(folder), hint="put the clips to analyse in it")
+    clips = sorted(e for e in entries if e.is_file() and e.suffix.lower() in CLIP_EXTENSIONS)
+    if not clips:
+        raise InputError("the folder holds no clips", path=str(folder),
+                         hint=f"clips end in {', '.join(sorted(CLIP_EXTENSIONS))}")
+    return clips
+
+
+@dataclass
+class BatchSummary:
+    done: int = 0
+    failed: int = 0
+    skipped: int = 0
+    messages: list = field(default_factory=list)
+
+
+def run_batch(lib, tasks: list[BatchTask], hashes: dict, opt_hash: str, options: dict, camera_hash: str, *,
+              workers: int = 1, cluster: str | None = None, session=None, athlete=None,
+              progress: Callable | None = None) -> BatchSummary:
+    """Run the tasks not yet in the library; record each as it finishes."""
+    summary = BatchSummary()
+    todo = []
+    for t in tasks:
+        if lib.is_done(hashes[t.clip], opt_hash):
+            summary.skipped += 1
+        else:
+            todo.append(t)
+    if progress:
+        progress(summary.skipped, len(tasks))
+
+    def store(out):
+        stored = lib.record(path=out["clip"], content_hash=hashes[out["clip"]], opt_hash=opt_hash, options=options,
+                            camera_hash=camera_hash, ball=options["ball"], records=out["records"],
+                            error=out["error"], session=session, athlete=athlete, started_at=out.get("started"))
+        if not stored:
+            summary.skipped += 1
+        elif out["records"]:
+            summary.done += 1
+        else:
+            summary.failed += 1
+            summary.messages.append(out["error"] if out["clip"] in (out["error"] or "") else f"{out['clip']}: {out['error']}")
+        if progress:
+            progress(summary.done + summary.failed + summary.skipped, len(tasks))
+
+    if not todo:
+        return summary
+    if cluster:
+        try:
+            from distributed import Client, as_completed
+        except ImportError:
+            raise InputError("--cluster needs Dask distributed", hint="pip install 'balltraj[cluster]'") from None
+        try:
+            client = Client(cluster, timeout=10)
+        except (OSError, TimeoutError) as e:
+            raise InputError(f"cannot reach the Dask scheduler at {cluster} ({e})",
+                             hint="check the address (tcp://host:8786) and that the scheduler runs") from None
+        try:
+            futures = client.map(run_task, todo, pure=False)
+            for fut in as_completed(futures):
+                store(fut.result())
+        finally:
+            client.close()
+    elif workers <= 1:
+        for t in todo:
+            store(run_task(t))
+    else:
+        with ProcessPoolExecutor(max_workers=workers) as pool:
+            pending = set()
+            it = iter(todo)
+            for t in it:  # keep at most 2 per worker queued so a kill loses little
+                pending.add(pool.submit(run_task, t))
+                if len(pending) >= 2 * workers:
+                    break
+            while pending:
+                finished, pending = wait(pending, return_when=FIRST_COMPLETED)
+                for f in finished:
+                    store(f.result())
+                for t in it:
+                    pending.add(pool.submit(run_task, t))
+                    if len(pending) >= 2 * workers:
+                        break
+    return summary
