@@ -196,6 +196,8 @@ def track(
     ball: str = typer.Option("baseball", "--ball", help="Ball name (its size gates detections)."),
     capture_fps: Optional[float] = typer.Option(None, "--capture-fps", help="True capture rate of a slow-motion file stored time-stretched."),
     overlay: Optional[Path] = typer.Option(None, "--overlay", help="Also write a video with detections and tracks drawn."),
+    start: float = typer.Option(0.0, "--start", help="Skip the clip before this time [s] (decoded in order, never seeked)."),
+    end: Optional[float] = typer.Option(None, "--end", help="Stop reading after this time [s]."),
     ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
     out: Path = typer.Option(..., "-o", "--out", help="Observations CSV to write."),
 ):
@@ -204,7 +206,7 @@ def track(
         from .commands import run_track
 
         text = run_track(clip=clip, camera=camera, ball=_ball(ball, ball_file), capture_fps=capture_fps, out=out,
-                         overlay=overlay, show_progress=sys.stderr.isatty())
+                         overlay=overlay, show_progress=sys.stderr.isatty(), start_s=start, end_s=end)
     except BallTrajError as e:
         _fail(e)
     _echo(text)
@@ -447,14 +449,36 @@ def triangulate(
 
 
 def main() -> None:
+    """Entry point: every way out is an exit status and at most one line on stderr."""
+    try:  # typer ships its own copy of click in recent versions
+        from typer import _click as click  # type: ignore[attr-defined]
+    except ImportError:  # pragma: no cover - older typer uses click itself
+        import click
+
+    exc = click.exceptions
+    abort = getattr(exc, "Abort", KeyboardInterrupt)
     try:
-        app()
+        rv = app(standalone_mode=False)
     except SystemExit:
         raise
+    except getattr(exc, "NoArgsIsHelpError", ()) as e:  # bare `balltraj` or a bare group: help was shown
+        sys.exit(0)
+    except exc.UsageError as e:
+        cmd = e.ctx.command_path if e.ctx is not None else "balltraj"
+        typer.echo(f"error: {' '.join(e.format_message().split())}; see '{cmd} --help'", err=True)
+        sys.exit(2)
+    except abort:
+        typer.echo("error: interrupted; no partial output was left", err=True)
+        sys.exit(130)
+    except getattr(exc, "Exit", typer.Exit) as e:
+        sys.exit(e.exit_code)
     except KeyboardInterrupt:
         typer.echo("error: interrupted; no partial output was left", err=True)
         sys.exit(130)
+    except BrokenPipeError:
+        sys.exit(0)
     except Exception as e:  # a bug: say so, briefly
-        typer.echo(f"error: internal error ({type(e).__name__}: {e}); this is a bug in balltraj, please "
-                   "report it with the command you ran", err=True)
+        typer.echo(f"error: internal error ({type(e).__name__}: {' '.join(str(e).split())}); this is a bug in "
+                   "balltraj, please report it with the command you ran", err=True)
         sys.exit(1)
+    sys.exit(rv if isinstance(rv, int) else 0)

@@ -536,17 +536,20 @@ def _progress_bar(label: str):
                     console=__import__("rich.console", fromlist=["Console"]).Console(stderr=True))
 
 
-def _track(clip, cams, ball, capture_fps, overlay, show_progress):
+def _track(clip, cams, ball, capture_fps, overlay, show_progress, start_s=0.0, end_s=None):
     from .vision.pipeline import track_clip
 
     cam = cams[0] if cams else None
+    if start_s < 0 or (end_s is not None and end_s <= start_s):
+        raise InputError("--start must be >= 0 and --end after --start")
+    kw = dict(capture_fps=capture_fps, overlay_path=overlay, start_s=start_s, end_s=end_s)
     if show_progress:
         with _progress_bar(f"tracking {Path(clip).name}") as bar:
             task = bar.add_task("t", total=None)
-            res = track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, overlay_path=overlay,
+            res = track_clip(clip, cam, ball.radius_m, **kw,
                              progress=lambda n, total: bar.update(task, completed=n, total=total or None))
     else:
-        res = track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, overlay_path=overlay)
+        res = track_clip(clip, cam, ball.radius_m, **kw)
     return res
 
 
@@ -565,7 +568,8 @@ def _obs_rows(res, camera_name):
 
 
 def run_track(*, clip: Path, camera: Optional[Path], ball, capture_fps: Optional[float], out: Path,
-              overlay: Optional[Path], show_progress: bool = False) -> str:
+              overlay: Optional[Path], show_progress: bool = False, start_s: float = 0.0,
+              end_s: Optional[float] = None) -> str:
     from .formats import check_output_path, read_cameras, write_csv
 
     out_p = check_output_path(out, [clip])
@@ -574,7 +578,7 @@ def run_track(*, clip: Path, camera: Optional[Path], ball, capture_fps: Optional
     if capture_fps is not None and not (1 <= capture_fps <= 10000):
         raise InputError(f"--capture-fps must be 1..10000, got {capture_fps}")
     cams = read_cameras(camera) if camera is not None else None
-    res = _track(clip, cams, ball, capture_fps, overlay, show_progress)
+    res = _track(clip, cams, ball, capture_fps, overlay, show_progress, start_s, end_s)
     if not res.flights:
         raise _no_ball(clip, res)
     name = cams[0].name if cams else "camera"

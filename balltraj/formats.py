@@ -26,6 +26,7 @@ MAX_INPUT_BYTES = 200 * 1024 * 1024
 _UMASK = os.umask(0o022)
 os.umask(_UMASK)
 MAX_ROWS = 2_000_000
+MAX_TRACK_POINTS = 20_000  # 10 s at 2000 Hz: more is not one flight
 ABSURD_COORDINATE_M = 10_000.0
 
 
@@ -262,6 +263,9 @@ def read_track_csv(path) -> Track:
     xyz = np.column_stack([numeric_column(table, c) for c in "xyz"])
     sigma = numeric_column(table, "sigma") if "sigma" in table.columns else None
     _check_times(t, table)
+    if len(t) > MAX_TRACK_POINTS:
+        raise InputError(f"{len(t)} points are more than one flight ({MAX_TRACK_POINTS} at most)", path=str(path),
+                         hint="split the track into one file per flight")
     if np.abs(xyz).max() > ABSURD_COORDINATE_M:
         k = int(np.argmax(np.abs(xyz).max(axis=1)))
         raise InputError(f"line {table.line_numbers[k]}: a coordinate of {np.abs(xyz[k]).max():g} m is absurd "

@@ -350,6 +350,9 @@ def _start(t, xyz, sigma, model: FlightModel, options: FitOptions):
         window = np.arange(n) < min(n, 6)
     ca = fit_constant_acceleration(t[window], xyz[window], sigma[window], t_ref=t[0])
     v0 = ca.velocity
+    if not np.all(np.isfinite(v0)) or np.linalg.norm(v0) < 0.5:
+        raise FitError(f"the tracked points barely move ({np.linalg.norm(v0):.2f} m/s at the start): not a flight",
+                       hint="check the time column (seconds) and that the track is of a moving ball")
     basis = _basis(v0)
     a_aero = ca.acceleration - np.array([0, 0, -model.gravity])
     speed = float(np.linalg.norm(v0))
@@ -393,6 +396,8 @@ def fit_flight(model: FlightModel, t, xyz, sigma=None, options: FitOptions = Fit
     given_sigma = sigma is not None
     sig = np.asarray(sigma, dtype=float) if given_sigma else np.ones(n)
     p0, basis, ca = _start(t, xyz, sig, model, options)
+    if not np.all(np.isfinite(p0)):
+        raise FitError("the track does not determine a start (are the positions all the same?)")
     if not given_sigma:
         # noise scale from the robust residuals of the start fit over its window (refined below)
         r = np.linalg.norm(ca.residuals[ca.inliers], axis=1)

@@ -71,8 +71,9 @@ def plane_deflection(model: FlightModel, t0: float, state0, params: FlightParame
                      *, ground_z: float | None = 0.0, max_step: float = 0.01) -> Deflection:
     """Deflection of one flight at the plane x = target_x (raises PhysicsError if not reached)."""
     s0 = np.asarray(state0, dtype=float).reshape(6)
-    if s0[3] <= 0:
-        raise PhysicsError("the ball does not move toward +x, so it never reaches a target plane",
+    if s0[3] <= 0.02 * np.linalg.norm(s0[3:]):
+        raise PhysicsError("the ball does not move toward +x (a vertical or backward launch), so it never reaches a "
+                           "target plane",
                            hint="check the launch azimuth, or set up the world frame with x toward the target")
     if target_x <= s0[0]:
         raise PhysicsError(f"the target plane x = {target_x:g} m is not ahead of the launch point "
