@@ -25,33 +25,28 @@ class _Track:
     confirmed: bool = False
     ended: str = ""
     bounce: bool = False
-
-    _cache_n: int = -1
-    _t: np.ndarray = None
-    _uv: np.ndarray = None
+    _ts: list = field(default_factory=list)
+    _uvs: list = field(default_factory=list)
+    _steps: list = field(default_factory=list)
     _speed: float = 0.0
 
-    def _refresh(self):
-        if self._cache_n != len(self.points):
-            self._t = np.array([p[1] for p in self.points])
-            self._uv = np.array([[p[2].u, p[2].v] for p in self.points])
-            if len(self.points) >= 2:
-                d = np.hypot(*np.diff(self._uv, axis=0).T) / np.maximum(np.diff(self._t), 1e-9)
-                self._speed = float(np.median(d))
-            else:
-                self._speed = 0.0
-            self._cache_n = len(self.points)
+    def add(self, k, t, c):
+        if self.points:
+            t0, (u0, v0) = self._ts[-1], self._uvs[-1]
+            self._steps.append(float(np.hypot(c.u - u0, c.v - v0)) / max(t - t0, 1e-9))
+            self._speed = float(np.median(self._steps))
+        self.points.append((k, t, c))
+        self._ts.append(t)
+        self._uvs.append((c.u, c.v))
 
     def times(self):
-        self._refresh()
-        return self._t
+        return np.asarray(self._ts)
 
     def uv(self):
-        self._refresh()
-        return self._uv
+        return np.asarray(self._uvs)
 
     def predict(self, t):
-        ts, uv = self.times()[-8:], self.uv()[-8:]
+        ts, uv = np.asarray(self._ts[-8:]), np.asarray(self._uvs[-8:])
         if len(ts) == 1:
             return uv[-1], 0.0
         deg = 2 if len(ts) >= 4 else 1
@@ -67,7 +62,6 @@ class _Track:
         return (coef[-1] + dt * coef[-2] + (dt * dt * coef[0] if deg == 2 else 0.0)), spread
 
     def speed_px_per_s(self):
-        self._refresh()
         return self._speed
 
 
@@ -180,7 +174,7 @@ class Tracker:
                 if tr.confirmed and self._is_bounce(tr, t, c):
                     tr.ended, tr.bounce = "bounce", True
                     continue
-                tr.points.append((k, t, c))
+                tr.add(k, t, c)
                 tr.misses = 0
                 free.remove(best)
                 if not tr.confirmed and len(tr.points) >= self.confirm:
@@ -208,7 +202,10 @@ class Tracker:
                     continue
                 sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
                 if self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2:
-                    self.active.append(_Track(points=[(k0, t0, c0), (k, t, c)]))
+                    tr = _Track()
+                    tr.add(k0, t0, c0)
+                    tr.add(k, t, c)
+                    self.active.append(tr)
                     seeded = True
                     break
             if not seeded:
@@ -232,7 +229,8 @@ class Tracker:
                 first = tr.points[0][2]
                 tol = 6.0 + 3.0 * first.radius_px + 3.0 * spread + 0.05 * prev.speed_px_per_s() * gap
                 if np.hypot(first.u - pred[0], first.v - pred[1]) <= tol:
-                    prev.points.extend(tr.points)
+                    for kk, tt, cc in tr.points:
+                        prev.add(kk, tt, cc)
                     prev.ended, prev.bounce = tr.ended, tr.bounce
                     joined = True
                     break
