@@ -292,7 +292,7 @@ class SolveResult:
 
 
 def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_points: int = 5,
-          sigma_floor: float = 0.0) -> SolveResult:
+          sigma_floor: float = 0.0, tight: bool = False) -> SolveResult:
     """Robust pass, outlier flags, final least-squares pass and scaled covariance."""
     n = len(prob.sigma)
     nfev = 0
@@ -316,8 +316,10 @@ def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_poi
         if n - outliers.sum() < min_points:
             outliers = np.zeros(n, bool)
         prob.mask = ~outliers
+    # image fits have long flat valleys (depth against lift): there the default tolerances stop early
+    tol = dict(ftol=1e-11, xtol=1e-10, gtol=1e-11) if tight else {}
     sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
-                        max_nfev=options.max_nfev, ftol=1e-12, xtol=1e-10, gtol=1e-12)
+                        max_nfev=options.max_nfev, **tol)
     nfev += sol.nfev
     p = sol.x
     J = prob.jacobian(p, central=True)

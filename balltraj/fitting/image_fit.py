@@ -198,7 +198,8 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
     if prob.use_radius:
         p0 = np.concatenate([p0, [0.0, 0.0]])
     prob.set_hint_span(float(np.linalg.norm(p0[3:6])))
-    res = solve(prob, p0, options, estimate_sigma=not given, min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR)
+    res = solve(prob, p0, options, estimate_sigma=not given, min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR,
+                tight=True)
     p = res.p
     tr = prob.trajectories(p[None])
     pos = prob.positions(tr, p[None])[0]

@@ -6,7 +6,6 @@ Run: python tests/benchmarks/bench_camera_accuracy.py
 Targets: side view deflection < 3 cm, two cameras < 1 cm.
 """
 import math
-import re
 import sys
 from pathlib import Path
 
@@ -14,6 +13,8 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "tests"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _docs import write_section  # noqa: E402
 from synth import make_track  # noqa: E402
 
 from balltraj.camera.model import look_at_camera  # noqa: E402
@@ -69,10 +70,7 @@ def main():
                      f"{np.median(e['defl']):.2f} ({np.percentile(e['defl'], 95):.2f}) | {np.median(e['sigma']):.2f} |")
     body = "\n".join(lines)
     print(body)
-    doc = ROOT / "docs" / "validation.md"
-    start, end = "<!-- camera-accuracy:start -->", "<!-- camera-accuracy:end -->"
-    doc.write_text(re.sub(re.escape(start) + ".*?" + re.escape(end), start + "\n" + body + "\n" + end,
-                          doc.read_text(), flags=re.S))
+    write_section("camera-accuracy", body)
 
 
 if __name__ == "__main__":

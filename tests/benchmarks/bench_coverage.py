@@ -4,7 +4,6 @@ fall within one sigma of the estimate. Writes the table into docs/validation.md.
 Run: python tests/benchmarks/bench_coverage.py
 """
 import math
-import re
 import sys
 from pathlib import Path
 
@@ -12,6 +11,8 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "tests"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _docs import write_section  # noqa: E402
 from synth import make_track  # noqa: E402
 
 from balltraj.fitting.analysis import fit_record  # noqa: E402
@@ -54,10 +55,7 @@ def main():
         lines.append(f"| {k} | {100 * np.mean(v):.1f} % |")
     body = "\n".join(lines)
     print(body)
-    doc = ROOT / "docs" / "validation.md"
-    start, end = "<!-- coverage:start -->", "<!-- coverage:end -->"
-    doc.write_text(re.sub(re.escape(start) + ".*?" + re.escape(end), start + "\n" + body + "\n" + end,
-                          doc.read_text(), flags=re.S))
+    write_section("coverage", body)
 
 
 if __name__ == "__main__":

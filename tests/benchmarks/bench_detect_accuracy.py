@@ -5,9 +5,9 @@ Writes the table into docs/validation.md.
 Run: python tests/benchmarks/bench_detect_accuracy.py
 """
 import math
-import re
 import tempfile
 from pathlib import Path
+import sys
 
 import numpy as np
 
@@ -19,6 +19,8 @@ from balltraj.vision.pipeline import track_clip
 from balltraj.vision.render import Scene, render_clip
 
 ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _docs import write_section  # noqa: E402
 
 
 def main():
@@ -53,10 +55,7 @@ def main():
         lines.append(f"| 1/{1 / e:.0f} s | {n:g} | {med:.3f} | {p95:.3f} | {100 * fnd:.0f} % |")
     body = "\n".join(lines)
     print(body)
-    doc = ROOT / "docs" / "validation.md"
-    start, end = "<!-- detect-accuracy:start -->", "<!-- detect-accuracy:end -->"
-    doc.write_text(re.sub(re.escape(start) + ".*?" + re.escape(end), start + "\n" + body + "\n" + end,
-                          doc.read_text(), flags=re.S))
+    write_section("detect-accuracy", body)
 
 
 if __name__ == "__main__":

@@ -9,7 +9,6 @@ Targets for 240 Hz, 5 mm pitches: launch speed < 0.2 %, deflection < 1 cm, spin 
 full fit beats the baseline on deflection and spin axis.
 """
 import math
-import re
 import sys
 from pathlib import Path
 
@@ -17,6 +16,8 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "tests"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _docs import write_section  # noqa: E402
 from synth import LAUNCHES, make_track  # noqa: E402
 
 from balltraj.fitting.analysis import fit_record  # noqa: E402
@@ -102,10 +103,7 @@ def main():
                     f"({np.nanpercentile(b, 95):.2f}) | {fa:.1f} ({ba:.1f}) |")
     body = "\n".join(text)
     print(body)
-    doc = ROOT / "docs" / "validation.md"
-    start, end = "<!-- fit-accuracy:start -->", "<!-- fit-accuracy:end -->"
-    old = doc.read_text()
-    new = re.sub(re.escape(start) + ".*?" + re.escape(end), start + "\n" + body + "\n" + end, old, flags=re.S)
+    write_section("fit-accuracy", body)
     doc.write_text(new)
 
 

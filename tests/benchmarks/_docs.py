@@ -1,0 +1,16 @@
+"""Writing a benchmark's table into docs/validation.md between its markers."""
+import re
+from pathlib import Path
+
+VALIDATION = Path(__file__).resolve().parents[2] / "docs" / "validation.md"
+
+
+def write_section(name: str, body: str) -> None:
+    """Replace the text between <!-- NAME:start --> and <!-- NAME:end --> with ``body``."""
+    start, end = f"<!-- {name}:start -->", f"<!-- {name}:end -->"
+    text = VALIDATION.read_text()
+    if start not in text:
+        raise SystemExit(f"docs/validation.md has no {start} marker")
+    new = re.sub(re.escape(start) + ".*?" + re.escape(end), lambda _: start + "\n" + body + "\n" + end, text,
+                 flags=re.S)
+    VALIDATION.write_text(new)
