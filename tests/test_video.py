@@ -158,3 +158,54 @@ def test_render_cli_round_trip(tmp_path):
     assert r.exit_code == 0, r.output
     truth = [l for l in (tmp_path / "r.truth.csv").read_text().splitlines() if not l.startswith("#")]
     assert truth[0] == "t,flight,u,v,radius_px,x,y,z" and len(truth) > 50
+
+
+def _make_vfr(src: Path, dst: Path):
+    """Rewrite the time-to-sample table of an mp4 so its first half runs at 2/3 and its second half
+    at 2x the original frame rate (same total duration): a variable-frame-rate file of our own."""
+    import struct
+
+    data = bytearray(src.read_bytes())
+    path = []
+
+    def walk(off, end):
+        while off < end:
+            size, typ = struct.unpack(">I4s", data[off:off + 8])
+            if typ in (b"moov", b"trak", b"mdia", b"minf", b"stbl"):
+                path.append(off)
+                found = walk(off + 8, off + size)
+                if found:
+                    return found
+                path.pop()
+            if typ == b"stts":
+                return off
+            off += size
+        return None
+
+    stts = walk(0, len(data))
+    mdhd = bytes(data).find(b"mdhd") - 4
+    timescale = struct.unpack(">I", data[mdhd + 20:mdhd + 24])[0]
+    _, _, n_entries, count, delta = struct.unpack(">IIIII", data[stts + 4:stts + 24])
+    assert n_entries == 1 and count % 2 == 0
+    half = count // 2
+    d1, d2 = delta * 3 // 2, delta // 2
+    new = struct.pack(">I4sIIIIII", 32, b"stts", 0, 2, half, d1, half, d2)
+    data[stts:stts + 24] = new
+    for off in path:  # the enclosing boxes grow by 8 bytes (moov is after mdat: no offsets move)
+        size = struct.unpack(">I", data[off:off + 4])[0]
+        data[off:off + 4] = struct.pack(">I", size + 8)
+    dst.write_bytes(bytes(data))
+    return half, d1, d2, timescale, delta
+
+
+def test_variable_frame_rate_timestamps(tmp_path):
+    src = ROOT / "sample_clips" / "pitch-side.mp4"
+    vfr = tmp_path / "vfr.mp4"
+    half, d1, d2, timescale, delta = _make_vfr(src, vfr)
+    times = np.array([t for _, t, _ in read_frames(vfr)])
+    k = np.arange(len(times))
+    expected = np.where(k < half, k * d1, half * d1 + (k - half) * d2) / timescale
+    assert len(times) == 2 * half
+    assert np.abs(times - expected).max() < 1e-4  # container timestamps, to 0.1 ms
+    nominal = k * delta / timescale
+    assert np.abs(nominal - expected).max() > 0.05  # index / fps would be off by far more
