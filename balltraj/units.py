@@ -80,12 +80,16 @@ SYSTEMS = ("metric", "imperial")
 
 
 def speed_text(v_mps: float, system: str = "metric", sigma: float | None = None) -> str:
+    if v_mps is None or not math.isfinite(v_mps):
+        return "—"
     if system == "imperial":
         return _pm(v_mps / MPH, sigma and sigma / MPH, "mph", 1)
     return _pm(v_mps * 3.6, sigma and sigma * 3.6, "km/h", 1) + f" ({v_mps:.2f} m/s)"
 
 
 def length_text(x_m: float, system: str = "metric", sigma: float | None = None, small: bool = True) -> str:
+    if x_m is None or not math.isfinite(x_m):
+        return "—"
     if system == "imperial":
         if small:
             return _pm(x_m / INCH, sigma and sigma / INCH, "in", 1)
@@ -96,10 +100,14 @@ def length_text(x_m: float, system: str = "metric", sigma: float | None = None, 
 
 
 def spin_text(w_rad_s: float, sigma: float | None = None) -> str:
+    if w_rad_s is None or not math.isfinite(w_rad_s):
+        return "—"
     return _pm(w_rad_s / RPM, sigma and sigma / RPM, "rpm", 0)
 
 
 def _pm(x, s, unit, digits):
+    if x is None or not math.isfinite(x):
+        return "—"
     if s is None or not math.isfinite(s) or s == 0:
         return f"{x:.{digits}f} {unit}"
     return f"{x:.{digits}f} ± {s:.{digits}f} {unit}"

@@ -141,3 +141,18 @@ def test_report_in_headless_browser(flight_file, tmp_path):
 
     img = mpimg.imread(shot)
     assert img.shape[0] > 1000 and img.std() > 0.05  # not blank
+
+
+def test_report_survives_missing_optional_values(flight_file, tmp_path):
+    # non-finite numbers are written as null; a report of such a file still renders
+    rec = json.loads(flight_file.read_text())
+    rec["baseline"]["spin_parameter"] = None
+    rec["baseline"]["transverse_rate_rpm"] = None
+    rec["baseline"]["deflection"] = None
+    rec["uncertainty"]["spin"]["transverse_rate_rpm"] = None
+    p = tmp_path / "nulls.json"
+    p.write_text(json.dumps(rec))
+    out = tmp_path / "r.html"
+    r = runner.invoke(app, ["report", str(p), "-o", str(out)])
+    assert r.exit_code == 0, r.output
+    assert "—" in out.read_text()

@@ -170,10 +170,11 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
                                        reject_outliers=False)
         baseline = baseline_summary(ca, model, target_x)
     else:
-        tp, xp = fit.extra["pseudo_track"]
-        ca = fit_constant_acceleration(tp, xp, t_ref=fit.t0)
+        from .image_fit import constant_acceleration_image_fit
+
+        ca = constant_acceleration_image_fit(fit, fit.extra["camera_objects"], model, fit.extra.get("radius_px"))
         baseline = baseline_summary(ca, model, target_x)
-        baseline["track"] = fit.extra["start_from"]
+        baseline["fitted_in"] = "image space (same observations, cameras, radius and hint as the full fit)"
         depth = fit.extra.get("launch_depth_sigma_m", {})
         if len(fit.extra["cameras"]) == 1:
             name = fit.extra["cameras"][0]
@@ -220,7 +221,8 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
                         "outlier": fit.outliers.tolist()} if not image else
                        {"t": fit.t.tolist(), "observed_px": fit.observed.tolist(), "residual": fit.residuals.tolist(),
                         "outlier": fit.outliers.tolist(), "fitted_m": fit.fitted_xyz.tolist()}),
-            "cameras": {k: v for k, v in fit.extra.items() if k != "pseudo_track"} if image else None,
+            "cameras": {k: v for k, v in fit.extra.items() if k not in ("camera_objects", "radius_px", "camera_index")}
+            if image else None,
         },
         "baseline": baseline,
         "warnings": warnings,

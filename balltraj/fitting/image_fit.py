@@ -208,7 +208,8 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
         m = cam_idx == c
         pred[m] = cam.project(pos[m])
     states, params = prob.unpack(p[None])
-    extra = {"cameras": [c.name for c in cams], "start_from": how, "pseudo_track": (tp, xyz_p)}
+    extra = {"cameras": [c.name for c in cams], "start_from": how, "camera_index": cam_idx.tolist(),
+             "camera_objects": cams, "radius_px": radius}
     if prob.fit_offsets:
         sig_p = np.sqrt(np.clip(np.diag(res.covariance), 0, None))
         extra["time_offsets_s"] = {c.name: float(c.time_offset_s + (p[prob.n_phys + k - 1] if k else 0.0))
@@ -230,3 +231,66 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
         residual_scale=math.sqrt(res.s2), nfev=res.nfev, options=options, undetermined=res.undetermined,
         fitted_xyz=pos, residual_unit="px", extra=extra,
     )
+
+
+def constant_acceleration_image_fit(fit: FlightFit, cameras: list[Camera], model: FlightModel, radius_px=None):
+    """The nine-parameter (constant-acceleration) baseline fitted in image space to the same
+    inlier observations: r(t) = r0 + v0 dt + a dt^2 / 2 projected through the cameras, with the
+    apparent radius and the start hint as in the full fit. Returns a ConstantAccelerationFit."""
+    from scipy.optimize import least_squares
+
+    from .baseline import ConstantAccelerationFit
+
+    names = fit.extra["cameras"]
+    cams = {c.name: c for c in cameras}
+    cam_list = [cams[n] for n in names]
+    offsets = fit.extra.get("time_offsets_s") or {n: cams[n].time_offset_s for n in names}
+    cam_of = np.asarray(fit.extra["camera_index"])
+    inl = ~fit.outliers
+    t = fit.t + np.array([offsets[names[i]] for i in cam_of])
+    t, uv, ci = t[inl], fit.observed[inl], cam_of[inl]
+    rad = None if radius_px is None else np.asarray(radius_px, float)[inl]
+    sig = float(np.median(fit.sigma))
+    t0 = fit.t0
+    opt = fit.options
+    hint = None if opt.start_near is None else np.asarray(opt.start_near, float)
+
+    def positions(p, tt):
+        dt = (tt - t0)[:, None]
+        return p[:3] + p[3:6] * dt + 0.5 * p[6:9] * dt * dt
+
+    def residuals(p):
+        pos = positions(p, t)
+        out = []
+        for c, cam in enumerate(cam_list):
+            m = ci == c
+            pred = cam.project(pos[m])
+            out.append(((np.nan_to_num(pred, nan=1e6) - uv[m]) / sig).ravel())
+            if rad is not None:
+                ok = np.isfinite(rad[m])
+                r_pred = cam.focal_px * model.radius_m / np.maximum(cam.depth(pos[m]), 1e-3)
+                s_r = np.maximum(RADIUS_SIGMA_PX, 0.08 * np.nan_to_num(rad[m]))
+                out.append(np.where(ok, (r_pred - np.nan_to_num(rad[m])) / s_r, 0.0))
+        if hint is not None:
+            # the constant-acceleration path passes the hint's plane x = X before the first observation
+            vx = p[3]
+            dt_h = (hint[0] - p[0]) / vx if abs(vx) > 1e-6 else 0.0
+            ph = p[:3] + p[3:6] * dt_h + 0.5 * p[6:9] * dt_h * dt_h
+            out.append((ph - hint) / opt.start_sigma)
+        return np.concatenate(out)
+
+    a0 = (fit.fitted_xyz[-1] - fit.fitted_xyz[0] - fit.state0[3:] * (fit.t[-1] - fit.t[0])) * 2 / max(
+        (fit.t[-1] - fit.t[0]) ** 2, 1e-6)
+    p0 = np.concatenate([fit.state0[:3], fit.state0[3:], a0])
+    sol = least_squares(residuals, p0, method="trf", x_scale="jac")
+    J = sol.jac
+    dof = max(1, J.shape[0] - 9)
+    s2 = float(sol.fun @ sol.fun / dof)
+    try:
+        cov = np.linalg.pinv(J.T @ J) * s2
+    except np.linalg.LinAlgError:
+        cov = np.full((9, 9), np.nan)
+    pos = positions(sol.x, t)
+    return ConstantAccelerationFit(t_ref=t0, position=sol.x[:3], velocity=sol.x[3:6], acceleration=sol.x[6:9],
+                                   covariance=cov, residuals=np.full_like(pos, np.nan), inliers=np.ones(len(t), bool),
+                                   t_span=(float(t.min()), float(t.max())))

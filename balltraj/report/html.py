@@ -28,11 +28,11 @@ CSS = """
 *{box-sizing:border-box}body{font:15px/1.45 system-ui,-apple-system,Segoe UI,Roboto,sans-serif;color:var(--ink);
 margin:0 auto;max-width:980px;padding:16px}h1{font-size:1.45em;margin:.2em 0}h2{font-size:1.15em;margin:1.4em 0 .5em;
 border-bottom:2px solid var(--line);padding-bottom:.2em}.sub{color:var(--muted)}
-.cards{display:grid;grid-template-columns:repeat(auto-fit,minmax(200px,1fr));gap:10px;margin:12px 0}
+.cards{display:grid;grid-template-columns:repeat(auto-fit,minmax(min(200px,100%),1fr));gap:10px;margin:12px 0}
 .card{background:var(--card);border:1px solid var(--line);border-radius:10px;padding:10px 12px}
 .card .k{font-size:.8em;color:var(--muted);text-transform:uppercase;letter-spacing:.04em}
 .card .v{font-size:1.3em;font-weight:650;color:var(--accent)}.card .n{font-size:.85em;color:var(--muted)}
-.plots{display:grid;grid-template-columns:repeat(auto-fit,minmax(420px,1fr));gap:10px}
+.plots{display:grid;grid-template-columns:repeat(auto-fit,minmax(min(420px,100%),1fr));gap:10px}
 .plots svg,.wide svg{width:100%;height:auto;max-width:760px}table{border-collapse:collapse;width:100%;font-size:.9em}
 td,th{border-bottom:1px solid var(--line);padding:4px 6px;text-align:left}th{background:var(--card)}
 .warn{border-left:4px solid var(--warn);background:#fffbeb;padding:6px 10px;margin:6px 0}
@@ -51,6 +51,19 @@ def _sig(rec, sec, key):
     return v if isinstance(v, (int, float)) and math.isfinite(v) else None
 
 
+def _num(x, spec: str, unit: str = "") -> str:
+    """A number or a dash when it is missing (null in the file, NaN in memory)."""
+    if not isinstance(x, (int, float)) or isinstance(x, bool) or not math.isfinite(x):
+        return "—"
+    return f"{x:{spec}}{unit}"
+
+
+def _deg(s):
+    if s is None:
+        return "—"
+    return f"{s:.2f}°" if s < 0.1 else f"{s:.1f}°"
+
+
 def _len(x, units, s=None):
     return length_text(x, units, s, small=abs(x) < 2.0)
 
@@ -62,7 +75,7 @@ def headline(rec: dict, units: str) -> list[tuple[str, str, str]]:
     cards = [
         ("Launch speed", speed_text(L["speed_mps"], units, _sig(rec, "launch", "speed_mps")), ""),
         ("Launch angles", f"{L['elevation_deg']:+.1f}° up, {L['azimuth_deg']:+.1f}° left",
-         f"± {_sig(rec, 'launch', 'elevation_deg') or 0:.1f}° / ± {_sig(rec, 'launch', 'azimuth_deg') or 0:.1f}°"),
+         f"± {_deg(_sig(rec, 'launch', 'elevation_deg'))} / ± {_deg(_sig(rec, 'launch', 'azimuth_deg'))}"),
         ("Transverse spin", spin_text(S["transverse_rate_rpm"] * RPM,
                                       (_sig(rec, "spin", "transverse_rate_rpm") or 0) * RPM or None),
          words + (f"; {gyro}" if gyro else "")),
@@ -137,11 +150,14 @@ def flight_section(rec: dict, units: str, title: str, what_if_options: dict) -> 
         bd = bl.get("deflection") or {}
         parts.append("<h2>Check: constant-acceleration estimate</h2><table><tr><th></th><th>full model</th>"
                      "<th>constant acceleration</th></tr>")
-        rows = [("launch speed", speed_text(rec["launch"]["speed_mps"], units), speed_text(bl["speed_mps"], units)),
-                ("transverse spin", f"{rec['spin']['transverse_rate_rpm']:.0f} rpm", f"{bl['transverse_rate_rpm']:.0f} rpm"),
-                ("drag / lift coefficient", f"{A['drag_coefficient']:.3f} / {A['lift_coefficient']:.3f}",
-                 f"{bl['drag_coefficient']:.3f} / {bl['lift_coefficient']:.3f}")]
-        if bd:
+        bspeed = bl.get("speed_mps")
+        rows = [("launch speed", speed_text(rec["launch"]["speed_mps"], units),
+                 speed_text(bspeed, units) if _num(bspeed, "g") != "—" else "—"),
+                ("transverse spin", _num(rec["spin"]["transverse_rate_rpm"], ".0f", " rpm"),
+                 _num(bl.get("transverse_rate_rpm"), ".0f", " rpm")),
+                ("drag / lift coefficient", f"{_num(A['drag_coefficient'], '.3f')} / {_num(A['lift_coefficient'], '.3f')}",
+                 f"{_num(bl.get('drag_coefficient'), '.3f')} / {_num(bl.get('lift_coefficient'), '.3f')}")]
+        if bd and _num(bd.get("horizontal_m"), "g") != "—":
             rows.append(("deflection (left, up)",
                          f"{_len(rec['deflection']['horizontal_m'], units)}, {_len(rec['deflection']['vertical_m'], units)}",
                          f"{_len(bd['horizontal_m'], units)}, {_len(bd['vertical_m'], units)}"))
