@@ -59,7 +59,7 @@ def flight_summary(rec: dict, units: str = "metric") -> str:
         f"S {A['spin_parameter']:.3f}, Re {A['reynolds_number']:.3g}",
         f"deflection at x = {D['target_x_m']:.2f} m from spin: "
         f"horizontal {_len(D['horizontal_m'], units, u('deflection', 'horizontal_m'))} (+ = left), "
-        f"vertical {_len(D['vertical_m'], units, u('deflection', 'vertical_m'))} (+ = up)",
+        f"up {_len(D['vertical_m'], units, u('deflection', 'vertical_m'))} (+ = up)",
     ]
     f = rec["fit"]
     if f["n_points"]:
@@ -248,7 +248,7 @@ def run_fit(*, inputs: Sequence[Path], ball, air, target_x, start_near, start_si
         rows.append(summary_row(str(path), rec))
         lines.append(f"{path}: {rec['launch']['speed_mps']:.2f} m/s, {rec['spin']['transverse_rate_rpm']:.0f} rpm "
                      f"transverse, deflection {rec['deflection']['horizontal_m'] * 100:+.1f} cm horizontal, "
-                     f"{rec['deflection']['vertical_m'] * 100:+.1f} cm vertical")
+                     f"{rec['deflection']['vertical_m'] * 100:+.1f} cm up")
     write_csv(out_dir / "summary.csv", SUMMARY_HEADER, rows)
     n_ok = sum(1 for r in rows if r[1] == "ok")
     lines.append(f"{n_ok} of {len(rows)} flights fitted; wrote {out_dir / 'summary.csv'}")
@@ -379,13 +379,12 @@ def _video_frames(path, every: int = 10, limit: int = 60):
     if not cap.isOpened():
         raise InputError("cannot open this video", path=str(path))
     out, k = [], 0
-    while len(out) < limit:
-        ok, frame = cap.read()
-        if not ok:
-            break
+    ok, frame = cap.read()
+    while ok and len(out) < limit:
         if k % every == 0:
             out.append((f"{Path(path).name}#{k}", cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY)))
         k += 1
+        ok, frame = cap.read()
     cap.release()
     if not out:
         raise InputError("the video holds no readable frames", path=str(path))

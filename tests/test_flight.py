@@ -180,7 +180,7 @@ def test_batched_equals_one_by_one():
 
 def test_deflection_of_section_8_3_pitch():
     # Source: REFERENCES.md 8.3 (Sawicki lift, C_D 0.35, K = 0.018062 1/m, 40 m/s, 2200 rpm backspin):
-    # vertical deflection vs the no-spin path 0.566 m at x = 16.8 m, flight time 0.4429 s
+    # upward deflection against the no-spin path 0.566 m at x = 16.8 m, flight time 0.4429 s
     m = FlightModel(mass_kg=0.145, diameter_m=0.07378, air_density=0.0, air_viscosity=1.8e-5,
                     drag_model="constant", drag_params={"value": 0.35}, lift_model="sawicki2003")
     rho = 0.018062 * 2 * 0.145 / (math.pi * 0.03689**2)

@@ -280,14 +280,7 @@ def calibrate_scene(world, pixels, names, lens: Camera | None, image_size, name:
         else:
             raise InputError("without a lens file the focal length is estimated from the landmarks: give at least "
                              "4 coplanar or 6 non-coplanar landmarks", hint="or give --lens LENS.json")
-    ok, rvec, tvec = False, None, None
-    for method in (cv2.SOLVEPNP_ITERATIVE, cv2.SOLVEPNP_SQPNP):
-        try:
-            ok, rvec, tvec = cv2.solvePnP(world, pix, K, dist, flags=method)
-        except cv2.error:
-            ok = False
-        if ok and np.all(np.isfinite(rvec)) and np.all(np.isfinite(tvec)):
-            break
+    ok, rvec, tvec = _solve_pnp(world, pix, K, dist)
     if not ok:
         raise InputError("the camera pose could not be found from these landmarks",
                          hint="check that each pixel matches its landmark name")
@@ -299,6 +292,18 @@ def calibrate_scene(world, pixels, names, lens: Camera | None, image_size, name:
         raise InputError("the fitted camera has landmarks behind it", hint="check the landmark order and pixels")
     return SceneCalibration(cam, dict(zip(names, map(float, err))), float(np.sqrt(np.mean(err**2))), frame,
                             focal_estimated)
+
+
+def _solve_pnp(world, pix, K, dist):
+    """First finite pose from ITERATIVE, then SQPnP (VISION-NOTES: no EPnP with 4 coplanar points)."""
+    for method in (cv2.SOLVEPNP_ITERATIVE, cv2.SOLVEPNP_SQPNP):
+        try:
+            ok, rvec, tvec = cv2.solvePnP(world, pix, K, dist, flags=method)
+        except cv2.error:
+            continue
+        if ok and np.all(np.isfinite(rvec)) and np.all(np.isfinite(tvec)):
+            return True, rvec, tvec
+    return False, None, None
 
 
 def describe_pose(cam: Camera) -> str:

@@ -209,7 +209,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "launch": {**launch_dict(t_launch, state_l),
                    "at": "the start hint's plane" if t_launch != fit.t0 else "the first used observation",
                    "first_observation_t_s": fit.t0},
-        "spin": spin, "aero": aero, "deflection": defl, "break": d.break_summary(),
+        "spin": spin, "aero": aero, "deflection": defl, "drop": d.drop_summary(),
         "uncertainty": unc,
         "fit": {
             "n_points": fit.n_points, "n_outliers": fit.n_outliers, "rms_residual": fit.rms_residual,
@@ -232,14 +232,14 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
 
 def _gravity_check(fit: FlightFit, model: FlightModel) -> str | None:
     """Gravity as a clock: a free constant-acceleration fit of a slow-motion file stored
-    time-stretched shows a far smaller vertical acceleration than g."""
+    time-stretched shows a far smaller downward acceleration than g."""
     inl = ~fit.outliers
     if inl.sum() < 8:
         return None
     ca = fit_constant_acceleration(fit.t[inl], fit.observed[inl], reject_outliers=False)
     az = -ca.acceleration[2]
     if az < 0.25 * model.gravity or az > 4 * model.gravity:
-        return (f"the track's vertical acceleration is {-ca.acceleration[2]:.2f} m/s^2, far from gravity: "
+        return (f"the track's downward acceleration is {-ca.acceleration[2]:.2f} m/s^2, far from gravity: "
                 "timestamps may be stretched (slow-motion export) or positions scaled wrongly")
     return None
 
@@ -252,7 +252,7 @@ def spin_axis_words(axis, velocity) -> dict:
     vhat = v / np.linalg.norm(v)
     left = np.cross([0.0, 0.0, 1.0], vhat)
     if np.linalg.norm(left) < 1e-9:
-        return {"backspin": None, "sidespin": None, "text": "vertical flight: no back/side split"}
+        return {"backspin": None, "sidespin": None, "text": "straight-up flight: no back/side split"}
     left /= np.linalg.norm(left)
     up = np.cross(vhat, left)
     back = -float(a @ left)  # backspin axis points to the right of the flight (-left)

@@ -57,18 +57,20 @@ def fit_constant_acceleration(t, xyz, sigma=None, t_ref=None, reject_outliers: b
     dt = t - tr
     A = np.column_stack([np.ones(n), dt, 0.5 * dt**2])
     keep = np.ones(n, bool)
-    for _ in range(3 if reject_outliers else 1):
+    rounds = 3 if reject_outliers else 1
+    while rounds > 0:
+        rounds -= 1
         Aw = A[keep] * w[keep, None]
         coef, *_ = np.linalg.lstsq(Aw, X[keep] * w[keep, None], rcond=None)
         res = X - A @ coef
-        if not reject_outliers:
-            break
-        d = np.linalg.norm(res * w[:, None], axis=1)
-        scale = 1.4826 * np.median(np.abs(res[keep] * w[keep, None])) + 1e-12
-        new = d / scale <= threshold
-        if new.sum() < 4 or np.array_equal(new, keep):
-            break
-        keep = new
+        if rounds > 0:
+            d = np.linalg.norm(res * w[:, None], axis=1)
+            scale = 1.4826 * np.median(np.abs(res[keep] * w[keep, None])) + 1e-12
+            new = d / scale <= threshold
+            if new.sum() < 4 or np.array_equal(new, keep):
+                rounds = 0  # settled
+            else:
+                keep = new
     Aw = A[keep] * w[keep, None]
     dof = max(1, 3 * keep.sum() - 9)
     s2 = float(np.sum((res[keep] * w[keep, None]) ** 2) / dof)

@@ -110,7 +110,7 @@ def typical_scales(options: FitOptions) -> np.ndarray:
 def _basis(v) -> np.ndarray:
     vhat = np.asarray(v, dtype=float) / np.linalg.norm(v)
     e1 = np.cross([0.0, 0.0, 1.0], vhat)
-    if np.linalg.norm(e1) < 1e-6:  # vertical flight: pick x as reference
+    if np.linalg.norm(e1) < 1e-6:  # straight-up flight: pick x as reference
         e1 = np.cross([1.0, 0.0, 0.0], vhat)
     e1 /= np.linalg.norm(e1)
     e2 = np.cross(vhat, e1)
@@ -136,10 +136,10 @@ def transverse_basis(v) -> tuple[np.ndarray, np.ndarray]:
     vhat = v / np.linalg.norm(v, axis=1, keepdims=True)
     e1 = np.stack([-vhat[:, 1], vhat[:, 0], np.zeros(len(v))], axis=1)
     n1 = np.linalg.norm(e1, axis=1)
-    vertical = n1 < 1e-6
-    if vertical.any():
-        e1[vertical] = np.cross(np.array([1.0, 0.0, 0.0]), vhat[vertical])
-        n1[vertical] = np.linalg.norm(e1[vertical], axis=1)
+    straight_up = n1 < 1e-6
+    if straight_up.any():
+        e1[straight_up] = np.cross(np.array([1.0, 0.0, 0.0]), vhat[straight_up])
+        n1[straight_up] = np.linalg.norm(e1[straight_up], axis=1)
     e1 /= n1[:, None]
     e2 = np.cross(vhat, e1)
     return e1, e2

@@ -171,18 +171,17 @@ def run_batch(lib, tasks: list[BatchTask], hashes: dict, opt_hash: str, options:
             store(run_task(t))
     else:
         with ProcessPoolExecutor(max_workers=workers) as pool:
+            queue = list(reversed(todo))
             pending = set()
-            it = iter(todo)
-            for t in it:  # keep at most 2 per worker queued so a kill loses little
-                pending.add(pool.submit(run_task, t))
-                if len(pending) >= 2 * workers:
-                    break
+
+            def top_up():  # keep at most 2 per worker queued so a kill loses little
+                while queue and len(pending) < 2 * workers:
+                    pending.add(pool.submit(run_task, queue.pop()))
+
+            top_up()
             while pending:
                 finished, pending = wait(pending, return_when=FIRST_COMPLETED)
                 for f in finished:
                     store(f.result())
-                for t in it:
-                    pending.add(pool.submit(run_task, t))
-                    if len(pending) >= 2 * workers:
-                        break
+                top_up()
     return summary

@@ -65,10 +65,7 @@ MIGRATIONS = {
 def file_hash(path, chunk: int = 1 << 20) -> str:
     h = hashlib.sha256()
     with open(path, "rb") as f:
-        while True:
-            b = f.read(chunk)
-            if not b:
-                break
+        for b in iter(lambda: f.read(chunk), b""):
             h.update(b)
     return h.hexdigest()
 

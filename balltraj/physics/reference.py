@@ -29,7 +29,7 @@ class Deflection:
     spin_path: Trajectory
     reference_path: Trajectory
 
-    def break_summary(self) -> dict:
+    def drop_summary(self) -> dict:
         """How much of the drop and the sideways move at the plane came from spin."""
         z_line, y_line = self.straight_line_m[2], self.straight_line_m[1]
         total_drop = z_line - self.crossing_m[2]
@@ -72,7 +72,7 @@ def plane_deflection(model: FlightModel, t0: float, state0, params: FlightParame
     """Deflection of one flight at the plane x = target_x (raises PhysicsError if not reached)."""
     s0 = np.asarray(state0, dtype=float).reshape(6)
     if s0[3] <= 0.02 * np.linalg.norm(s0[3:]):
-        raise PhysicsError("the ball does not move toward +x (a vertical or backward launch), so it never reaches a "
+        raise PhysicsError("the ball does not move toward +x (a straight-up or backward launch), so it never reaches a "
                            "target plane",
                            hint="check the launch azimuth, or set up the world frame with x toward the target")
     if target_x <= s0[0]:
@@ -106,7 +106,7 @@ def plane_deflection(model: FlightModel, t0: float, state0, params: FlightParame
 
 def batch_deflections(model: FlightModel, t0: float, states0, params: FlightParameters, target_x: float,
                       *, max_step: float = 0.01) -> np.ndarray:
-    """(N, 2) horizontal and vertical deflections at x = target_x for a batch (NaN if not reached)."""
+    """(N, 2) sideways and up-down deflections at x = target_x for a batch (NaN if not reached)."""
     sp, rf = spin_and_reference(model, t0, states0, params, target_x=target_x, max_step=max_step)
     _, sc = sp.first_crossing(0, target_x, +1)
     _, srf = rf.first_crossing(0, target_x, +1)

@@ -121,7 +121,7 @@ def flight_section(rec: dict, units: str, title: str, what_if_options: dict) -> 
         parts.append(f'<div class="warn">⚠ {esc(w)}</div>')
     parts.append("<h2>The path, and the path without spin</h2>")
     parts.append('<div class="plots">' + "".join(f"<div>{v}</div>" for v in views) + "</div>")
-    B = rec.get("break") or {}
+    B = rec.get("drop") or {}
     if B:
         parts.append(
             f"<p>At the target plane the ball had dropped {esc(_len(B['total_drop_m'], units))} below the line it was "

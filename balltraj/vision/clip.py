@@ -81,16 +81,15 @@ def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, captu
         k = 0
         t_first = None
         try:
-            while not stop.is_set():
-                ok, frame = cap.read()
-                if not ok:
-                    break
+            ok, frame = cap.read()
+            while ok and not stop.is_set():
                 ms = cap.get(cv2.CAP_PROP_POS_MSEC)
                 if t_first is None:
                     t_first = ms
                 t = k / capture_fps if capture_fps else (ms - t_first) / 1000.0
                 q.put((k, t, frame))
                 k += 1
+                ok, frame = cap.read()
         finally:
             q.put(None)
 
@@ -98,17 +97,13 @@ def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, captu
     th.start()
     n = 0
     try:
-        while True:
-            item = q.get()
-            if item is None:
-                break
+        item = q.get()
+        while item is not None and (end_s is None or item[1] <= end_s):
             k, t, frame = item
-            if end_s is not None and t > end_s:
-                break
-            if t < start_s:
-                continue
-            n += 1
-            yield k, t, frame
+            if t >= start_s:
+                n += 1
+                yield k, t, frame
+            item = q.get()
     finally:
         stop.set()
         while th.is_alive():
@@ -129,10 +124,9 @@ def decode_only(path) -> tuple[int, float]:
     cap, _ = open_clip(path)
     t0 = time.perf_counter()
     n = 0
-    while True:
-        ok, _ = cap.read()
-        if not ok:
-            break
+    ok, _ = cap.read()
+    while ok:
         n += 1
+        ok, _ = cap.read()
     cap.release()
     return n, time.perf_counter() - t0

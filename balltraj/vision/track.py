@@ -4,7 +4,7 @@ Each track predicts its next image position from a constant-acceleration fit (in
 time) to its last points; once locked on, only candidates in a small window around the prediction
 are considered. New tracks start from pairs of unclaimed candidates in consecutive frames that
 move fast enough to be a thrown ball. A track survives a few missed frames (occlusion, a blurred
-frame), ends when the ball leaves the frame, stops or bounces (a sudden reversal of its vertical
+frame), ends when the ball leaves the frame, stops or bounces (a sudden reversal of its up-down
 image motion; the bounce is flagged), and is kept as a flight when it has enough points and moved
 far enough. Slow movers (people, flags) fail the speed test.
 """
@@ -195,22 +195,36 @@ class Tracker:
         new_pool = []
         for i in free:
             c = cands[i]
-            seeded = False
-            for (k0, t0, c0) in self.pool:
-                dt = t - t0
-                if dt <= 0 or k - k0 > 2:
-                    continue
-                sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
-                if self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2:
-                    tr = _Track()
-                    tr.add(k0, t0, c0)
-                    tr.add(k, t, c)
-                    self.active.append(tr)
-                    seeded = True
-                    break
-            if not seeded:
+            partner = next((p for p in self.pool if self._seeds(p, k, t, c)), None)
+            if partner is not None:
+                tr = _Track()
+                tr.add(*partner)
+                tr.add(k, t, c)
+                self.active.append(tr)
+            else:
                 new_pool.append((k, t, c))
         self.pool = [p for p in self.pool if k - p[0] < 2] + new_pool
+
+    def _seeds(self, p, k, t, c) -> bool:
+        """Does pool entry p = (k0, t0, c0) and candidate c start a plausible flight?"""
+        k0, t0, c0 = p
+        dt = t - t0
+        if dt <= 0 or k - k0 > 2:
+            return False
+        sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
+        return self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2
+
+    def _continues(self, prev: _Track, tr: _Track) -> bool:
+        """Does fragment tr continue prev (which was lost, or ended on a suspected bounce)?"""
+        if prev.ended not in ("lost", "clip ended", "bounce"):
+            return False
+        gap = tr.points[0][1] - prev.points[-1][1]
+        if not (0 < gap <= 0.15):
+            return False
+        pred, spread = prev.predict(tr.points[0][1])
+        first = tr.points[0][2]
+        tol = 6.0 + 3.0 * first.radius_px + 3.0 * spread + 0.05 * prev.speed_px_per_s() * gap
+        return bool(np.hypot(first.u - pred[0], first.v - pred[1]) <= tol)
 
     def _merge(self, tracks: list[_Track]) -> list[_Track]:
         """Join fragments of one flight split by an occlusion: B starts soon after A was lost and
@@ -218,24 +232,13 @@ class Tracker:
         tracks = sorted(tracks, key=lambda x: x.points[0][1])
         out: list[_Track] = []
         for tr in tracks:
-            joined = False
-            for prev in out:
-                if prev.ended not in ("lost", "clip ended", "bounce"):
-                    continue  # a suspected bounce that the next fragment continues was not one
-                gap = tr.points[0][1] - prev.points[-1][1]
-                if not (0 < gap <= 0.15):
-                    continue
-                pred, spread = prev.predict(tr.points[0][1])
-                first = tr.points[0][2]
-                tol = 6.0 + 3.0 * first.radius_px + 3.0 * spread + 0.05 * prev.speed_px_per_s() * gap
-                if np.hypot(first.u - pred[0], first.v - pred[1]) <= tol:
-                    for kk, tt, cc in tr.points:
-                        prev.add(kk, tt, cc)
-                    prev.ended, prev.bounce = tr.ended, tr.bounce
-                    joined = True
-                    break
-            if not joined:
+            prev = next((p for p in out if self._continues(p, tr)), None)
+            if prev is None:
                 out.append(tr)
+                continue
+            for kk, tt, cc in tr.points:
+                prev.add(kk, tt, cc)
+            prev.ended, prev.bounce = tr.ended, tr.bounce
         return out
 
     def _looks_like_ball(self, tr: _Track) -> bool:

@@ -26,7 +26,7 @@ N = 200
 
 def main():
     hits = {k: [] for k in ("speed", "elevation", "azimuth", "transverse rate", "deflection horizontal",
-                            "deflection vertical")}
+                            "deflection up")}
     for case, (ball, noise, rate) in enumerate([("baseball", 0.005, 240), ("soccer", 0.015, 120)]):
         for s in range(N // 2):
             t, xyz, tr = make_track(ball, rate_hz=rate, noise_m=noise, seed=5000 + 1000 * case + s)
@@ -45,7 +45,7 @@ def main():
                                            <= U["spin"]["transverse_rate_rpm"])
             hits["deflection horizontal"].append(abs(rec["deflection"]["horizontal_m"] - truth.horizontal_m)
                                                  <= U["deflection"]["horizontal_m"])
-            hits["deflection vertical"].append(abs(rec["deflection"]["vertical_m"] - truth.vertical_m)
+            hits["deflection up"].append(abs(rec["deflection"]["vertical_m"] - truth.vertical_m)
                                                <= U["deflection"]["vertical_m"])
     lines = [f"Monte-Carlo coverage of the one-sigma intervals ({N} seeded flights: {N // 2} pitches at 240 Hz "
              f"with 5 mm noise, {N // 2} free kicks at 120 Hz with 15 mm noise; ideal 68.3 %; the binomial "
