@@ -115,7 +115,7 @@ def test_spin_along_the_flight_makes_no_deflection(tmp_path):
     d = json.loads(out.read_text())
     assert d["spin"]["transverse_rate_rpm"] < 1e-6 and d["aero"]["lift_coefficient"] < 1e-12
     # only as gravity turns the path does part of the gyro spin become transverse: a small sideways
-    # break (about 2 cm here), against about 60 cm of lift from the same spin as backspin
+    # movement (about 2 cm here), against about 60 cm of lift from the same spin as backspin
     assert abs(d["deflection"]["horizontal_m"]) < 0.05 and abs(d["deflection"]["vertical_m"]) < 0.005
 
 

@@ -29,7 +29,8 @@ def mutate(s: str, data) -> str:
     chars = list(s)
     for _ in range(data.draw(st.integers(1, 8))):
         if not chars:
-            break
+            chars = list(data.draw(st.sampled_from(["", ",", "t,x\n"])))
+            continue
         i = data.draw(st.integers(0, len(chars) - 1))
         op = data.draw(st.sampled_from(["del", "dup", "rep", "ins", "line"]))
         if op == "del":

@@ -53,9 +53,7 @@ def test_kill_and_resume_every_clip_exactly_once(tmp_path):
     lib = tmp_path / "lib.db"
     p = subprocess.Popen(batch_args(folder, lib), stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     t0 = time.time()
-    while time.time() - t0 < 120:
-        if lib.exists() and counts(lib)[0][0] >= 2:
-            break
+    while time.time() - t0 < 120 and not (lib.exists() and counts(lib)[0][0] >= 2):
         time.sleep(0.1)
     p.send_signal(signal.SIGKILL)
     p.wait()

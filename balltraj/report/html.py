@@ -37,7 +37,7 @@ border-bottom:2px solid var(--line);padding-bottom:.2em}.sub{color:var(--muted)}
 td,th{border-bottom:1px solid var(--line);padding:4px 6px;text-align:left}th{background:var(--card)}
 .warn{border-left:4px solid var(--warn);background:#fffbeb;padding:6px 10px;margin:6px 0}
 .caution{border-left:4px solid #475569;background:#f1f5f9;padding:8px 12px;font-size:.9em}
-.flight{page-break-after:always}footer{color:var(--muted);font-size:.8em;margin-top:2em}
+.flight{break-after:page}footer{color:var(--muted);font-size:.8em;margin-top:2em}
 @media print{body{max-width:none}.plots{grid-template-columns:1fr 1fr}}
 """
 
