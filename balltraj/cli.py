@@ -13,13 +13,14 @@ from pathlib import Path
 # quiet OpenCV's and FFmpeg's own console chatter (errors reach the user as one balltraj line)
 os.environ.setdefault("OPENCV_LOG_LEVEL", "OFF")
 os.environ.setdefault("OPENCV_FFMPEG_LOGLEVEL", "-8")
-from typing import List, Optional
+from typing import Annotated, List, Optional
 
 import typer
 
 from .errors import BallTrajError, InputError
 
 app = typer.Typer(
+    rich_markup_mode=None,
     add_completion=False,
     no_args_is_help=True,
     pretty_exceptions_enable=False,
@@ -67,7 +68,17 @@ def _air(air_density, temperature, pressure, humidity, altitude):
     return air_conditions(density=rho, temperature_c=t, pressure_pa=p, humidity_pct=h, altitude_m=alt)
 
 
-AIR_HELP = "Air density [kg/m^3]; or give --temperature/--pressure/--humidity/--altitude."
+# options shared by several commands, declared once
+AirDensityOpt = Annotated[Optional[str], typer.Option("--air-density", help="Air density [kg/m^3]; or give "
+                                                       "--temperature/--pressure/--humidity/--altitude.")]
+TemperatureOpt = Annotated[Optional[str], typer.Option("--temperature", help="Air temperature [deg C].")]
+PressureOpt = Annotated[Optional[str], typer.Option("--pressure", help="Station pressure [hPa] (or 101325pa).")]
+HumidityOpt = Annotated[Optional[str], typer.Option("--humidity", help="Relative humidity [%].")]
+AltitudeOpt = Annotated[Optional[str], typer.Option("--altitude", help="Altitude above sea level [m] (or 5280ft).")]
+BallFileOpt = Annotated[Optional[Path], typer.Option("--ball-file", help="JSON file defining an extra ball.")]
+StartNearOpt = Annotated[Optional[str], typer.Option("--start-near", help="Rough start point X,Y,Z [m] (release point, ball spot).")]
+StartSigmaOpt = Annotated[float, typer.Option("--start-sigma", help="How rough --start-near is [m].")]
+CaptureFpsOpt = Annotated[Optional[float], typer.Option("--capture-fps", help="True capture rate of a slow-motion file stored time-stretched.")]
 
 
 @app.command()
@@ -84,13 +95,13 @@ def simulate(
     lift_model: Optional[str] = typer.Option(None, "--lift-model", help="Lift model name (see `balltraj balls --models`)."),
     lift_coefficient: Optional[float] = typer.Option(None, "--lift-coefficient", help="Constant C_L instead of a model."),
     spin_decay: Optional[float] = typer.Option(None, "--spin-decay", help="Spin decay time constant [s]."),
-    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
-    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
-    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa] (or 101325pa)."),
-    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
-    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude above sea level [m] (or 5280ft)."),
+    air_density: AirDensityOpt = None,
+    temperature: TemperatureOpt = None,
+    pressure: PressureOpt = None,
+    humidity: HumidityOpt = None,
+    altitude: AltitudeOpt = None,
     target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: landing point)."),
-    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    ball_file: BallFileOpt = None,
     path_csv: Optional[Path] = typer.Option(None, "--path-csv", help="Also write the sampled path (t,x,y,z,vx,vy,vz)."),
     out: Path = typer.Option(..., "-o", "--out", help="Flight file to write (JSON)."),
 ):
@@ -117,16 +128,16 @@ def fit(
     target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: last tracked x)."),
     camera: Optional[Path] = typer.Option(None, "--camera", help="Camera or rig file: fit pixel observations (t,camera,u,v) in image space."),
     flight: Optional[int] = typer.Option(None, "--flight", help="Which flight of an observations file with a flight column."),
-    start_near: Optional[str] = typer.Option(None, "--start-near", help="Rough start point X,Y,Z [m]."),
-    start_sigma: float = typer.Option(0.3, "--start-sigma", help="How rough --start-near is [m]."),
+    start_near: StartNearOpt = None,
+    start_sigma: StartSigmaOpt = 0.3,
     fit_drag: bool = typer.Option(False, "--fit-drag", help="Also fit a scale on the drag model."),
     free_lift: bool = typer.Option(False, "--free-lift", help="Fit a free constant lift coefficient instead of the ball's lift model."),
-    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
-    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
-    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa]."),
-    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
-    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude [m]."),
-    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    air_density: AirDensityOpt = None,
+    temperature: TemperatureOpt = None,
+    pressure: PressureOpt = None,
+    humidity: HumidityOpt = None,
+    altitude: AltitudeOpt = None,
+    ball_file: BallFileOpt = None,
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name, kept in the flight file."),
     session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight file."),
     notes: Optional[str] = typer.Option(None, "--notes", help="Free text kept in the flight file."),
@@ -194,11 +205,11 @@ def track(
     clip: Path = typer.Argument(..., help="Video clip."),
     camera: Optional[Path] = typer.Option(None, "--camera", help="Camera file (gates the ball's size in pixels)."),
     ball: str = typer.Option("baseball", "--ball", help="Ball name (its size gates detections)."),
-    capture_fps: Optional[float] = typer.Option(None, "--capture-fps", help="True capture rate of a slow-motion file stored time-stretched."),
+    capture_fps: CaptureFpsOpt = None,
     overlay: Optional[Path] = typer.Option(None, "--overlay", help="Also write a video with detections and tracks drawn."),
     start: float = typer.Option(0.0, "--start", help="Skip the clip before this time [s] (decoded in order, never seeked)."),
     end: Optional[float] = typer.Option(None, "--end", help="Stop reading after this time [s]."),
-    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    ball_file: BallFileOpt = None,
     out: Path = typer.Option(..., "-o", "--out", help="Observations CSV to write."),
 ):
     """Find and track the ball in a clip; write timed pixel observations, one flight id per throw."""
@@ -218,17 +229,17 @@ def analyze(
     camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clip."),
     ball: str = typer.Option(..., "--ball", help="Ball name."),
     target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: last tracked x)."),
-    start_near: Optional[str] = typer.Option(None, "--start-near", help="Rough start point X,Y,Z [m]."),
-    start_sigma: float = typer.Option(0.3, "--start-sigma", help="How rough --start-near is [m]."),
-    capture_fps: Optional[float] = typer.Option(None, "--capture-fps", help="True capture rate of a time-stretched slow-motion file."),
-    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
-    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
-    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa]."),
-    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
-    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude [m]."),
+    start_near: StartNearOpt = None,
+    start_sigma: StartSigmaOpt = 0.3,
+    capture_fps: CaptureFpsOpt = None,
+    air_density: AirDensityOpt = None,
+    temperature: TemperatureOpt = None,
+    pressure: PressureOpt = None,
+    humidity: HumidityOpt = None,
+    altitude: AltitudeOpt = None,
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name, kept in the flight files."),
     session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight files."),
-    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    ball_file: BallFileOpt = None,
     out: Path = typer.Option(..., "--out", help="Folder for observations.csv, flight.json and report.html."),
 ):
     """The whole job on one clip: track, fit in image space, report."""
@@ -276,17 +287,17 @@ def batch(
     workers: int = typer.Option(1, "--workers", help="Local worker processes."),
     cluster: Optional[str] = typer.Option(None, "--cluster", help="Dask scheduler address (tcp://host:8786)."),
     target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m]."),
-    start_near: Optional[str] = typer.Option(None, "--start-near", help="Rough start point X,Y,Z [m]."),
-    start_sigma: float = typer.Option(0.3, "--start-sigma", help="How rough --start-near is [m]."),
-    capture_fps: Optional[float] = typer.Option(None, "--capture-fps", help="True capture rate of time-stretched files."),
-    air_density: Optional[str] = typer.Option(None, "--air-density", help=AIR_HELP),
-    temperature: Optional[str] = typer.Option(None, "--temperature", help="Air temperature [deg C]."),
-    pressure: Optional[str] = typer.Option(None, "--pressure", help="Station pressure [hPa]."),
-    humidity: Optional[str] = typer.Option(None, "--humidity", help="Relative humidity [%]."),
-    altitude: Optional[str] = typer.Option(None, "--altitude", help="Altitude [m]."),
+    start_near: StartNearOpt = None,
+    start_sigma: StartSigmaOpt = 0.3,
+    capture_fps: CaptureFpsOpt = None,
+    air_density: AirDensityOpt = None,
+    temperature: TemperatureOpt = None,
+    pressure: PressureOpt = None,
+    humidity: HumidityOpt = None,
+    altitude: AltitudeOpt = None,
     session: Optional[str] = typer.Option(None, "--session", help="Session name for these clips."),
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name for these clips."),
-    ball_file: Optional[Path] = typer.Option(None, "--ball-file", help="JSON file defining an extra ball."),
+    ball_file: BallFileOpt = None,
 ):
     """Analyse every clip in a folder into the flight library; resumable, never doubles a clip."""
     try:
@@ -302,7 +313,7 @@ def batch(
     _echo(text)
 
 
-library_app = typer.Typer(help="The flight library: list, show, export and compare analysed clips.",
+library_app = typer.Typer(rich_markup_mode=None, help="The flight library: list, show, export and compare analysed clips.",
                           no_args_is_help=True)
 app.add_typer(library_app, name="library")
 
@@ -366,7 +377,7 @@ def library_compare(
     _echo(text)
 
 
-calibrate_app = typer.Typer(help="Calibrate cameras: a printable board, the lens from board views, the scene "
+calibrate_app = typer.Typer(rich_markup_mode=None, help="Calibrate cameras: a printable board, the lens from board views, the scene "
                             "(camera pose) from field landmarks.", no_args_is_help=True)
 app.add_typer(calibrate_app, name="calibrate")
 
