@@ -66,9 +66,10 @@ def test_two_throws_tracked_in_time_order_with_subpixel_centroids(two_throws):
         err = np.hypot(f.uv[:, 0] - [r["u"] for r in rows], f.uv[:, 1] - [r["v"] for r in rows])
         assert np.median(err) <= 0.3
         assert {r["flight"] for r in rows} == {f.flight}
-        # most of the visible flight was tracked
+        # most of the visible flight was tracked (the second throw passes the walking figure, which
+        # hides it for about 20 frames)
         visible = sum(1 for r in truth if r["flight"] == f.flight)
-        assert len(f.t) >= 0.8 * visible
+        assert len(f.t) >= 0.75 * visible
 
 
 def test_track_cli_and_overlay(two_throws):

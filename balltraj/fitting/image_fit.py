@@ -17,7 +17,7 @@ import numpy as np
 
 from ..camera.model import Camera
 from ..camera.triangulate import triangulate_observations
-from ..errors import FitError
+from ..errors import BallTrajError, FitError
 from ..physics.flight import FlightModel
 from .flight_fit import FitOptions, FlightFit, _Problem, _start, solve
 
@@ -118,40 +118,49 @@ class _ImageProblem(_Problem):
         return np.linalg.norm(self.point_residuals(tr, p[None])[0, :, :2], axis=1)
 
 
-def _pseudo_points(t, cam_idx, uv, radius, cameras, model, hint):
-    """Rough 3D points for start values: triangulated (several cameras), or back-projected along
-    each ray to a depth from the apparent radius or from the start hint (one camera)."""
+def _pseudo_point_sets(t, cam_idx, uv, radius, cameras, model, hint):
+    """Candidate rough 3D tracks for start values, each (t, xyz, how): triangulated (several
+    cameras); or, with one camera, each ray taken to a depth from the apparent radius, to the plane
+    through the start hint that faces the camera, or to the hint's depth. The fit is run from each
+    and the best kept: small, noisy radii alone can start it in a wrong valley."""
     names = [cameras[i].name for i in cam_idx]
     if len(set(cam_idx)) >= 2:
         try:
             tt, xyz = triangulate_observations(t, names, uv, cameras)
             if len(tt) >= 6:
-                return tt, xyz, "triangulated"
-        except Exception:  # noqa: BLE001 - fall back to one camera
+                return [(tt, xyz, "triangulated")]
+        except BallTrajError:
             pass
     c0 = int(np.bincount(cam_idx).argmax())
     cam = cameras[c0]
     m = cam_idx == c0
+    tm = t[m] + cam.time_offset_s
     origin, rays = cam.rays(uv[m])
     axis = cam.R[2]
+    out = []
     if radius is not None and np.isfinite(radius[m]).sum() >= 0.5 * m.sum():
         r = radius[m]
         depth = cam.focal_px * model.radius_m / np.where(np.isfinite(r), r, np.nan)
         good = np.isfinite(depth)
         depth = np.interp(np.arange(len(depth)), np.nonzero(good)[0], depth[good])
-        # smooth the noisy depths with a quadratic in time
-        tm = t[m] + cam.time_offset_s
-        depth = np.polyval(np.polyfit(tm - tm[0], depth, 2), tm - tm[0])
-        how = "apparent radius"
-    elif hint is not None:
-        depth = np.full(m.sum(), float((np.asarray(hint) - origin) @ axis))
-        how = "start hint depth"
-    else:
+        depth = np.polyval(np.polyfit(tm - tm[0], depth, 2), tm - tm[0])  # smooth the noisy depths
+        depth = np.maximum(depth, 0.3)
+        out.append((tm, origin + rays * (depth / (rays @ axis))[:, None], "apparent radius"))
+    if hint is not None:
+        h = np.asarray(hint, float)
+        normal = np.array([axis[0], axis[1], 0.0])
+        if np.linalg.norm(normal) > 1e-6 and abs(normal[0]) / np.linalg.norm(normal) < 0.7:
+            normal /= np.linalg.norm(normal)  # a camera beside the flight: the upright plane through the hint
+            s_ = ((h - origin) @ normal) / np.where(np.abs(rays @ normal) > 1e-6, rays @ normal, np.nan)
+            if np.all(np.isfinite(s_)) and np.all(s_ > 0):
+                out.append((tm, origin + rays * s_[:, None], "plane through the start hint"))
+        if not out:
+            depth = np.full(m.sum(), max(float((h - origin) @ axis), 0.3))
+            out.append((tm, origin + rays * (depth / (rays @ axis))[:, None], "start hint depth"))
+    if not out:
         raise FitError("one camera cannot place the ball in depth without help",
                        hint="give --start-near X,Y,Z (where the flight starts) or observations with radius_px")
-    depth = np.maximum(depth, 0.3)
-    xyz = origin + rays * (depth / (rays @ axis))[:, None]
-    return t[m] + cam.time_offset_s, xyz, how
+    return out
 
 
 def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Camera], radius_px=None,
@@ -183,23 +192,32 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
             raise FitError(f"observations of camera {cam.name!r} lie far outside its {w}x{h} image",
                            hint="check that the camera file matches the clip (image size, orientation)")
     radius = None if radius_px is None else np.asarray(radius_px, float)
-    tp, xyz_p, how = _pseudo_points(t, cam_idx, uv, radius, cams, model, options.start_near)
-    sig0 = np.ones(len(tp))
-    p0, basis, _ = _start(tp, xyz_p, sig0, model, options)
     given = sigma_px is not None
-    sig = np.full(n, float(sigma_px) if given else 1.0)
-    prob = _ImageProblem(model, t, cam_idx, uv, radius, cams, sig, basis, options, fit_offsets)
-    # launch at the first rig time: move the start state there
-    dt0 = prob.t0 - tp[0]
-    p0[:3] = p0[:3] + p0[3:6] * dt0
-    prob._first_xyz = p0[:3]
-    if prob.fit_offsets:
-        p0 = np.concatenate([p0, np.zeros(len(cams) - 1)])
-    if prob.use_radius:
-        p0 = np.concatenate([p0, [0.0, 0.0]])
-    prob.set_hint_span(float(np.linalg.norm(p0[3:6])))
-    res = solve(prob, p0, options, estimate_sigma=not given, min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR,
-                tight=True)
+    best = None
+    for tp, xyz_p, how in _pseudo_point_sets(t, cam_idx, uv, radius, cams, model, options.start_near):
+        try:
+            p0, basis, _ = _start(tp, xyz_p, np.ones(len(tp)), model, options)
+        except FitError:
+            continue
+        sig = np.full(n, float(sigma_px) if given else 1.0)
+        prob = _ImageProblem(model, t, cam_idx, uv, radius, cams, sig, basis, options, fit_offsets)
+        # launch at the first rig time: move the start state there
+        dt0 = prob.t0 - tp[0]
+        p0[:3] = p0[:3] + p0[3:6] * dt0
+        prob._first_xyz = p0[:3]
+        if prob.fit_offsets:
+            p0 = np.concatenate([p0, np.zeros(len(cams) - 1)])
+        if prob.use_radius:
+            p0 = np.concatenate([p0, [0.0, 0.0]])
+        prob.set_hint_span(float(np.linalg.norm(p0[3:6])))
+        res = solve(prob, p0, options, estimate_sigma=not given, min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR,
+                    tight=True)
+        score = _robust_cost(prob, res.p)
+        if best is None or score < best[0]:
+            best = (score, prob, res, how)
+    if best is None:
+        raise FitError("no start could be found for the fit", hint="check the camera file, or give --start-near")
+    _, prob, res, how = best
     p = res.p
     tr = prob.trajectories(p[None])
     pos = prob.positions(tr, p[None])[0]
@@ -226,11 +244,22 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
     return FlightFit(
         success=res.success, message=res.message, names=prob.names, params=p, covariance=res.covariance,
         t0=prob.t0, state0=states[0], spin=params.spin[0], drag_scale=float(params.drag_scale[0]),
-        lift_override=float(params.lift_override[0]), basis=basis, t=t, observed=uv, fitted=pred,
+        lift_override=float(params.lift_override[0]), basis=prob.basis, t=t, observed=uv, fitted=pred,
         residuals=uv - pred, sigma=prob.sigma.copy(), outliers=res.outliers,
         residual_scale=math.sqrt(res.s2), nfev=res.nfev, options=options, undetermined=res.undetermined,
         fitted_xyz=pos, residual_unit="px", extra=extra,
     )
+
+
+def _robust_cost(prob: "_ImageProblem", p) -> float:
+    """A cost comparable between starts: soft-L1 of all residuals at a common 1-pixel scale."""
+    saved, saved_mask = prob.sigma, prob.mask
+    prob.sigma, prob.mask = np.ones_like(saved), np.ones(len(saved), bool)
+    try:
+        r = prob.residuals(np.asarray(p)[None])[0]
+    finally:
+        prob.sigma, prob.mask = saved, saved_mask
+    return float(np.sum(2.0 * (np.sqrt(1.0 + r * r) - 1.0)))
 
 
 def constant_acceleration_image_fit(fit: FlightFit, cameras: list[Camera], model: FlightModel, radius_px=None):

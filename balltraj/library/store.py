@@ -173,8 +173,25 @@ def _check_sqlite_file(path: Path) -> None:
                                  hint="give a new file name to create a library")
 
 
-def open_library(path, *, create: bool = True) -> Library:
-    """Open (or create) a library, migrating an older schema; refuse a newer one."""
+def open_library(path, *, create: bool = True, wait_s: float = 15.0) -> Library:
+    """Open (or create) a library, migrating an older schema; refuse a newer one. Another process
+    opening or migrating the same file at that moment is waited for (up to ``wait_s``)."""
+    deadline = time.monotonic() + wait_s
+    while True:
+        try:
+            return _open_library(path, create=create)
+        except _Busy as e:
+            if time.monotonic() > deadline:
+                raise InputError(f"the library is locked by another program ({e})", path=str(path),
+                                 hint="wait for the other batch to finish, or use another library file") from None
+            time.sleep(0.05)
+
+
+class _Busy(Exception):
+    pass
+
+
+def _open_library(path, *, create: bool) -> Library:
     p = Path(path)
     _check_sqlite_file(p)
     if not p.exists():
@@ -182,6 +199,7 @@ def open_library(path, *, create: bool = True) -> Library:
             raise InputError("no such library", path=str(path))
         if not (p.parent if str(p.parent) else Path(".")).is_dir():
             raise InputError("the folder for the library does not exist", path=str(path))
+    conn = None
     try:
         conn = sqlite3.connect(str(p), timeout=10.0, isolation_level=None)
         conn.row_factory = sqlite3.Row
@@ -198,6 +216,10 @@ def open_library(path, *, create: bool = True) -> Library:
             raise InputError("this SQLite file is not a balltraj library", path=str(path),
                              hint="give a new file name to create a library")
     except sqlite3.DatabaseError as e:
+        if conn is not None:
+            conn.close()
+        if isinstance(e, sqlite3.OperationalError) and ("locked" in str(e) or "busy" in str(e)):
+            raise _Busy(str(e)) from None
         raise InputError(f"cannot open the library ({e})", path=str(path)) from None
     if version > SCHEMA_VERSION:
         conn.close()
@@ -214,7 +236,9 @@ def open_library(path, *, create: bool = True) -> Library:
         except sqlite3.OperationalError as e:
             conn.rollback()
             conn.close()
-            raise InputError(f"the library is locked or read-only ({e})", path=str(path)) from None
+            if "locked" in str(e) or "busy" in str(e):
+                raise _Busy(str(e)) from None
+            raise InputError(f"the library is read-only or damaged ({e})", path=str(path)) from None
     return Library(str(p), conn)
 
 

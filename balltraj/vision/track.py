@@ -214,31 +214,55 @@ class Tracker:
         sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
         return self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2
 
-    def _continues(self, prev: _Track, tr: _Track) -> bool:
-        """Does fragment tr continue prev (which was lost, or ended on a suspected bounce)?"""
-        if prev.ended not in ("lost", "clip ended", "bounce"):
-            return False
+    def _continuation(self, prev: _Track, tr: _Track) -> float | None:
+        """How well fragment tr continues prev (which was lost, or ended on a suspected bounce):
+        the miss distance over its tolerance (below 1 continues), or None."""
+        if prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
+            return None
+        if _smoothness_px(prev) > max(1.5, 0.5 * float(np.median([q[2].radius_px for q in prev.points]))):
+            return None  # a jittery fragment (a person's limb, a ghost) is continued by nothing
+        if len(tr.points) < self.min_points or not self._plausible(tr):
+            return None  # only a fragment that is a flight in its own right joins another
         gap = tr.points[0][1] - prev.points[-1][1]
         if not (0 < gap <= 0.15):
-            return False
-        pred, spread = prev.predict(tr.points[0][1])
+            return None
+        # extrapolate with the whole fragment (its curvature is better known than from the last points)
+        ts, uv = prev.times(), prev.uv()
+        deg = 2 if len(ts) >= 6 else 1
+        coef = np.polyfit(ts - ts[-1], uv, deg)
+        pred = np.array([np.polyval(coef[:, 0], tr.points[0][1] - ts[-1]),
+                         np.polyval(coef[:, 1], tr.points[0][1] - ts[-1])])
+        spread = float(np.sqrt(np.mean(np.sum((uv - np.stack([np.polyval(coef[:, k], ts - ts[-1])
+                                                               for k in range(2)], axis=1)) ** 2, axis=1))))
         first = tr.points[0][2]
-        tol = 6.0 + 3.0 * first.radius_px + 3.0 * spread + 0.05 * prev.speed_px_per_s() * gap
-        return bool(np.hypot(first.u - pred[0], first.v - pred[1]) <= tol)
+        tol = 6.0 + 3.0 * first.radius_px + 3.0 * spread + 0.1 * prev.speed_px_per_s() * gap
+        score = float(np.hypot(first.u - pred[0], first.v - pred[1])) / tol
+        return score if score <= 1.0 else None
 
     def _merge(self, tracks: list[_Track]) -> list[_Track]:
         """Join fragments of one flight split by an occlusion: B starts soon after A was lost and
-        A's curve, extrapolated, lands on B's first points."""
+        A's curve, extrapolated, lands on B's first points. Links are made best first, each
+        fragment continuing at most one and continued by at most one."""
         tracks = sorted(tracks, key=lambda x: x.points[0][1])
-        out: list[_Track] = []
-        for tr in tracks:
-            prev = next((p for p in out if self._continues(p, tr)), None)
-            if prev is None:
-                out.append(tr)
-                continue
-            for kk, tt, cc in tr.points:
-                prev.add(kk, tt, cc)
-            prev.ended, prev.bounce = tr.ended, tr.bounce
+        pairs = sorted((sc, i, j) for i, a in enumerate(tracks) for j, b in enumerate(tracks)
+                       if i != j and (sc := self._continuation(a, b)) is not None)
+        succ: dict[int, int] = {}
+        pred: dict[int, int] = {}
+        for _, i, j in pairs:
+            if i not in succ and j not in pred:
+                succ[i], pred[j] = j, i
+        out = []
+        for i, tr in enumerate(tracks):
+            if i in pred:
+                continue  # part of an earlier chain
+            j = succ.get(i)
+            while j is not None:
+                nxt = tracks[j]
+                for kk, tt, cc in nxt.points:
+                    tr.add(kk, tt, cc)
+                tr.ended, tr.bounce = nxt.ended, nxt.bounce
+                j = succ.get(j)
+            out.append(tr)
         return out
 
     def _looks_like_ball(self, tr: _Track) -> bool:
@@ -250,7 +274,8 @@ class Tracker:
         return True
 
     def _plausible(self, tr: _Track) -> bool:
-        return _net_speed(tr) >= self.min_speed
+        # both the net motion and the typical step: a jump onto a parked blob is not a flight
+        return _net_speed(tr) >= self.min_speed and tr.speed_px_per_s() >= self.min_speed
 
     def _is_bounce(self, tr: _Track, t, c) -> bool:
         ts, uv = tr.times()[-6:], tr.uv()[-6:]
