@@ -66,14 +66,44 @@ def clip_info(path) -> ClipInfo:
     return info
 
 
-def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, capture_fps: float | None = None,
-                prefetch: int = 8) -> Iterator[tuple[int, float, np.ndarray]]:
-    """Yield (index, time_s, BGR frame) in order, decoding in a background thread.
+def _luma_capture(path, info: ClipInfo):
+    """A capture that hands out the decoder's luma plane directly (no colour conversion at all:
+    the cheapest way to a grey frame), or None where this codec or build does not do that."""
+    try:
+        cv2.utils.logging.setLogLevel(cv2.utils.logging.LOG_LEVEL_ERROR)
+    except AttributeError:  # pragma: no cover - older OpenCV without the logging module
+        pass
+    cap = cv2.VideoCapture(str(path), cv2.CAP_FFMPEG)
+    if not cap.isOpened() or not cap.set(cv2.CAP_PROP_CONVERT_RGB, 0):
+        cap.release()
+        return None
+    ok, frame = cap.read()
+    cap.release()
+    if not ok or frame is None or frame.ndim != 2 or frame.shape != (info.height, info.width):
+        return None
+    cap = cv2.VideoCapture(str(path), cv2.CAP_FFMPEG)
+    cap.set(cv2.CAP_PROP_CONVERT_RGB, 0)
+    return cap
 
+
+def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, capture_fps: float | None = None,
+                prefetch: int = 8, grey: bool = False) -> Iterator[tuple[int, float, np.ndarray]]:
+    """Yield (index, time_s, frame) in order, decoding in a background thread.
+
+    Frames are BGR, or with ``grey`` single-channel (the decoder's luma plane where the codec
+    allows, else converted in the decoding thread).
     ``capture_fps`` re-times a slow-motion file stored time-stretched: time = index / capture_fps.
     Frames before ``start_s`` are decoded and dropped (no seeking); reading stops after ``end_s``.
     """
     cap, info = open_clip(path)
+    convert = False
+    if grey:
+        luma = _luma_capture(path, info)
+        if luma is not None:
+            cap.release()
+            cap = luma
+        else:
+            convert = True
     q: queue.Queue = queue.Queue(maxsize=prefetch)
     stop = threading.Event()
 
@@ -87,7 +117,7 @@ def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, captu
                 if t_first is None:
                     t_first = ms
                 t = k / capture_fps if capture_fps else (ms - t_first) / 1000.0
-                q.put((k, t, frame))
+                q.put((k, t, cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY) if convert else frame))
                 k += 1
                 ok, frame = cap.read()
         finally:

@@ -64,6 +64,13 @@ def radius_gate_map(camera: Camera | None, ball_radius_m: float | None, size: tu
     return rmin, rmax
 
 
+def _static(x, y, bw, bh, frames) -> bool:
+    """Was exactly this blob box in each of the last frames (half-resolution px)? A ball in flight
+    moves its box within a frame or two; clutter, ghosts and parked objects do not."""
+    box = np.array([x, y, bw, bh], float)
+    return all(b is not None and b.size and bool(np.any(np.all(b == box, axis=1))) for b in frames)
+
+
 class Detector:
     """Stateful per-clip detector; call :meth:`process` on consecutive frames."""
 
@@ -80,6 +87,7 @@ class Detector:
         self.threshold = min_threshold
         self.k = 0
         self._kernel = np.ones((5, 5), np.uint8)
+        self._boxes = (None, None)  # half-resolution blob boxes of the last two frames
 
     def _gate(self, u, v):
         if self.gate is None:
@@ -106,14 +114,18 @@ class Detector:
         _, mask = cv2.threshold(diff, self.threshold, 255, cv2.THRESH_BINARY)
         contours, _ = cv2.findContours(mask, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
         cands: list[Candidate] = []
+        boxes = []
         if len(contours) <= 20 * self.max_candidates:
-            for c in contours:
-                x, y, bw, bh = cv2.boundingRect(c)
+            boxes = [cv2.boundingRect(c) for c in contours]
+            for (x, y, bw, bh) in boxes:
                 if bw * bh < 1 or x <= 0 or y <= 0 or x + bw >= self.sw or y + bh >= self.sh:
                     continue  # cut by the image edge: its centroid would be biased
+                if _static(x, y, bw, bh, self._boxes):
+                    continue  # the same box for three frames: clutter or a ghost, not a ball in flight
                 cand = self._measure(gray, 2 * x, 2 * y, 2 * bw, 2 * bh)
                 if cand is not None:
                     cands.append(cand)
+        self._boxes = (self._boxes[1], np.array(boxes, float).reshape(-1, 4))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
         # everywhere so that objects put down for good join the background
         keep = cv2.bitwise_not(cv2.dilate(mask, self._kernel))

@@ -42,7 +42,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     if overlay_path is not None:
         fps = info.nominal_fps if info.nominal_fps > 0 else 30.0
         writer = cv2.VideoWriter(str(overlay_path), cv2.VideoWriter_fourcc(*"mp4v"), fps, (info.width, info.height))
-    for k, t, frame in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps):
+    for k, t, frame in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
+                                   grey=writer is None):
         cands = det.process(frame)
         trk.update(k, t, cands)
         times.append(t)

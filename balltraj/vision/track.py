@@ -226,17 +226,19 @@ class Tracker:
         gap = tr.points[0][1] - prev.points[-1][1]
         if not (0 < gap <= 0.15):
             return None
-        # extrapolate with the whole fragment (its curvature is better known than from the last points)
+        # extrapolate with the whole fragment (its curvature is better known than from the last points);
+        # judge by the best of tr's first three points (its very first may be a stray blob)
         ts, uv = prev.times(), prev.uv()
         deg = 2 if len(ts) >= 6 else 1
         coef = np.polyfit(ts - ts[-1], uv, deg)
-        pred = np.array([np.polyval(coef[:, 0], tr.points[0][1] - ts[-1]),
-                         np.polyval(coef[:, 1], tr.points[0][1] - ts[-1])])
-        spread = float(np.sqrt(np.mean(np.sum((uv - np.stack([np.polyval(coef[:, k], ts - ts[-1])
-                                                               for k in range(2)], axis=1)) ** 2, axis=1))))
-        first = tr.points[0][2]
-        tol = 6.0 + 3.0 * first.radius_px + 3.0 * spread + 0.1 * prev.speed_px_per_s() * gap
-        score = float(np.hypot(first.u - pred[0], first.v - pred[1])) / tol
+        fit = np.stack([np.polyval(coef[:, k], ts - ts[-1]) for k in range(2)], axis=1)
+        spread = float(np.sqrt(np.mean(np.sum((uv - fit) ** 2, axis=1))))
+        score = np.inf
+        for _, t_b, c_b in tr.points[:3]:
+            dt = t_b - ts[-1]
+            pred = np.array([np.polyval(coef[:, 0], dt), np.polyval(coef[:, 1], dt)])
+            tol = 6.0 + 3.0 * c_b.radius_px + 3.0 * spread + 0.1 * prev.speed_px_per_s() * dt
+            score = min(score, float(np.hypot(c_b.u - pred[0], c_b.v - pred[1])) / tol)
         return score if score <= 1.0 else None
 
     def _merge(self, tracks: list[_Track]) -> list[_Track]:
