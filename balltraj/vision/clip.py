@@ -87,13 +87,15 @@ def _luma_capture(path, info: ClipInfo):
 
 
 def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, capture_fps: float | None = None,
-                prefetch: int = 8, grey: bool = False) -> Iterator[tuple[int, float, np.ndarray]]:
+                prefetch: int = 8, grey: bool = False, prepare=None) -> Iterator[tuple[int, float, np.ndarray]]:
     """Yield (index, time_s, frame) in order, decoding in a background thread.
 
     Frames are BGR, or with ``grey`` single-channel (the decoder's luma plane where the codec
     allows, else converted in the decoding thread).
     ``capture_fps`` re-times a slow-motion file stored time-stretched: time = index / capture_fps.
     Frames before ``start_s`` are decoded and dropped (no seeking); reading stops after ``end_s``.
+    ``prepare(frame)``, if given, runs in the decoding thread and its result is yielded instead of
+    the frame (per-frame work that releases the interpreter lock overlaps with the caller's work).
     """
     cap, info = open_clip(path)
     convert = False
@@ -117,7 +119,9 @@ def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, captu
                 if t_first is None:
                     t_first = ms
                 t = k / capture_fps if capture_fps else (ms - t_first) / 1000.0
-                q.put((k, t, cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY) if convert else frame))
+                if convert:
+                    frame = cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY)
+                q.put((k, t, frame if prepare is None else prepare(frame)))
                 k += 1
                 ok, frame = cap.read()
         finally:

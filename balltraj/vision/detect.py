@@ -64,11 +64,10 @@ def radius_gate_map(camera: Camera | None, ball_radius_m: float | None, size: tu
     return rmin, rmax
 
 
-def _static(x, y, bw, bh, frames) -> bool:
+def _static(box, frames) -> bool:
     """Was exactly this blob box in each of the last frames (half-resolution px)? A ball in flight
     moves its box within a frame or two; clutter, ghosts and parked objects do not."""
-    box = np.array([x, y, bw, bh], float)
-    return all(b is not None and b.size and bool(np.any(np.all(b == box, axis=1))) for b in frames)
+    return all(f is not None and box in f for f in frames)
 
 
 class Detector:
@@ -98,9 +97,13 @@ class Detector:
         j = min(gx - 1, max(0, int(u / self.w * gx)))
         return float(rmin[i, j]), float(rmax[i, j])
 
-    def process(self, frame) -> list[Candidate]:
+    def prepare(self, frame):
+        """(grey, half-resolution grey) of a frame; may run in the decoding thread."""
         gray = cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY) if frame.ndim == 3 else frame
-        small = cv2.resize(gray, (self.sw, self.sh), interpolation=cv2.INTER_AREA)
+        return gray, cv2.resize(gray, (self.sw, self.sh), interpolation=cv2.INTER_AREA)
+
+    def process(self, frame, prepared=None) -> list[Candidate]:
+        gray, small = prepared if prepared is not None else self.prepare(frame)
         self.k += 1
         if self.bg_small is None:
             self.bg_small = small.astype(np.float32)
@@ -120,24 +123,24 @@ class Detector:
             for (x, y, bw, bh) in boxes:
                 if bw * bh < 1 or x <= 0 or y <= 0 or x + bw >= self.sw or y + bh >= self.sh:
                     continue  # cut by the image edge: its centroid would be biased
-                if _static(x, y, bw, bh, self._boxes):
+                if _static((x, y, bw, bh), self._boxes):
                     continue  # the same box for three frames: clutter or a ghost, not a ball in flight
                 cand = self._measure(gray, 2 * x, 2 * y, 2 * bw, 2 * bh)
                 if cand is not None:
                     cands.append(cand)
-        self._boxes = (self._boxes[1], np.array(boxes, float).reshape(-1, 4))
+        self._boxes = (self._boxes[1], set(boxes))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
         # everywhere so that objects put down for good join the background
         keep = cv2.bitwise_not(cv2.dilate(mask, self._kernel))
         cv2.accumulateWeighted(small, self.bg_small, self.alpha, mask=keep)
-        if self.k % 4 == 0:
-            cv2.accumulateWeighted(gray, self.bg_full, min(1.0, 4 * self.alpha),
+        if self.k % 8 == 0:  # the full-resolution background (for the measurements) every 8th frame
+            cv2.accumulateWeighted(gray, self.bg_full, min(1.0, 8 * self.alpha),
                                    mask=cv2.resize(keep, (self.w, self.h), interpolation=cv2.INTER_NEAREST))
         # slower unmasked update: ghosts (what the first frame hid) and slow movers fade in ~100 frames;
         # a passing ball leaves well under 1 % of its contrast behind
         cv2.accumulateWeighted(small, self.bg_small, 0.25 * self.alpha)
-        if self.k % 4 == 0:
-            cv2.accumulateWeighted(gray, self.bg_full, self.alpha)
+        if self.k % 8 == 4:
+            cv2.accumulateWeighted(gray, self.bg_full, 2 * self.alpha)
         if len(cands) > self.max_candidates:  # lighting change or camera shake: keep the strongest
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands

@@ -42,9 +42,15 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     if overlay_path is not None:
         fps = info.nominal_fps if info.nominal_fps > 0 else 30.0
         writer = cv2.VideoWriter(str(overlay_path), cv2.VideoWriter_fourcc(*"mp4v"), fps, (info.width, info.height))
-    for k, t, frame in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
-                                   grey=writer is None):
-        cands = det.process(frame)
+    overlay = writer is not None
+    prep = (lambda f: (f, det.prepare(f))) if overlay else det.prepare  # the decoding thread does this
+    for k, t, item in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
+                                  grey=not overlay, prepare=prep):
+        if overlay:
+            frame, prepared = item
+        else:
+            frame, prepared = None, item
+        cands = det.process(frame, prepared)
         trk.update(k, t, cands)
         times.append(t)
         n += 1
