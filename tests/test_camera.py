@@ -7,7 +7,7 @@ import pytest
 from typer.testing import CliRunner
 
 from balltraj.camera.calibrate import TEMPLATES, calibrate_lens, calibrate_scene, render_board_view
-from balltraj.camera.model import Camera, camera_from_dict, look_at_camera, rodrigues
+from balltraj.camera.model import Camera, look_at_camera, rodrigues
 from balltraj.camera.triangulate import triangulate_points
 from balltraj.cli import app
 from balltraj.errors import InputError

@@ -1,7 +1,6 @@
 """Hostile inputs, command by command: each answers with exit status 2 and one line
 `error: ...` (no traceback) and leaves no output behind."""
 import json
-import os
 import subprocess
 import sys
 import time

@@ -1,7 +1,5 @@
 import csv
 import json
-import os
-import shutil
 import signal
 import sqlite3
 import subprocess

@@ -284,15 +284,3 @@ def compare(lib: Library, by: str, a: str, b: str) -> list[dict]:
             d[col] = (float(np.mean(v)), float(np.std(v, ddof=1)) if len(v) > 1 else 0.0)
         out.append(d)
     return out
-
-
-def library_lock_holder(path) -> bool:
-    """True if another connection holds a write lock (for messages)."""
-    try:
-        c = sqlite3.connect(str(path), timeout=0.1)
-        c.execute("BEGIN IMMEDIATE")
-        c.rollback()
-        c.close()
-        return False
-    except sqlite3.OperationalError:
-        return True

@@ -261,15 +261,3 @@ def ball_from_dict(d: Mapping[str, Any]) -> Ball:
         drag_model=drag_model, drag_params=drag_params, lift_model=lift_model,
         lift_params=lift_params, notes=str(d.get("notes", "user-defined")),
     )
-
-
-def with_overrides(ball: Ball, mass_kg: float | None = None, diameter_m: float | None = None) -> Ball:
-    """The same ball with another mass or diameter (for a ball weighed and measured on the day)."""
-    from dataclasses import replace
-
-    kw = {}
-    if mass_kg is not None:
-        kw["mass_kg"] = float(mass_kg)
-    if diameter_m is not None:
-        kw["diameter_m"] = float(diameter_m)
-    return replace(ball, **kw)

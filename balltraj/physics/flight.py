@@ -20,7 +20,7 @@ from typing import Mapping
 
 import numpy as np
 
-from ..errors import InputError, PhysicsError
+from ..errors import InputError
 from .aero import model_info
 from .air import STANDARD_GRAVITY, AirConditions
 from .balls import Ball
@@ -426,16 +426,3 @@ def check_launch(position, speed, spin_axis=None) -> None:
             raise InputError("spin axis must be three finite numbers X,Y,Z")
         if np.linalg.norm(a) < 1e-12:
             raise InputError("spin axis has zero length", hint="give a direction such as 0,-1,0 for backspin")
-
-
-def crossing_or_raise(traj: Trajectory, target_x: float, row: int = 0):
-    """Crossing of x = target_x by flight ``row`` or a PhysicsError saying where it ended."""
-    tc, sc = traj.first_crossing(0, target_x, +1)
-    if not np.isfinite(tc[row]):
-        end = traj.state[row, -1]
-        raise PhysicsError(
-            f"the flight never reaches the target plane x = {target_x:g} m; it ended at "
-            f"x = {end[0]:.2f} m, y = {end[1]:.2f} m, z = {end[2]:.2f} m",
-            hint="choose a nearer --target-x",
-        )
-    return tc[row], sc[row]

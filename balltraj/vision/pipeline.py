@@ -38,7 +38,6 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
                   ball_radius_m=ball_radius_m)
     times, n = [], 0
     writer = None
-    drawn: list = []
     if overlay_path is not None:
         fps = info.nominal_fps if info.nominal_fps > 0 else 30.0
         writer = cv2.VideoWriter(str(overlay_path), cv2.VideoWriter_fourcc(*"mp4v"), fps, (info.width, info.height))

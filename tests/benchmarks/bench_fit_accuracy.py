@@ -104,7 +104,6 @@ def main():
     body = "\n".join(text)
     print(body)
     write_section("fit-accuracy", body)
-    doc.write_text(new)
 
 
 if __name__ == "__main__":

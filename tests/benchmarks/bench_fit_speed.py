@@ -2,7 +2,6 @@
 
 Run: python tests/benchmarks/bench_fit_speed.py   (targets: ratio <= 0.2, <= 40 ms per pitch)
 """
-import math
 import statistics
 import sys
 import time
