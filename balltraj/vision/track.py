@@ -18,6 +18,15 @@ import numpy as np
 from .detect import Candidate
 
 
+def _det3(m) -> float:
+    return (m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+            + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
+
+
+def _replace_col(m, k, b):
+    return tuple(tuple(b[i] if j == k else m[i][j] for j in range(3)) for i in range(3))
+
+
 @dataclass
 class _Track:
     points: list = field(default_factory=list)  # (k, t, Candidate)
@@ -46,20 +55,51 @@ class _Track:
         return np.asarray(self._uvs)
 
     def predict(self, t):
-        ts, uv = np.asarray(self._ts[-8:]), np.asarray(self._uvs[-8:])
-        if len(ts) == 1:
-            return uv[-1], 0.0
-        deg = 2 if len(ts) >= 4 else 1
-        tt = ts - ts[-1]
-        A = np.vander(tt, deg + 1)
-        try:  # normal equations: much cheaper than an SVD on these tiny systems
-            coef = np.linalg.solve(A.T @ A, A.T @ uv)
-        except np.linalg.LinAlgError:
-            coef, *_ = np.linalg.lstsq(A, uv, rcond=None)
-        res = uv - A @ coef
-        spread = float(np.sqrt((res * res).sum() / len(ts))) if len(ts) > deg + 1 else 0.0
-        dt = t - ts[-1]
-        return (coef[-1] + dt * coef[-2] + (dt * dt * coef[0] if deg == 2 else 0.0)), spread
+        """Position at t from a least-squares line (under 4 points) or parabola in time through the
+        last 8 points, and the rms scatter about it. Plain floats: numpy's per-call cost would
+        dominate these 8-point fits, done for every track in every frame."""
+        ts, uvs = self._ts[-8:], self._uvs[-8:]
+        n = len(ts)
+        if n == 1:
+            return np.asarray(uvs[-1]), 0.0
+        t_ref = ts[-1]
+        deg = 2 if n >= 4 else 1
+        s = [0.0] * (2 * deg + 1)
+        bu = [0.0] * (deg + 1)
+        bv = [0.0] * (deg + 1)
+        for ti, (u, v) in zip(ts, uvs):
+            x = ti - t_ref
+            p = 1.0
+            for k in range(2 * deg + 1):
+                s[k] += p
+                if k <= deg:
+                    bu[k] += p * u
+                    bv[k] += p * v
+                p *= x
+        if deg == 1:
+            det = s[0] * s[2] - s[1] * s[1]
+            if abs(det) < 1e-30:
+                return np.asarray(uvs[-1]), 0.0
+            cu = ((s[2] * bu[0] - s[1] * bu[1]) / det, (s[0] * bu[1] - s[1] * bu[0]) / det, 0.0)
+            cv = ((s[2] * bv[0] - s[1] * bv[1]) / det, (s[0] * bv[1] - s[1] * bv[0]) / det, 0.0)
+        else:
+            m = ((s[0], s[1], s[2]), (s[1], s[2], s[3]), (s[2], s[3], s[4]))
+            det = _det3(m)
+            if abs(det) < 1e-30:
+                return np.asarray(uvs[-1]), 0.0
+            cu = tuple(_det3(_replace_col(m, k, bu)) / det for k in range(3))
+            cv = tuple(_det3(_replace_col(m, k, bv)) / det for k in range(3))
+        spread = 0.0
+        if n > deg + 1:
+            acc = 0.0
+            for ti, (u, v) in zip(ts, uvs):
+                x = ti - t_ref
+                du = u - (cu[0] + x * cu[1] + x * x * cu[2])
+                dv = v - (cv[0] + x * cv[1] + x * x * cv[2])
+                acc += du * du + dv * dv
+            spread = (acc / n) ** 0.5
+        x = t - t_ref
+        return np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]]), spread
 
     def speed_px_per_s(self):
         return self._speed
