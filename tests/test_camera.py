@@ -176,3 +176,26 @@ def test_triangulation_of_exact_points(rng):
     X = rng.uniform([0, -1, 0.5], [18, 1, 2.5], (50, 3))
     Y = triangulate_points([a, b], [a.project(X), b.project(X)])
     assert np.abs(X - Y).max() < 1e-6
+
+
+def test_lens_of_another_image_size_is_refused():
+    tpl = TEMPLATES["soccer-goal"]
+    names = list(tpl["points"])[:6]
+    world = np.array([tpl["points"][n] for n in names])
+    lens = look_at_camera("phone", [24.0, -4.0, 5.0], [7.0, 0.0, 0.5], 700, (640, 480))
+    with pytest.raises(InputError, match="640x480"):
+        calibrate_scene(world, np.zeros((6, 2)) + 100, names, lens, (1280, 720))
+
+
+def test_views_of_another_size_are_rejected_per_view():
+    truth = Camera("phone", (640, 480), [[900, 0, 320], [0, 900, 240], [0, 0, 1]], [0, 0, 0, 0, 0], np.zeros(3),
+                   np.zeros(3))
+    rng = np.random.default_rng(2)
+    views = []
+    for k in range(4):
+        R = rodrigues([0.4 * (-1) ** k, 0.3, 0.1 * k])
+        views.append((f"v{k}", render_board_view(truth, R, np.array([-0.12, -0.075, 0.55]) + 0.01 * k, 9, 6, 0.03,
+                                                 rng=rng)))
+    views.append(("small", np.zeros((240, 320), np.uint8)))
+    res = calibrate_lens(views, 9, 6, 0.03)
+    assert "small" in res.rejected and "differs" in res.rejected["small"]
