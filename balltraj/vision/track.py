@@ -18,15 +18,6 @@ import numpy as np
 from .detect import Candidate
 
 
-def _det3(m) -> float:
-    return (m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
-            + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
-
-
-def _replace_col(m, k, b):
-    return tuple(tuple(b[i] if j == k else m[i][j] for j in range(3)) for i in range(3))
-
-
 @dataclass
 class _Track:
     points: list = field(default_factory=list)  # (k, t, Candidate)
@@ -82,13 +73,17 @@ class _Track:
                 return np.asarray(uvs[-1]), 0.0
             cu = ((s[2] * bu[0] - s[1] * bu[1]) / det, (s[0] * bu[1] - s[1] * bu[0]) / det, 0.0)
             cv = ((s[2] * bv[0] - s[1] * bv[1]) / det, (s[0] * bv[1] - s[1] * bv[0]) / det, 0.0)
-        else:
-            m = ((s[0], s[1], s[2]), (s[1], s[2], s[3]), (s[2], s[3], s[4]))
-            det = _det3(m)
+        else:  # symmetric 3x3 normal equations, solved by the adjugate
+            a, b, c, d, e = s
+            i00, i01, i02 = c * e - d * d, c * d - b * e, b * d - c * c
+            i11, i12, i22 = a * e - c * c, b * c - a * d, a * c - b * b
+            det = a * i00 + b * i01 + c * i02
             if abs(det) < 1e-30:
                 return np.asarray(uvs[-1]), 0.0
-            cu = tuple(_det3(_replace_col(m, k, bu)) / det for k in range(3))
-            cv = tuple(_det3(_replace_col(m, k, bv)) / det for k in range(3))
+            cu = ((i00 * bu[0] + i01 * bu[1] + i02 * bu[2]) / det, (i01 * bu[0] + i11 * bu[1] + i12 * bu[2]) / det,
+                  (i02 * bu[0] + i12 * bu[1] + i22 * bu[2]) / det)
+            cv = ((i00 * bv[0] + i01 * bv[1] + i02 * bv[2]) / det, (i01 * bv[0] + i11 * bv[1] + i12 * bv[2]) / det,
+                  (i02 * bv[0] + i12 * bv[1] + i22 * bv[2]) / det)
         spread = 0.0
         if n > deg + 1:
             acc = 0.0
