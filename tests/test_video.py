@@ -210,3 +210,15 @@ def test_variable_frame_rate_timestamps(tmp_path):
     assert np.abs(times - expected).max() < 1e-4  # container timestamps, to 0.1 ms
     nominal = k * delta / timescale
     assert np.abs(nominal - expected).max() > 0.05  # index / fps would be off by far more
+
+
+def test_a_pitch_passing_a_walking_figure_is_not_joined_to_it(tmp_path):
+    # a regression check: the ball's track must not be appended to the walker's track
+    cam = look_at_camera("side", [9.0, -10.0, 1.4], [9.0, 0.0, 1.3], 900, (960, 540))
+    tr, t_end, model = _pitch(36.0, 0.2, [0, -1, 0.2])
+    clip = tmp_path / "pitch.mp4"
+    truth = render_clip(Scene(cam, duration_s=0.75, seed=4, ball_radius_m=model.radius_m,
+                              flights=[(0.1, 0.1 + t_end, lambda ts: tr.positions(np.clip(ts - 0.1, 0, t_end))[0])]), clip)
+    for camera in (cam, None):
+        res = track_clip(clip, camera, model.radius_m if camera else None)
+        assert len(res.flights) == 1 and len(res.flights[0].t) >= 0.8 * len(truth)

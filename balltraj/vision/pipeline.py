@@ -35,7 +35,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     gate = radius_gate_map(camera, ball_radius_m, (info.width, info.height))
     det = Detector(info.width, info.height, gate=gate)
     trk = Tracker(info.width, info.height, focal_px=None if camera is None else camera.focal_px,
-                  ball_radius_m=ball_radius_m)
+                  ball_radius_m=ball_radius_m, camera=camera)
     times, n = [], 0
     writer = None
     if overlay_path is not None:

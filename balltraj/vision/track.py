@@ -102,15 +102,14 @@ class _Track:
 
 def world_speed(tr: _Track, focal_px: float, ball_radius_m: float) -> float:
     """Typical speed [m/s] the track would have if it were the ball: depth from the apparent
-    radius (f R / r, smoothed by a quadratic in time), sideways speed from the image motion."""
+    radius (f R / r, fitted by a straight line in time), sideways speed from the image motion."""
     ts, uv = tr.times(), tr.uv()
     r = np.array([p[2].radius_px for p in tr.points])
     tt = ts - ts.mean()
     depth = focal_px * ball_radius_m / np.maximum(r, 0.3)
-    deg = 2 if len(ts) >= 6 else 1
-    dc = np.polyfit(tt, depth, deg)
+    dc = np.polyfit(tt, depth, 1)  # a straight line: noisy radii must not invent radial speed
     d_s = np.polyval(dc, tt)
-    radial = np.polyval(np.polyder(dc), tt)
+    radial = np.full(len(tt), dc[0])
     uc = [np.polyfit(tt, uv[:, k], min(3, len(ts) - 1)) for k in range(2)]
     du = np.hypot(np.polyval(np.polyder(uc[0]), tt), np.polyval(np.polyder(uc[1]), tt))
     lateral = du * np.maximum(d_s, 0.1) / focal_px
@@ -134,6 +133,21 @@ def _radius_consistent(tr: _Track) -> bool:
     tt = ts - ts.mean()
     rf = np.polyval(np.polyfit(tt, r, 2), tt)
     return float(np.median(np.abs(r - rf))) <= max(0.1 * float(np.median(r)), 0.3)
+
+
+def downward_acceleration(tr: _Track, camera, ball_radius_m: float) -> float | None:
+    """Vertical acceleration [m/s^2] of the track placed in 3D (rays through the camera, depth from
+    the apparent radius fitted by a straight line in time); None when the track is too short
+    (under 0.1 s) to tell. A ball in free flight has about -g, give or take its lift."""
+    ts, uv = tr.times(), tr.uv()
+    if ts[-1] - ts[0] < 0.1 or len(ts) < 8:
+        return None
+    r = np.array([p[2].radius_px for p in tr.points])
+    tt = ts - ts.mean()
+    depth = np.polyval(np.polyfit(tt, camera.focal_px * ball_radius_m / np.maximum(r, 0.3), 1), tt)
+    origin, rays = camera.rays(uv)
+    xyz = origin + rays * (np.maximum(depth, 0.3) / (rays @ camera.R[2]))[:, None]
+    return float(2.0 * np.polyfit(tt, xyz[:, 2], 2)[0])
 
 
 def _net_speed(tr: _Track) -> float:
@@ -173,7 +187,7 @@ class Tracker:
     def __init__(self, width, height, fps_hint: float = 240.0, *, min_speed_px_s: float | None = None,
                  max_speed_px_s: float | None = None, max_misses: int = 10, min_points: int = 8,
                  confirm: int = 4, focal_px: float | None = None, ball_radius_m: float | None = None,
-                 min_ball_speed_mps: float = 3.0, max_ball_speed_mps: float = 90.0):
+                 min_ball_speed_mps: float = 3.0, max_ball_speed_mps: float = 90.0, camera=None):
         self.w, self.h = width, height
         diag = float(np.hypot(width, height))
         self.min_speed = min_speed_px_s if min_speed_px_s is not None else 0.1 * diag  # px/s
@@ -185,6 +199,7 @@ class Tracker:
         self.ball_radius_m = ball_radius_m
         self.min_ball_speed = min_ball_speed_mps
         self.max_ball_speed = max_ball_speed_mps
+        self.camera = camera
         self.active: list[_Track] = []
         self.finished: list[_Track] = []
         self.pool: list[tuple[int, float, Candidate]] = []  # unclaimed candidates of recent frames
@@ -258,6 +273,8 @@ class Tracker:
             return None  # a jittery fragment (a person's limb, a ghost) is continued by nothing
         if len(tr.points) < self.min_points or not self._plausible(tr):
             return None  # only a fragment that is a flight in its own right joins another
+        if not self._looks_like_ball(prev):
+            return None  # never extend a person, a ghost or a flag with a ball (or the reverse)
         gap = tr.points[0][1] - prev.points[-1][1]
         if not (0 < gap <= 0.15):
             return None
@@ -307,7 +324,12 @@ class Tracker:
             return False
         if self.focal_px and self.ball_radius_m:
             ws = world_speed(tr, self.focal_px, self.ball_radius_m)
-            return self.min_ball_speed <= ws <= self.max_ball_speed
+            if not self.min_ball_speed <= ws <= self.max_ball_speed:
+                return False
+        if self.camera is not None and self.ball_radius_m:
+            a_z = downward_acceleration(tr, self.camera, self.ball_radius_m)
+            if a_z is not None and not (-1.0 > a_z > -30.0):
+                return False  # nothing in free flight keeps its height like that: a person, a flag
         return True
 
     def _plausible(self, tr: _Track) -> bool:
