@@ -136,7 +136,7 @@ def _radius_consistent(tr: _Track) -> bool:
 
 
 def downward_acceleration(tr: _Track, camera, ball_radius_m: float) -> float | None:
-    """Vertical acceleration [m/s^2] of the track placed in 3D (rays through the camera, depth from
+    """Acceleration along +z [m/s^2] of the track placed in 3D (rays through the camera, depth from
     the apparent radius fitted by a straight line in time); None when the track is too short
     (under 0.1 s) to tell. A ball in free flight has about -g, give or take its lift."""
     ts, uv = tr.times(), tr.uv()
