@@ -5,6 +5,7 @@ return the text to print. The CLI only parses options and prints; tests call the
 from __future__ import annotations
 
 import math
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Optional, Sequence
 
@@ -299,7 +300,7 @@ def _sample_dir() -> Path:
 def run_demo(out: Path, show_progress: bool = False) -> str:
     """The whole job on the bundled sample session: each clip is tracked, fitted in image space and
     reported; the tracked 3D sample flights are fitted too; one report holds them all."""
-    from .formats import atomic_write_bytes, read_cameras, read_json, write_csv
+    from .formats import atomic_write_bytes, read_cameras, read_json, write_csv, write_json
     from .physics.air import air_conditions
     from .physics.balls import get_ball
     from .report.html import build_report
@@ -343,8 +344,6 @@ def run_demo(out: Path, show_progress: bool = False) -> str:
                           start_sigma=0.3, fit_drag=False, free_lift=False)
         _label(rec, {"athlete": meta["athlete"], "session": meta["session"],
                      "notes": "Invented demo data (not a real club or athlete)."})
-        from .formats import write_json
-
         write_json(out / f"{path.stem}.json", rec)
         recs.append(rec)
         titles.append(path.stem)
@@ -527,12 +526,20 @@ def run_triangulate(*, observations: Path, camera: Path, out: Path, flight: Opti
 OBS_HEADER = ["t", "camera", "u", "v", "radius_px", "quality", "flight", "frame", "streak_px", "bounce"]
 
 
-def _progress_bar(label: str):
-    """A rich progress bar on stderr (the CLI's; library code takes a callback)."""
+@contextmanager
+def _progress(label: str, show: bool):
+    """A rich progress bar on stderr, as a callback ``(done, total)`` for library code; None when
+    not shown (library code prints nothing itself)."""
+    if not show:
+        yield None
+        return
+    from rich.console import Console
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
-    return Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(), transient=True,
-                    console=__import__("rich.console", fromlist=["Console"]).Console(stderr=True))
+    with Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(), transient=True,
+                  console=Console(stderr=True)) as bar:
+        task = bar.add_task(label, total=None)
+        yield lambda done, total: bar.update(task, completed=done, total=total or None)
 
 
 def _track(clip, cams, ball, capture_fps, overlay, show_progress, start_s=0.0, end_s=None):
@@ -541,22 +548,9 @@ def _track(clip, cams, ball, capture_fps, overlay, show_progress, start_s=0.0, e
     cam = cams[0] if cams else None
     if start_s < 0 or (end_s is not None and end_s <= start_s):
         raise InputError("--start must be >= 0 and --end after --start")
-    kw = dict(capture_fps=capture_fps, overlay_path=overlay, start_s=start_s, end_s=end_s)
-    if show_progress:
-        with _progress_bar(f"tracking {Path(clip).name}") as bar:
-            task = bar.add_task("t", total=None)
-            res = track_clip(clip, cam, ball.radius_m, **kw,
-                             progress=lambda n, total: bar.update(task, completed=n, total=total or None))
-    else:
-        res = track_clip(clip, cam, ball.radius_m, **kw)
-    return res
-
-
-def _no_ball(clip, res):
-    from .vision.pipeline import NO_BALL_HINT
-
-    return InputError(f"no ball flight was found in {res.n_frames} frames ({res.fps_measured:.0f} frames/s)",
-                      path=str(clip), hint=NO_BALL_HINT)
+    with _progress(f"tracking {Path(clip).name}", show_progress) as progress:
+        return track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, overlay_path=overlay, start_s=start_s,
+                          end_s=end_s, progress=progress)
 
 
 def _obs_rows(res, camera_name):
@@ -577,9 +571,11 @@ def run_track(*, clip: Path, camera: Optional[Path], ball, capture_fps: Optional
     if capture_fps is not None and not (1 <= capture_fps <= 10000):
         raise InputError(f"--capture-fps must be 1..10000, got {capture_fps}")
     cams = read_cameras(camera) if camera is not None else None
+    from .vision.pipeline import no_ball_error
+
     res = _track(clip, cams, ball, capture_fps, overlay, show_progress, start_s, end_s)
     if not res.flights:
-        raise _no_ball(clip, res)
+        raise no_ball_error(clip, res)
     name = cams[0].name if cams else "camera"
     comment = "\n".join([f"tracked from {clip}"] + [f"flight {f.flight}: {len(f.t)} points, "
                                                     f"{f.t[0]:.3f}-{f.t[-1]:.3f} s, ended: {f.end_reason}"
@@ -604,23 +600,18 @@ def analyze_clip(*, clip: Path, cams, ball, air, target_x, start_near, start_sig
     from .library.batch import analyze_clip_records
     from .report.html import build_report
 
+    out_dir = Path(out_dir)
+    parent = out_dir.parent if str(out_dir.parent) else Path(".")
+    if not parent.is_dir():  # before any work
+        raise InputError("the folder that should hold --out does not exist", path=str(out_dir))
     sn = None if start_near is None else parse_vector(start_near, "--start-near")
-    if show_progress:
-        with _progress_bar(f"tracking {Path(clip).name}") as bar:
-            task = bar.add_task("t", total=None)
-            recs, res, failures = analyze_clip_records(
-                clip, cams, ball, air, target_x=_target(target_x), start_near=sn, start_sigma=start_sigma,
-                capture_fps=capture_fps, progress=lambda n, total: bar.update(task, completed=n, total=total or None))
-    else:
+    with _progress(f"tracking {Path(clip).name}", show_progress) as progress:
         recs, res, failures = analyze_clip_records(clip, cams, ball, air, target_x=_target(target_x), start_near=sn,
-                                                   start_sigma=start_sigma, capture_fps=capture_fps)
+                                                   start_sigma=start_sigma, capture_fps=capture_fps,
+                                                   progress=progress)
     lines = []
     for rec in recs:
         _label(rec, labels)
-    out_dir = Path(out_dir)
-    parent = out_dir.parent if str(out_dir.parent) else Path(".")
-    if not parent.is_dir():
-        raise InputError("the folder that should hold --out does not exist", path=str(out_dir))
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=parent))
     try:
         write_csv(tmp / "observations.csv", OBS_HEADER, _obs_rows(res, cams[0].name), comment=f"tracked from {clip}")
@@ -721,15 +712,9 @@ def run_batch_cmd(*, folder: Path, camera: Path, ball, air, library: Path, worke
         hashes = {str(c): file_hash(c) for c in clips}
         tasks = [BatchTask(clip=str(c), camera_file=str(camera), ball=ball.to_dict(), air=air_kw, target_x=tx,
                            start_near=sn, start_sigma=start_sigma, capture_fps=capture_fps) for c in clips]
-        if show_progress:
-            with _progress_bar("clips") as bar:
-                task = bar.add_task("c", total=len(tasks))
-                summ = run_batch(lib, tasks, hashes, opt_hash, options, camera_hash, workers=workers, cluster=cluster,
-                                 session=session, athlete=athlete,
-                                 progress=lambda n, total: bar.update(task, completed=n, total=total))
-        else:
+        with _progress("clips", show_progress) as progress:
             summ = run_batch(lib, tasks, hashes, opt_hash, options, camera_hash, workers=workers, cluster=cluster,
-                             session=session, athlete=athlete)
+                             session=session, athlete=athlete, progress=progress)
     finally:
         lib.close()
     lines = [f"{len(clips)} clips: {summ.done} analysed, {summ.failed} failed, {summ.skipped} already in the library"]

@@ -29,13 +29,12 @@ def analyze_clip_records(clip, cams, ball, air, *, target_x=None, start_near=Non
     from ..fitting.flight_fit import FitOptions
     from ..fitting.image_fit import fit_flight_image
     from ..physics.flight import FlightModel
-    from ..vision.pipeline import NO_BALL_HINT, track_clip
+    from ..vision.pipeline import no_ball_error, track_clip
 
     cam = cams[0]
     res = track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, progress=progress)
     if not res.flights:
-        raise InputError(f"no ball flight was found in {res.n_frames} frames ({res.fps_measured:.0f} frames/s)",
-                         path=str(clip), hint=NO_BALL_HINT)
+        raise no_ball_error(clip, res)
     model = FlightModel.for_ball(ball, air)
     opts = FitOptions(start_near=start_near, start_sigma=start_sigma)
     recs, failures = [], []

@@ -77,5 +77,11 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     return TrackResult(flights, n, fps_m, info.width, info.height, warnings)
 
 
+def no_ball_error(path, res: TrackResult) -> InputError:
+    """The error for a clip in which no flight was found, with filming hints."""
+    return InputError(f"no ball flight was found in {res.n_frames} frames ({res.fps_measured:.0f} frames/s)",
+                      path=str(path), hint=NO_BALL_HINT)
+
+
 NO_BALL_HINT = ("film at 120-240 frames/s with a short shutter (1/1000 s or faster), keep the camera still on a "
                 "tripod, and frame the whole flight with the ball clearly against the background")
