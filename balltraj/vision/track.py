@@ -264,17 +264,21 @@ class Tracker:
         sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
         return self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2
 
-    def _continuation(self, prev: _Track, tr: _Track) -> float | None:
-        """How well fragment tr continues prev (which was lost, or ended on a suspected bounce):
-        the miss distance over its tolerance (below 1 continues), or None."""
+    def _can_be_continued(self, prev: _Track) -> bool:
+        """May prev (lost, or ended on a suspected bounce) be continued by a later fragment?"""
         if prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
-            return None
+            return False
         if _smoothness_px(prev) > max(1.5, 0.5 * float(np.median([q[2].radius_px for q in prev.points]))):
-            return None  # a jittery fragment (a person's limb, a ghost) is continued by nothing
-        if len(tr.points) < self.min_points or not self._plausible(tr):
-            return None  # only a fragment that is a flight in its own right joins another
-        if not self._looks_like_ball(prev):
-            return None  # never extend a person, a ghost or a flag with a ball (or the reverse)
+            return False  # a jittery fragment (a person's limb, a ghost) is continued by nothing
+        return self._looks_like_ball(prev)  # never extend a person, a ghost or a flag with a ball
+
+    def _can_continue(self, tr: _Track) -> bool:
+        """Only a fragment that is a flight in its own right joins another."""
+        return len(tr.points) >= self.min_points and self._plausible(tr)
+
+    def _continuation(self, prev: _Track, tr: _Track) -> float | None:
+        """How well fragment tr continues prev (both passed the tests above): the miss distance over
+        its tolerance (below 1 continues), or None."""
         gap = tr.points[0][1] - prev.points[-1][1]
         if not (0 < gap <= 0.15):
             return None
@@ -298,8 +302,11 @@ class Tracker:
         A's curve, extrapolated, lands on B's first points. Links are made best first, each
         fragment continuing at most one and continued by at most one."""
         tracks = sorted(tracks, key=lambda x: x.points[0][1])
-        pairs = sorted((sc, i, j) for i, a in enumerate(tracks) for j, b in enumerate(tracks)
-                       if i != j and (sc := self._continuation(a, b)) is not None)
+        # the per-fragment tests once each (not once per pair: a clip can hold dozens of fragments)
+        heads = [i for i, a in enumerate(tracks) if self._can_be_continued(a)]
+        tails = [j for j, b in enumerate(tracks) if self._can_continue(b)]
+        pairs = sorted((sc, i, j) for i in heads for j in tails
+                       if i != j and (sc := self._continuation(tracks[i], tracks[j])) is not None)
         succ: dict[int, int] = {}
         pred: dict[int, int] = {}
         for _, i, j in pairs:
