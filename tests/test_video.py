@@ -10,6 +10,7 @@ from typer.testing import CliRunner
 
 from balltraj.camera.model import look_at_camera
 from balltraj.cli import app
+from balltraj.errors import InputError
 from balltraj.physics.air import air_conditions
 from balltraj.physics.balls import get_ball
 from balltraj.physics.flight import FlightModel, FlightParameters, fly, launch_state
@@ -108,6 +109,24 @@ def test_truncated_clip(two_throws, tmp_path):
     r = subprocess.run([sys.executable, "-m", "balltraj", "track", str(p), "--camera", str(d / "cam.json"),
                         "-o", str(tmp_path / "o.csv")], capture_output=True, text=True)
     assert r.returncode == 2 and r.stderr.startswith("error: ") and "Traceback" not in r.stderr
+
+
+def test_tracking_restores_the_opencv_thread_setting(two_throws):
+    # tracking switches OpenCV's worker pool off while it runs; the process-wide setting must come back
+    # afterwards, also when tracking stops on an error (an invariant)
+    import cv2
+
+    path, _, _ = two_throws
+    before = cv2.getNumThreads()
+    cv2.setNumThreads(2)
+    try:
+        track_clip(path, CAM, 0.0369, end_s=0.2)
+        assert cv2.getNumThreads() == 2
+        with pytest.raises(InputError):
+            track_clip(path, look_at_camera("x", [9.0, -12.0, 1.4], [9.0, 0.0, 1.3], 520, (1280, 720)), 0.0369)
+        assert cv2.getNumThreads() == 2
+    finally:
+        cv2.setNumThreads(before)
 
 
 def test_camera_size_mismatch(two_throws, tmp_path):
