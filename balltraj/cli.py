@@ -6,6 +6,7 @@ Heavy modules (scipy, matplotlib, cv2) are imported inside the commands that nee
 
 from __future__ import annotations
 
+import functools
 import os
 import sys
 from pathlib import Path
@@ -37,6 +38,23 @@ def _echo(text: str = "") -> None:
 def _fail(err: BallTrajError) -> None:
     typer.echo(f"error: {err.one_line()}", err=True)
     raise typer.Exit(2)
+
+
+def _command(group: typer.Typer, name: Optional[str] = None):
+    """Register a command whose function returns the text to print. A BallTrajError raised while it
+    runs (reading its options included) becomes one line on stderr and exit status 2."""
+    def register(fn):
+        @functools.wraps(fn)
+        def run(*args, **kwargs):
+            try:
+                text = fn(*args, **kwargs)
+            except BallTrajError as e:
+                _fail(e)
+            _echo(text)
+
+        return group.command(name)(run)
+
+    return register
 
 
 def _ball(name: str, ball_file: Optional[Path]):
@@ -81,7 +99,7 @@ StartSigmaOpt = Annotated[float, typer.Option("--start-sigma", help="How rough -
 CaptureFpsOpt = Annotated[Optional[float], typer.Option("--capture-fps", help="True capture rate of a slow-motion file stored time-stretched.")]
 
 
-@app.command()
+@_command(app)
 def simulate(
     ball: str = typer.Option(..., "--ball", help="Ball name (see `balltraj balls`)."),
     position: str = typer.Option(..., "--position", help="Launch point X,Y,Z [m]."),
@@ -106,22 +124,18 @@ def simulate(
     out: Path = typer.Option(..., "-o", "--out", help="Flight file to write (JSON)."),
 ):
     """Predict a flight from a launch state and spin; write a flight file."""
-    try:
-        from .commands import run_simulate
+    from .commands import run_simulate
 
-        summary = run_simulate(
-            ball=_ball(ball, ball_file), air=_air(air_density, temperature, pressure, humidity, altitude),
-            position=position, speed=speed, elevation=elevation, azimuth=azimuth, spin_rpm=spin_rpm,
-            spin_axis=spin_axis, drag_coefficient=drag_coefficient, lift_model=lift_model,
-            lift_coefficient=lift_coefficient, spin_decay=spin_decay, target_x=target_x,
-            path_csv=path_csv, out=out,
-        )
-    except BallTrajError as e:
-        _fail(e)
-    _echo(summary)
+    return run_simulate(
+        ball=_ball(ball, ball_file), air=_air(air_density, temperature, pressure, humidity, altitude),
+        position=position, speed=speed, elevation=elevation, azimuth=azimuth, spin_rpm=spin_rpm,
+        spin_axis=spin_axis, drag_coefficient=drag_coefficient, lift_model=lift_model,
+        lift_coefficient=lift_coefficient, spin_decay=spin_decay, target_x=target_x,
+        path_csv=path_csv, out=out,
+    )
 
 
-@app.command()
+@_command(app)
 def fit(
     inputs: List[Path] = typer.Argument(..., help="Track CSV(s) (t,x,y,z[,sigma])."),
     ball: str = typer.Option(..., "--ball", help="Ball name (see `balltraj balls`)."),
@@ -145,22 +159,18 @@ def fit(
     out: Path = typer.Option(..., "-o", "--out", help="Flight file (one input) or folder (several)."),
 ):
     """Fit the flight model to tracked positions: launch state, transverse spin, deflection."""
-    try:
-        from .commands import run_fit
+    from .commands import run_fit
 
-        text = run_fit(
-            inputs=inputs, ball=_ball(ball, ball_file),
-            air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
-            start_near=start_near, start_sigma=start_sigma, fit_drag=fit_drag, free_lift=free_lift,
-            path_csv=path_csv, out=out, labels={"athlete": athlete, "session": session, "notes": notes},
-            camera=camera, flight=flight,
-        )
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_fit(
+        inputs=inputs, ball=_ball(ball, ball_file),
+        air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
+        start_near=start_near, start_sigma=start_sigma, fit_drag=fit_drag, free_lift=free_lift,
+        path_csv=path_csv, out=out, labels={"athlete": athlete, "session": session, "notes": notes},
+        camera=camera, flight=flight,
+    )
 
 
-@app.command()
+@_command(app)
 def report(
     flights: List[Path] = typer.Argument(..., help="Flight file(s) (JSON) from fit, simulate or analyze."),
     units: str = typer.Option("metric", "--units", help="metric or imperial."),
@@ -170,37 +180,29 @@ def report(
     out: Path = typer.Option(..., "-o", "--out", help="Report file to write."),
 ):
     """Write a report a coach can read: headline numbers, paths with and without spin, fit quality."""
-    try:
-        from .commands import run_report
+    from .commands import run_report
 
-        text = run_report(flights=flights, units=units, out=out, fmt=fmt, altitudes=what_if_altitude,
-                          temperatures=what_if_temperature)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_report(flights=flights, units=units, out=out, fmt=fmt, altitudes=what_if_altitude,
+                      temperatures=what_if_temperature)
 
 
-@app.command()
+@_command(app)
 def balls(models: bool = typer.Option(False, "--models", help="Also list the aerodynamic models.")):
     """List the ball catalogue (sizes from each game's rules) and the aerodynamic models."""
     from .commands import balls_text
 
-    _echo(balls_text(models))
+    return balls_text(models)
 
 
-@app.command()
+@_command(app)
 def demo(out: Path = typer.Option(Path("balltraj-demo"), "--out", help="Folder for the results.")):
     """Run the whole job on the bundled sample session and print a summary."""
-    try:
-        from .commands import run_demo
+    from .commands import run_demo
 
-        text = run_demo(out, show_progress=sys.stderr.isatty())
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_demo(out, show_progress=sys.stderr.isatty())
 
 
-@app.command()
+@_command(app)
 def track(
     clip: Path = typer.Argument(..., help="Video clip."),
     camera: Optional[Path] = typer.Option(None, "--camera", help="Camera file (gates the ball's size in pixels)."),
@@ -213,17 +215,13 @@ def track(
     out: Path = typer.Option(..., "-o", "--out", help="Observations CSV to write."),
 ):
     """Find and track the ball in a clip; write timed pixel observations, one flight id per throw."""
-    try:
-        from .commands import run_track
+    from .commands import run_track
 
-        text = run_track(clip=clip, camera=camera, ball=_ball(ball, ball_file), capture_fps=capture_fps, out=out,
-                         overlay=overlay, show_progress=sys.stderr.isatty(), start_s=start, end_s=end)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_track(clip=clip, camera=camera, ball=_ball(ball, ball_file), capture_fps=capture_fps, out=out,
+                     overlay=overlay, show_progress=sys.stderr.isatty(), start_s=start, end_s=end)
 
 
-@app.command()
+@_command(app)
 def analyze(
     clip: Path = typer.Argument(..., help="Video clip."),
     camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clip."),
@@ -243,19 +241,15 @@ def analyze(
     out: Path = typer.Option(..., "--out", help="Folder for observations.csv, flight.json and report.html."),
 ):
     """The whole job on one clip: track, fit in image space, report."""
-    try:
-        from .commands import run_analyze
+    from .commands import run_analyze
 
-        text = run_analyze(clip=clip, camera=camera, ball=_ball(ball, ball_file),
-                           air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
-                           start_near=start_near, start_sigma=start_sigma, capture_fps=capture_fps, out=out,
-                           labels={"athlete": athlete, "session": session}, show_progress=sys.stderr.isatty())
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_analyze(clip=clip, camera=camera, ball=_ball(ball, ball_file),
+                       air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
+                       start_near=start_near, start_sigma=start_sigma, capture_fps=capture_fps, out=out,
+                       labels={"athlete": athlete, "session": session}, show_progress=sys.stderr.isatty())
 
 
-@app.command()
+@_command(app)
 def render(
     flight: Path = typer.Argument(..., help="Flight file (e.g. from simulate) whose flight to show."),
     camera: Path = typer.Option(..., "--camera", help="Camera file to film it with."),
@@ -268,17 +262,13 @@ def render(
     out: Path = typer.Option(..., "-o", "--out", help="Clip to write (.mp4, mp4v codec); truth goes beside it."),
 ):
     """Render a synthetic practice clip of a flight, with its truth (for checks and demos)."""
-    try:
-        from .commands import run_render
+    from .commands import run_render
 
-        text = run_render(flight=flight, camera=camera, out=out, fps=fps, duration=duration, start=start,
-                          exposure=exposure, noise=noise, seed=seed)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_render(flight=flight, camera=camera, out=out, fps=fps, duration=duration, start=start,
+                      exposure=exposure, noise=noise, seed=seed)
 
 
-@app.command()
+@_command(app)
 def batch(
     folder: Path = typer.Argument(..., help="Folder of clips."),
     camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clips."),
@@ -300,17 +290,13 @@ def batch(
     ball_file: BallFileOpt = None,
 ):
     """Analyse every clip in a folder into the flight library; resumable, never doubles a clip."""
-    try:
-        from .commands import run_batch_cmd
+    from .commands import run_batch_cmd
 
-        text = run_batch_cmd(folder=folder, camera=camera, ball=_ball(ball, ball_file),
-                             air=_air(air_density, temperature, pressure, humidity, altitude), library=library,
-                             workers=workers, cluster=cluster, target_x=target_x, start_near=start_near,
-                             start_sigma=start_sigma, capture_fps=capture_fps, session=session, athlete=athlete,
-                             show_progress=sys.stderr.isatty())
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_batch_cmd(folder=folder, camera=camera, ball=_ball(ball, ball_file),
+                         air=_air(air_density, temperature, pressure, humidity, altitude), library=library,
+                         workers=workers, cluster=cluster, target_x=target_x, start_near=start_near,
+                         start_sigma=start_sigma, capture_fps=capture_fps, session=session, athlete=athlete,
+                         show_progress=sys.stderr.isatty())
 
 
 library_app = typer.Typer(rich_markup_mode=None, help="The flight library: list, show, export and compare analysed clips.",
@@ -318,32 +304,24 @@ library_app = typer.Typer(rich_markup_mode=None, help="The flight library: list,
 app.add_typer(library_app, name="library")
 
 
-@library_app.command("list")
+@_command(library_app, "list")
 def library_list(library: Path = typer.Argument(..., help="Library file.")):
     """One line a clip: status, flights, session, athlete."""
-    try:
-        from .commands import run_library_list
+    from .commands import run_library_list
 
-        text = run_library_list(library)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_library_list(library)
 
 
-@library_app.command("show")
+@_command(library_app, "show")
 def library_show(library: Path = typer.Argument(..., help="Library file."),
                  clip: str = typer.Argument(..., help="Clip id, path or file name.")):
     """The flights of one clip."""
-    try:
-        from .commands import run_library_show
+    from .commands import run_library_show
 
-        text = run_library_show(library, clip)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_library_show(library, clip)
 
 
-@library_app.command("export")
+@_command(library_app, "export")
 def library_export(
     library: Path = typer.Argument(..., help="Library file."),
     out: Path = typer.Option(..., "-o", "--out", help="CSV (or Parquet) file to write."),
@@ -351,16 +329,12 @@ def library_export(
     fmt: str = typer.Option("csv", "--format", help="csv or parquet."),
 ):
     """Export the library: one row a clip with source, status and the headline results."""
-    try:
-        from .commands import run_library_export
+    from .commands import run_library_export
 
-        text = run_library_export(library, out, per_flight, fmt)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_library_export(library, out, per_flight, fmt)
 
 
-@library_app.command("compare")
+@_command(library_app, "compare")
 def library_compare(
     library: Path = typer.Argument(..., help="Library file."),
     a: str = typer.Argument(..., help="First session or athlete."),
@@ -368,13 +342,9 @@ def library_compare(
     by: str = typer.Option("session", "--by", help="session or athlete."),
 ):
     """Mean and spread of speed, transverse spin and deflection for two sessions or athletes."""
-    try:
-        from .commands import run_library_compare
+    from .commands import run_library_compare
 
-        text = run_library_compare(library, by, a, b)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_library_compare(library, by, a, b)
 
 
 calibrate_app = typer.Typer(rich_markup_mode=None, help="Calibrate cameras: a printable board, the lens from board views, the scene "
@@ -382,7 +352,7 @@ calibrate_app = typer.Typer(rich_markup_mode=None, help="Calibrate cameras: a pr
 app.add_typer(calibrate_app, name="calibrate")
 
 
-@calibrate_app.command("board")
+@_command(calibrate_app, "board")
 def calibrate_board(
     cols: int = typer.Option(9, "--cols", help="Inner corners across."),
     rows: int = typer.Option(6, "--rows", help="Inner corners down."),
@@ -390,16 +360,12 @@ def calibrate_board(
     out: Path = typer.Option(..., "-o", "--out", help="Board file; writes NAME.png and NAME.pdf."),
 ):
     """Write a printable checkerboard (PNG and PDF) at a stated square size."""
-    try:
-        from .commands import run_calibrate_board
+    from .commands import run_calibrate_board
 
-        text = run_calibrate_board(cols=cols, rows=rows, square_mm=square_mm, out=out)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_calibrate_board(cols=cols, rows=rows, square_mm=square_mm, out=out)
 
 
-@calibrate_app.command("lens")
+@_command(calibrate_app, "lens")
 def calibrate_lens_cmd(
     inputs: List[Path] = typer.Argument(..., help="Images of the printed board, or a video of it."),
     cols: int = typer.Option(9, "--cols", help="Inner corners across."),
@@ -410,17 +376,13 @@ def calibrate_lens_cmd(
     out: Path = typer.Option(..., "-o", "--out", help="Lens (camera) file to write."),
 ):
     """Calibrate the lens (focal length, centre, distortion) from views of a checkerboard."""
-    try:
-        from .commands import run_calibrate_lens
+    from .commands import run_calibrate_lens
 
-        text = run_calibrate_lens(inputs=inputs, cols=cols, rows=rows, square_mm=square_mm, name=name, out=out,
-                                  every=every)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_calibrate_lens(inputs=inputs, cols=cols, rows=rows, square_mm=square_mm, name=name, out=out,
+                              every=every)
 
 
-@calibrate_app.command("scene")
+@_command(calibrate_app, "scene")
 def calibrate_scene_cmd(
     landmarks: Optional[Path] = typer.Option(None, "--landmarks", help="CSV of landmarks: x,y,z,u,v[,name]."),
     template: Optional[str] = typer.Option(None, "--template", help="Field markings: baseball-pitch, soccer-goal, "
@@ -432,17 +394,13 @@ def calibrate_scene_cmd(
     out: Path = typer.Option(..., "-o", "--out", help="Camera file to write."),
 ):
     """Place the camera in the world frame from landmarks whose positions are known."""
-    try:
-        from .commands import run_calibrate_scene
+    from .commands import run_calibrate_scene
 
-        text = run_calibrate_scene(landmarks=landmarks, template=template, points=points, lens=lens,
-                                   image_size=image_size, name=name, out=out)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_calibrate_scene(landmarks=landmarks, template=template, points=points, lens=lens,
+                               image_size=image_size, name=name, out=out)
 
 
-@app.command()
+@_command(app)
 def triangulate(
     observations: Path = typer.Argument(..., help="Observations CSV (t,camera,u,v) from two or more cameras."),
     camera: Path = typer.Option(..., "--camera", help="Rig file with every camera."),
@@ -450,13 +408,9 @@ def triangulate(
     out: Path = typer.Option(..., "-o", "--out", help="3D track CSV to write."),
 ):
     """Export a 3D track (t,x,y,z) triangulated from two or more calibrated cameras."""
-    try:
-        from .commands import run_triangulate
+    from .commands import run_triangulate
 
-        text = run_triangulate(observations=observations, camera=camera, out=out, flight=flight)
-    except BallTrajError as e:
-        _fail(e)
-    _echo(text)
+    return run_triangulate(observations=observations, camera=camera, out=out, flight=flight)
 
 
 def main() -> None:
