@@ -14,3 +14,10 @@ def write_section(name: str, body: str) -> None:
     new = re.sub(re.escape(start) + ".*?" + re.escape(end), lambda _: start + "\n" + body + "\n" + end, text,
                  flags=re.S)
     VALIDATION.write_text(new)
+
+
+def publish(name: str, lines: list[str]) -> None:
+    """Print a benchmark's table and write it into docs/validation.md."""
+    body = "\n".join(lines)
+    print(body)
+    write_section(name, body)

@@ -14,7 +14,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from _docs import write_section  # noqa: E402
+from _docs import publish  # noqa: E402
 from synth import make_track  # noqa: E402
 
 from balltraj.camera.model import look_at_camera  # noqa: E402
@@ -68,9 +68,7 @@ def main():
     for label, e in errs.items():
         lines.append(f"| {label} | {np.median(e['speed']):.2f} ({np.percentile(e['speed'], 95):.2f}) | "
                      f"{np.median(e['defl']):.2f} ({np.percentile(e['defl'], 95):.2f}) | {np.median(e['sigma']):.2f} |")
-    body = "\n".join(lines)
-    print(body)
-    write_section("camera-accuracy", body)
+    publish("camera-accuracy", lines)
 
 
 if __name__ == "__main__":

@@ -12,7 +12,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from _docs import write_section  # noqa: E402
+from _docs import publish  # noqa: E402
 from synth import make_track  # noqa: E402
 
 from balltraj.fitting.analysis import fit_record  # noqa: E402
@@ -53,9 +53,7 @@ def main():
              "| quantity | within one sigma |", "|---|---|"]
     for k, v in hits.items():
         lines.append(f"| {k} | {100 * np.mean(v):.1f} % |")
-    body = "\n".join(lines)
-    print(body)
-    write_section("coverage", body)
+    publish("coverage", lines)
 
 
 if __name__ == "__main__":

@@ -20,7 +20,7 @@ from balltraj.vision.render import Scene, render_clip
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from _docs import write_section  # noqa: E402
+from _docs import publish  # noqa: E402
 
 
 def main():
@@ -53,9 +53,7 @@ def main():
              "| exposure | noise (grey levels) | median error px | p95 error px | frames found |", "|---|---|---|---|---|"]
     for e, n, med, p95, fnd in rows:
         lines.append(f"| 1/{1 / e:.0f} s | {n:g} | {med:.3f} | {p95:.3f} | {100 * fnd:.0f} % |")
-    body = "\n".join(lines)
-    print(body)
-    write_section("detect-accuracy", body)
+    publish("detect-accuracy", lines)
 
 
 if __name__ == "__main__":

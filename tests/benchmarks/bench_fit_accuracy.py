@@ -17,7 +17,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from _docs import write_section  # noqa: E402
+from _docs import publish  # noqa: E402
 from synth import LAUNCHES, make_track  # noqa: E402
 
 from balltraj.fitting.analysis import fit_record  # noqa: E402
@@ -101,9 +101,7 @@ def main():
         ba = np.nanmedian([r[1]["axis"] for r in rows])
         text.append(f"| {ball} | {np.median(f):.2f} ({np.percentile(f, 95):.2f}) | {np.nanmedian(b):.2f} "
                     f"({np.nanpercentile(b, 95):.2f}) | {fa:.1f} ({ba:.1f}) |")
-    body = "\n".join(text)
-    print(body)
-    write_section("fit-accuracy", body)
+    publish("fit-accuracy", text)
 
 
 if __name__ == "__main__":
