@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from contextlib import contextmanager
 from dataclasses import dataclass
 
 import cv2
@@ -24,22 +25,23 @@ class TrackResult:
     warnings: list[str]
 
 
-def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None = None, *,
-               capture_fps: float | None = None, start_s: float = 0.0, end_s: float | None = None,
-               progress=None, overlay_path=None) -> TrackResult:
-    # Decoding keeps one core busy and detection the other; OpenCV's own worker pool, waking up for
-    # every small image operation, only adds contention (about 10 % of the wall time measured with
-    # tests/benchmarks/bench_track.py). Its setting is process-wide, so it is restored afterwards.
+@contextmanager
+def _opencv_single_threaded():
+    """Decoding keeps one core busy and detection the other; OpenCV's own worker pool, waking up for
+    every small image operation, only adds contention (about 10 % of the wall time measured with
+    tests/benchmarks/bench_track.py). Its setting is process-wide, so it is restored afterwards."""
     threads = cv2.getNumThreads()
     cv2.setNumThreads(1)
     try:
-        return _track_clip(path, camera, ball_radius_m, capture_fps=capture_fps, start_s=start_s, end_s=end_s,
-                           progress=progress, overlay_path=overlay_path)
+        yield
     finally:
         cv2.setNumThreads(threads)
 
 
-def _track_clip(path, camera, ball_radius_m, *, capture_fps, start_s, end_s, progress, overlay_path) -> TrackResult:
+@_opencv_single_threaded()
+def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None = None, *,
+               capture_fps: float | None = None, start_s: float = 0.0, end_s: float | None = None,
+               progress=None, overlay_path=None) -> TrackResult:
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):
         raise InputError(f"the camera file is for {camera.image_size[0]}x{camera.image_size[1]} frames but the "
