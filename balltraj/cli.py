@@ -58,32 +58,51 @@ def _command(group: typer.Typer, name: Optional[str] = None):
 
 
 def _ball(name: str, ball_file: Optional[Path]):
-    from .formats import read_ball_file
-    from .physics.balls import get_ball
+    from .commands.common import load_ball
 
-    extra = {}
-    if ball_file is not None:
-        b = read_ball_file(ball_file)
-        extra[b.name] = b
-    return get_ball(name, extra)
+    return load_ball(name, ball_file)
+
+
+def _si(text: Optional[str], kind: str, option: str) -> Optional[float]:
+    """An option's value in SI (bare numbers are SI; units such as 92mph are converted)."""
+    from .units import parse_quantity
+
+    return None if text is None else parse_quantity(text, kind, option)
 
 
 def _air(air_density, temperature, pressure, humidity, altitude):
-    from .physics.air import air_conditions
-    from .units import parse_quantity
+    from .commands.common import air_from
 
-    rho = None if air_density is None else parse_quantity(air_density, "density", "--air-density")
+    rho = _si(air_density, "density", "--air-density")
     if rho is not None and rho <= 0:
         raise InputError(f"--air-density must be positive, got {air_density}")
-    t = None if temperature is None else parse_quantity(temperature, "temperature", "--temperature")
     p = None
     if pressure is not None:
         # the contract's bare pressure is hPa; a unit (Pa, kPa, inHg) may be given
         bare = str(pressure).strip().replace(".", "", 1).lstrip("+-").isdigit()
-        p = parse_quantity(pressure, "pressure", "--pressure") * (100.0 if bare else 1.0)
-    h = None if humidity is None else parse_quantity(humidity, "temperature", "--humidity")
-    alt = None if altitude is None else parse_quantity(altitude, "length", "--altitude")
-    return air_conditions(density=rho, temperature_c=t, pressure_pa=p, humidity_pct=h, altitude_m=alt)
+        p = _si(pressure, "pressure", "--pressure") * (100.0 if bare else 1.0)
+    return air_from(density=rho, temperature_c=_si(temperature, "temperature", "--temperature"), pressure_pa=p,
+                    humidity_pct=_si(humidity, "temperature", "--humidity"),
+                    altitude_m=_si(altitude, "length", "--altitude"))
+
+
+def _vector(text: Optional[str], option: str):
+    from .units import parse_vector
+
+    return None if text is None else parse_vector(text, option)
+
+
+def _settings(ball, air, target_x, start_near, start_sigma, fit_drag=False, free_lift=False):
+    """The fit settings from the options, every unit in SI."""
+    import math
+
+    from .pipeline import FitSettings
+
+    if not (math.isfinite(start_sigma) and start_sigma > 0):
+        raise InputError(f"--start-sigma must be a positive number of metres, got {start_sigma}")
+    return FitSettings(ball=ball, air=air, target_x_m=_si(target_x, "length", "--target-x"),
+                       start_near_m=_vector(start_near, "--start-near"), start_sigma_m=start_sigma,
+                       fit_drag=fit_drag, free_lift=free_lift)
 
 
 # options shared by several commands, declared once
@@ -124,14 +143,29 @@ def simulate(
     out: Path = typer.Option(..., "-o", "--out", help="Flight file to write (JSON)."),
 ):
     """Predict a flight from a launch state and spin; write a flight file."""
-    from .commands import run_simulate
+    import math
 
+    from .commands.fit import run_simulate
+    from .pipeline import Launch
+    from .units import RPM
+
+    rate = _si(spin_rpm, "spin", "--spin-rpm")
+    bare = str(spin_rpm).strip().lstrip("+-").replace(".", "", 1).isdigit()
+    rate = rate * RPM if bare else rate  # a bare --spin-rpm is rpm
+    if not math.isfinite(rate) or rate < 0:
+        raise InputError(f"--spin-rpm must be zero or positive, got {spin_rpm}")
+    el = _si(elevation, "angle", "--elevation")
+    if abs(el) > math.pi / 2:
+        raise InputError(f"--elevation must be within -90..90 degrees, got {elevation}")
+    from .units import parse_vector
+
+    launch = Launch(position_m=_vector(position, "--position"), speed_mps=_si(speed, "speed", "--speed"),
+                    elevation_rad=el, azimuth_rad=_si(azimuth, "angle", "--azimuth"), spin_radps=rate,
+                    spin_axis=parse_vector(spin_axis, "--spin-axis", kind="length"))
     return run_simulate(
-        ball=_ball(ball, ball_file), air=_air(air_density, temperature, pressure, humidity, altitude),
-        position=position, speed=speed, elevation=elevation, azimuth=azimuth, spin_rpm=spin_rpm,
-        spin_axis=spin_axis, drag_coefficient=drag_coefficient, lift_model=lift_model,
-        lift_coefficient=lift_coefficient, spin_decay=spin_decay, target_x=target_x,
-        path_csv=path_csv, out=out,
+        ball=_ball(ball, ball_file), air=_air(air_density, temperature, pressure, humidity, altitude), launch=launch,
+        drag_coefficient=drag_coefficient, lift_model=lift_model, lift_coefficient=lift_coefficient,
+        spin_decay_s=spin_decay, target_x_m=_si(target_x, "length", "--target-x"), path_csv=path_csv, out=out,
     )
 
 
@@ -159,15 +193,12 @@ def fit(
     out: Path = typer.Option(..., "-o", "--out", help="Flight file (one input) or folder (several)."),
 ):
     """Fit the flight model to tracked positions: launch state, transverse spin, deflection."""
-    from .commands import run_fit
+    from .commands.fit import run_fit
 
-    return run_fit(
-        inputs=inputs, ball=_ball(ball, ball_file),
-        air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
-        start_near=start_near, start_sigma=start_sigma, fit_drag=fit_drag, free_lift=free_lift,
-        path_csv=path_csv, out=out, labels={"athlete": athlete, "session": session, "notes": notes},
-        camera=camera, flight=flight,
-    )
+    settings = _settings(_ball(ball, ball_file), _air(air_density, temperature, pressure, humidity, altitude),
+                         target_x, start_near, start_sigma, fit_drag, free_lift)
+    return run_fit(inputs=inputs, settings=settings, path_csv=path_csv, out=out,
+                   labels={"athlete": athlete, "session": session, "notes": notes}, camera=camera, flight=flight)
 
 
 @_command(app)
@@ -180,7 +211,7 @@ def report(
     out: Path = typer.Option(..., "-o", "--out", help="Report file to write."),
 ):
     """Write a report a coach can read: headline numbers, paths with and without spin, fit quality."""
-    from .commands import run_report
+    from .commands.report import run_report
 
     return run_report(flights=flights, units=units, out=out, fmt=fmt, altitudes=what_if_altitude,
                       temperatures=what_if_temperature)
@@ -189,15 +220,15 @@ def report(
 @_command(app)
 def balls(models: bool = typer.Option(False, "--models", help="Also list the aerodynamic models.")):
     """List the ball catalogue (sizes from each game's rules) and the aerodynamic models."""
-    from .commands import balls_text
+    from .commands.fit import run_balls
 
-    return balls_text(models)
+    return run_balls(models)
 
 
 @_command(app)
 def demo(out: Path = typer.Option(Path("balltraj-demo"), "--out", help="Folder for the results.")):
     """Run the whole job on the bundled sample session and print a summary."""
-    from .commands import run_demo
+    from .commands.demo import run_demo
 
     return run_demo(out, show_progress=sys.stderr.isatty())
 
@@ -215,7 +246,7 @@ def track(
     out: Path = typer.Option(..., "-o", "--out", help="Observations CSV to write."),
 ):
     """Find and track the ball in a clip; write timed pixel observations, one flight id per throw."""
-    from .commands import run_track
+    from .commands.video import run_track
 
     return run_track(clip=clip, camera=camera, ball=_ball(ball, ball_file), capture_fps=capture_fps, out=out,
                      overlay=overlay, show_progress=sys.stderr.isatty(), start_s=start, end_s=end)
@@ -241,11 +272,11 @@ def analyze(
     out: Path = typer.Option(..., "--out", help="Folder for observations.csv, flight.json and report.html."),
 ):
     """The whole job on one clip: track, fit in image space, report."""
-    from .commands import run_analyze
+    from .commands.video import run_analyze
 
-    return run_analyze(clip=clip, camera=camera, ball=_ball(ball, ball_file),
-                       air=_air(air_density, temperature, pressure, humidity, altitude), target_x=target_x,
-                       start_near=start_near, start_sigma=start_sigma, capture_fps=capture_fps, out=out,
+    settings = _settings(_ball(ball, ball_file), _air(air_density, temperature, pressure, humidity, altitude),
+                         target_x, start_near, start_sigma)
+    return run_analyze(clip=clip, camera=camera, settings=settings, capture_fps=capture_fps, out=out,
                        labels={"athlete": athlete, "session": session}, show_progress=sys.stderr.isatty())
 
 
@@ -262,7 +293,7 @@ def render(
     out: Path = typer.Option(..., "-o", "--out", help="Clip to write (.mp4, mp4v codec); truth goes beside it."),
 ):
     """Render a synthetic practice clip of a flight, with its truth (for checks and demos)."""
-    from .commands import run_render
+    from .commands.video import run_render
 
     return run_render(flight=flight, camera=camera, out=out, fps=fps, duration=duration, start=start,
                       exposure=exposure, noise=noise, seed=seed)
@@ -290,12 +321,12 @@ def batch(
     ball_file: BallFileOpt = None,
 ):
     """Analyse every clip in a folder into the flight library; resumable, never doubles a clip."""
-    from .commands import run_batch_cmd
+    from .commands.library import run_batch_cmd
 
-    return run_batch_cmd(folder=folder, camera=camera, ball=_ball(ball, ball_file),
-                         air=_air(air_density, temperature, pressure, humidity, altitude), library=library,
-                         workers=workers, cluster=cluster, target_x=target_x, start_near=start_near,
-                         start_sigma=start_sigma, capture_fps=capture_fps, session=session, athlete=athlete,
+    settings = _settings(_ball(ball, ball_file), _air(air_density, temperature, pressure, humidity, altitude),
+                         target_x, start_near, start_sigma)
+    return run_batch_cmd(folder=folder, camera=camera, settings=settings, library=library, workers=workers,
+                         cluster=cluster, capture_fps=capture_fps, session=session, athlete=athlete,
                          show_progress=sys.stderr.isatty())
 
 
@@ -307,7 +338,7 @@ app.add_typer(library_app, name="library")
 @_command(library_app, "list")
 def library_list(library: Path = typer.Argument(..., help="Library file.")):
     """One line a clip: status, flights, session, athlete."""
-    from .commands import run_library_list
+    from .commands.library import run_library_list
 
     return run_library_list(library)
 
@@ -316,7 +347,7 @@ def library_list(library: Path = typer.Argument(..., help="Library file.")):
 def library_show(library: Path = typer.Argument(..., help="Library file."),
                  clip: str = typer.Argument(..., help="Clip id, path or file name.")):
     """The flights of one clip."""
-    from .commands import run_library_show
+    from .commands.library import run_library_show
 
     return run_library_show(library, clip)
 
@@ -329,7 +360,7 @@ def library_export(
     fmt: str = typer.Option("csv", "--format", help="csv or parquet."),
 ):
     """Export the library: one row a clip with source, status and the headline results."""
-    from .commands import run_library_export
+    from .commands.library import run_library_export
 
     return run_library_export(library, out, per_flight, fmt)
 
@@ -342,7 +373,7 @@ def library_compare(
     by: str = typer.Option("session", "--by", help="session or athlete."),
 ):
     """Mean and spread of speed, transverse spin and deflection for two sessions or athletes."""
-    from .commands import run_library_compare
+    from .commands.library import run_library_compare
 
     return run_library_compare(library, by, a, b)
 
@@ -360,7 +391,7 @@ def calibrate_board(
     out: Path = typer.Option(..., "-o", "--out", help="Board file; writes NAME.png and NAME.pdf."),
 ):
     """Write a printable checkerboard (PNG and PDF) at a stated square size."""
-    from .commands import run_calibrate_board
+    from .commands.calibrate import run_calibrate_board
 
     return run_calibrate_board(cols=cols, rows=rows, square_mm=square_mm, out=out)
 
@@ -376,7 +407,7 @@ def calibrate_lens_cmd(
     out: Path = typer.Option(..., "-o", "--out", help="Lens (camera) file to write."),
 ):
     """Calibrate the lens (focal length, centre, distortion) from views of a checkerboard."""
-    from .commands import run_calibrate_lens
+    from .commands.calibrate import run_calibrate_lens
 
     return run_calibrate_lens(inputs=inputs, cols=cols, rows=rows, square_mm=square_mm, name=name, out=out,
                               every=every)
@@ -394,7 +425,7 @@ def calibrate_scene_cmd(
     out: Path = typer.Option(..., "-o", "--out", help="Camera file to write."),
 ):
     """Place the camera in the world frame from landmarks whose positions are known."""
-    from .commands import run_calibrate_scene
+    from .commands.calibrate import run_calibrate_scene
 
     return run_calibrate_scene(landmarks=landmarks, template=template, points=points, lens=lens,
                                image_size=image_size, name=name, out=out)
@@ -408,7 +439,7 @@ def triangulate(
     out: Path = typer.Option(..., "-o", "--out", help="3D track CSV to write."),
 ):
     """Export a 3D track (t,x,y,z) triangulated from two or more calibrated cameras."""
-    from .commands import run_triangulate
+    from .commands.calibrate import run_triangulate
 
     return run_triangulate(observations=observations, camera=camera, out=out, flight=flight)
 

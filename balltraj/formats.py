@@ -20,7 +20,9 @@ from typing import Any, Iterable, Mapping, Sequence
 import numpy as np
 
 from .errors import BallTrajError, InputError
+from .camera.model import Camera, cameras_from_json
 from .physics.balls import Ball, ball_from_dict
+from .record.schema import SCHEMA, missing_keys
 
 MAX_INPUT_BYTES = 200 * 1024 * 1024
 _UMASK = os.umask(0o022)
@@ -287,31 +289,19 @@ def read_ball_file(path) -> Ball:
         raise e.with_path(str(path)) from None
 
 
-FLIGHT_KEYS = {
-    "launch": ["t_s", "position_m", "velocity_mps", "speed_mps", "elevation_deg", "azimuth_deg"],
-    "spin": ["rate_rpm", "transverse_rate_rpm", "transverse_axis", "axis", "gyro_observed"],
-    "aero": ["drag_coefficient", "lift_coefficient", "spin_parameter", "reynolds_number"],
-    "deflection": ["target_x_m", "horizontal_m", "vertical_m"],
-    "fit": ["n_points", "n_outliers", "rms_residual", "residual_unit"],
-}
-
-
 def read_flight_file(path) -> dict:
-    """Read and check a flight file (schema balltraj.flight/1)."""
-    from .fitting.record import SCHEMA
-
+    """Read and check a flight file (:data:`balltraj.record.schema.SCHEMA`, its required keys)."""
     d = read_json(path)
     if not isinstance(d, dict):
         raise InputError("a flight file must hold a JSON object", path=str(path))
     if d.get("schema") != SCHEMA:
         raise InputError(f"schema is {d.get('schema')!r}, expected {SCHEMA!r}", path=str(path),
                          hint="write it again with this version of balltraj")
-    for sec, keys in FLIGHT_KEYS.items():
-        if not isinstance(d.get(sec), dict):
-            raise InputError(f"missing section {sec!r}", path=str(path))
-        for k in keys:
-            if k not in d[sec]:
-                raise InputError(f"missing key {sec}.{k}", path=str(path))
+    missing = missing_keys(d)
+    if missing:
+        what = "section" if "." not in missing[0] else "key"
+        raise InputError(f"missing {what} {missing[0]!r}" if what == "section" else f"missing key {missing[0]}",
+                         path=str(path))
     for k in ("position_m", "velocity_mps"):
         v = d["launch"][k]
         if not (isinstance(v, list) and len(v) == 3 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
@@ -336,6 +326,21 @@ class Observations:
 
     def __len__(self) -> int:
         return len(self.t)
+
+    def one_flight(self, flight: int | None = None) -> "Observations":
+        """The observations of one flight: the only one, or flight number ``flight``."""
+        if self.flight is None:
+            return self
+        ids = sorted(set(self.flight.tolist()))
+        if flight is None:
+            if len(ids) > 1:
+                raise InputError(f"the file holds {len(ids)} flights ({', '.join(f'{i:g}' for i in ids)})",
+                                 path=self.path, hint="choose one with --flight N")
+            return self
+        if flight not in ids:
+            raise InputError(f"there is no flight {flight} (flights: {', '.join(f'{i:g}' for i in ids)})",
+                             path=self.path)
+        return self.select(self.flight == flight)
 
     def select(self, mask) -> "Observations":
         m = np.asarray(mask, bool)
@@ -374,11 +379,33 @@ def read_observations_csv(path) -> Observations:
     return Observations(str(path), t, list(cams), uv, radius, quality, flight)
 
 
-def read_cameras(path):
+def read_cameras(path) -> list[Camera]:
     """Read a camera file or a rig file into a list of cameras."""
-    from .camera.model import cameras_from_json
-
     try:
         return cameras_from_json(read_json(path))
     except BallTrajError as e:
         raise e.with_path(str(path)) from None
+
+
+@dataclass(frozen=True)
+class CameraObservations:
+    """Pixel observations of one flight together with the cameras that made them."""
+
+    observations: Observations
+    cameras: list[Camera]
+
+    @property
+    def path(self) -> str:
+        return self.observations.path
+
+
+def read_fit_input(path, cameras: list[Camera] | None = None, flight: int | None = None) -> Track | CameraObservations:
+    """Read what ``fit`` fits: a 3D track (columns t,x,y,z) or, with cameras, pixel observations
+    (columns t,camera,u,v) of one flight. The header decides which."""
+    cols = set(csv_columns(path))
+    if {"u", "v", "camera"} <= cols:
+        if cameras is None:
+            raise InputError("this file holds pixel observations (t,camera,u,v); give --camera CAMERA.json",
+                             path=str(path))
+        return CameraObservations(read_observations_csv(path).one_flight(flight), list(cameras))
+    return read_track_csv(path)

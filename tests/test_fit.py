@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from balltraj.errors import FitError
-from balltraj.fitting.analysis import fit_record
+from balltraj.record.build import fit_record
 from balltraj.fitting.baseline import baseline_summary, fit_constant_acceleration
 from balltraj.fitting.flight_fit import FitOptions, fit_flight
 from balltraj.physics.flight import FlightModel, FlightParameters, fly, transverse_spin

@@ -106,16 +106,17 @@ def test_ball_reader_fuzz(tmp_path_factory, data):
 @settings(max_examples=40)
 @given(data=st.data())
 def test_flight_reader_fuzz(tmp_path_factory, data):
-    from balltraj.commands import run_simulate
+    from balltraj.pipeline import Launch, simulate
+    from balltraj.formats import write_json
     from balltraj.physics.air import air_conditions
     from balltraj.physics.balls import get_ball
 
     d = tmp_path_factory.mktemp("f")
     good = d / "good.json"
     if not good.exists():
-        run_simulate(ball=get_ball("baseball"), air=air_conditions(), position="0,0,1.8", speed="40", elevation="0",
-                     azimuth="0", spin_rpm="2000", spin_axis="0,-1,0", drag_coefficient=None, lift_model=None,
-                     lift_coefficient=None, spin_decay=None, target_x="18", path_csv=None, out=good)
+        res = simulate(Launch((0, 0, 1.8), 40.0, 0.0, 0.0, 2000 * 2 * 3.141592653589793 / 60, (0, -1, 0)),
+                       get_ball("baseball"), air_conditions(), target_x_m=18.0)
+        write_json(good, res.record)
     content = mutate(good.read_text(), data) if data.draw(st.booleans()) else data.draw(text)
     rec = check_reader(d, read_flight_file, content, "flight.json")
     if rec is not None:

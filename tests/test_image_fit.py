@@ -8,7 +8,7 @@ from typer.testing import CliRunner
 
 from balltraj.camera.model import look_at_camera
 from balltraj.cli import app
-from balltraj.fitting.analysis import fit_record
+from balltraj.record.build import fit_record
 from balltraj.fitting.flight_fit import FitOptions
 from balltraj.fitting.image_fit import fit_flight_image
 from balltraj.physics.reference import plane_deflection

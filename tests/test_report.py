@@ -8,7 +8,7 @@ import pytest
 from typer.testing import CliRunner
 
 from balltraj.cli import app
-from balltraj.report.paths import record_paths, what_if
+from balltraj.record.refly import record_paths, what_if
 
 from synth import make_track, write_track
 

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 
 from balltraj.camera.model import look_at_camera
-from balltraj.fitting.record import simulate_record
+from balltraj.record.build import simulate_record
 from balltraj.formats import write_csv
 from balltraj.physics.air import air_conditions
 from balltraj.physics.balls import get_ball

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
-from balltraj.fitting.record import simulate_record
+from balltraj.record.build import simulate_record
 from balltraj.physics.air import air_conditions
 from balltraj.physics.balls import get_ball
 from balltraj.physics.flight import FlightModel, FlightParameters, fly, launch_state

@@ -1,5 +1,5 @@
-"""Analysing clips: one clip to flight records (tracking + image-space fit), and batches of clips
-on local worker processes or a Dask cluster, recorded in the flight library.
+"""Batches of clips on local worker processes or a Dask cluster, each clip analysed by
+:func:`balltraj.pipeline.analyze_clip` and recorded in the flight library.
 
 Workers only compute; the parent process writes each finished clip to the library in one
 transaction, so a killed batch loses at most the clips in flight, and a rerun does exactly those.
@@ -14,56 +14,19 @@ from pathlib import Path
 from typing import Callable
 
 from ..errors import BallTrajError, InputError
+from ..formats import read_cameras
+from ..pipeline import ClipInput, FitSettings, analyze_clip
 
 CLIP_EXTENSIONS = {".mp4", ".mov", ".avi", ".mkv", ".m4v"}
 
 
-def analyze_clip_records(clip, cams, ball, air, *, target_x=None, start_near=None, start_sigma=0.3,
-                         capture_fps=None, progress=None):
-    """Track the ball in a clip and fit every flight in image space.
-
-    Returns (records, track_result, failures); raises InputError when no flight is found or none
-    could be fitted.
-    """
-    from ..fitting.analysis import fit_record
-    from ..fitting.flight_fit import FitOptions
-    from ..fitting.image_fit import fit_flight_image
-    from ..physics.flight import FlightModel
-    from ..vision.pipeline import no_ball_error, track_clip
-
-    cam = cams[0]
-    res = track_clip(clip, cam, ball.radius_m, capture_fps=capture_fps, progress=progress)
-    if not res.flights:
-        raise no_ball_error(clip, res)
-    model = FlightModel.for_ball(ball, air)
-    opts = FitOptions(start_near=start_near, start_sigma=start_sigma)
-    recs, failures = [], []
-    for f in res.flights:
-        try:
-            fit = fit_flight_image(model, f.t, [cam.name] * len(f.t), f.uv, [cam], radius_px=f.radius_px, options=opts)
-            rec, _ = fit_record(fit, ball, air, model, target_x=target_x, source=f"{clip}#flight-{f.flight}")
-        except BallTrajError as e:
-            failures.append(f"flight {f.flight}: {e.one_line()}")
-            continue
-        rec["clip"] = {"path": str(clip), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
-                       "end_reason": f.end_reason}
-        rec["air_note"] = air.source
-        recs.append(rec)
-    if not recs:
-        raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip),
-                         hint="check the camera file, or give --start-near")
-    return recs, res, failures
-
-
 @dataclass(frozen=True)
 class BatchTask:
+    """One clip to analyse (picklable: local processes and Dask workers receive it)."""
+
     clip: str
     camera_file: str
-    ball: dict  # Ball.to_dict() (workers rebuild it)
-    air: dict  # air_conditions keyword arguments
-    target_x: float | None = None
-    start_near: tuple | None = None
-    start_sigma: float = 0.3
+    settings: FitSettings
     capture_fps: float | None = None
 
 
@@ -73,21 +36,11 @@ def run_task(task: BatchTask) -> dict:
 
     os.environ.setdefault("OPENCV_LOG_LEVEL", "OFF")
     os.environ.setdefault("OPENCV_FFMPEG_LOGLEVEL", "-8")
-    from ..formats import read_cameras
-    from ..physics.air import air_conditions
-    from ..physics.balls import Ball
-
     t0 = time.time()
     try:
-        b = dict(task.ball)
-        for k in ("mass_range_kg", "diameter_range_m", "lift_envelope"):
-            b[k] = tuple(b[k])
-        ball = Ball(**b)
-        cams = read_cameras(task.camera_file)
-        recs, _, failures = analyze_clip_records(task.clip, cams, ball, air_conditions(**task.air),
-                                                 target_x=task.target_x, start_near=task.start_near,
-                                                 start_sigma=task.start_sigma, capture_fps=task.capture_fps)
-        return {"clip": task.clip, "records": recs, "error": None, "warnings": failures, "started": t0}
+        clip = ClipInput(Path(task.clip), read_cameras(task.camera_file), capture_fps=task.capture_fps)
+        res = analyze_clip(clip, task.settings)
+        return {"clip": task.clip, "records": res.records, "error": None, "warnings": res.failures, "started": t0}
     except BallTrajError as e:
         return {"clip": task.clip, "records": None, "error": e.one_line(), "warnings": [], "started": t0}
     except Exception as e:  # noqa: BLE001 - one broken clip must not stop the batch

@@ -22,6 +22,7 @@ from typing import Iterable
 from .. import __version__
 from ..errors import InputError
 from ..formats import json_safe
+from ..record.schema import HEADLINE_COLUMNS, headline_values
 
 SCHEMA_VERSION = 1
 
@@ -46,6 +47,7 @@ MIGRATIONS = {
             tool_version TEXT NOT NULL,
             started_at REAL, finished_at REAL,
             UNIQUE (content_hash, options_hash))""",
+        # the headline columns of balltraj.record.schema.HEADLINE_COLUMNS, as they were at version 1
         """CREATE TABLE IF NOT EXISTS flights (
             id INTEGER PRIMARY KEY,
             clip_id INTEGER NOT NULL REFERENCES clips(id) ON DELETE CASCADE,
@@ -133,18 +135,13 @@ class Library:
                 (path, content_hash, opt_hash, camera_hash, ball, json.dumps(options, sort_keys=True, default=str),
                  status, error, len(records or []), sid, aid, __version__, started_at, time.time()))
             clip_id = cur.lastrowid
+            cols = ", ".join(HEADLINE_COLUMNS)
+            marks = ",".join("?" * (len(HEADLINE_COLUMNS) + 3))
             for i, rec in enumerate(records or []):
-                L, S, D, U = rec["launch"], rec["spin"], rec["deflection"], rec.get("uncertainty", {})
-                c.execute(
-                    "INSERT INTO flights(clip_id, flight_index, launch_speed_mps, elevation_deg, azimuth_deg, "
-                    "transverse_rate_rpm, transverse_rate_sigma_rpm, drag_coefficient, lift_coefficient, target_x_m, "
-                    "deflection_horizontal_m, deflection_vertical_m, deflection_horizontal_sigma_m, "
-                    "deflection_vertical_sigma_m, record_json) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
-                    (clip_id, i + 1, L["speed_mps"], L["elevation_deg"], L["azimuth_deg"], S["transverse_rate_rpm"],
-                     (U.get("spin") or {}).get("transverse_rate_rpm"), rec["aero"]["drag_coefficient"],
-                     rec["aero"]["lift_coefficient"], D["target_x_m"], D["horizontal_m"], D["vertical_m"],
-                     (U.get("deflection") or {}).get("horizontal_m"), (U.get("deflection") or {}).get("vertical_m"),
-                     json.dumps(json_safe(rec), allow_nan=False)))
+                head = headline_values(rec)
+                c.execute(f"INSERT INTO flights(clip_id, flight_index, {cols}, record_json) VALUES ({marks})",
+                          (clip_id, i + 1, *(head[k] for k in HEADLINE_COLUMNS),
+                           json.dumps(json_safe(rec), allow_nan=False)))
         return True
 
     # ------------------------------------------------------------------ reading
@@ -244,14 +241,12 @@ def _open_library(path, *, create: bool) -> Library:
 
 def export_rows(lib: Library, per_flight: bool = False) -> tuple[list[str], Iterable[list]]:
     """Rows for export: one a clip (first flight's headline numbers) or one a flight."""
-    header = ["source", "status", "session", "athlete", "ball", "n_flights", "flight", "launch_speed_mps",
-              "elevation_deg", "azimuth_deg", "transverse_rate_rpm", "transverse_rate_sigma_rpm", "drag_coefficient",
-              "lift_coefficient", "target_x_m", "deflection_horizontal_m", "deflection_vertical_m",
-              "deflection_horizontal_sigma_m", "deflection_vertical_sigma_m", "error", "content_hash", "tool_version"]
+    header = ["source", "status", "session", "athlete", "ball", "n_flights", "flight", *HEADLINE_COLUMNS,
+              "error", "content_hash", "tool_version"]
     flights = {}
     for f in lib.flights():
         flights.setdefault(f["clip_id"], []).append(f)
-    cols = header[7:19]
+    cols = list(HEADLINE_COLUMNS)
 
     def rows():
         for c in lib.clips():

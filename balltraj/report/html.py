@@ -15,7 +15,7 @@ import numpy as np
 from .. import __version__
 from ..units import RPM, length_text, speed_text, spin_text
 from . import plots
-from .paths import record_paths, what_if
+from ..record.refly import record_paths, what_if
 
 CAUTIONS = [
     "Keep people and cameras out of the ball's path: use netting or a safe angle when filming.",

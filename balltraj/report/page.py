@@ -11,7 +11,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 
 from . import plots  # noqa: E402
 from .html import CAUTIONS, headline  # noqa: E402
-from .paths import record_paths  # noqa: E402
+from ..record.refly import record_paths  # noqa: E402
 
 
 def one_page(rec: dict, title: str, units: str = "metric", fmt: str = "png") -> bytes:

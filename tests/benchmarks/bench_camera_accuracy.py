@@ -18,7 +18,7 @@ from _docs import publish  # noqa: E402
 from synth import make_track  # noqa: E402
 
 from balltraj.camera.model import look_at_camera  # noqa: E402
-from balltraj.fitting.analysis import fit_record  # noqa: E402
+from balltraj.record.build import fit_record  # noqa: E402
 from balltraj.fitting.flight_fit import FitOptions  # noqa: E402
 from balltraj.fitting.image_fit import fit_flight_image  # noqa: E402
 from balltraj.physics.reference import plane_deflection  # noqa: E402

@@ -20,7 +20,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _docs import publish  # noqa: E402
 from synth import LAUNCHES, make_track  # noqa: E402
 
-from balltraj.fitting.analysis import fit_record  # noqa: E402
+from balltraj.record.build import fit_record  # noqa: E402
 from balltraj.fitting.flight_fit import fit_flight  # noqa: E402
 from balltraj.physics.flight import transverse_spin  # noqa: E402
 from balltraj.physics.reference import plane_deflection  # noqa: E402
