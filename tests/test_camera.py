@@ -35,7 +35,7 @@ def test_projection_matches_opencv(rng):
 
 
 def test_undistortion_matches_opencv(rng):
-    # Source: cv2.undistortPoints with tight criteria (VISION-NOTES: default iterations err at strong distortion)
+    # Source: cv2.undistortPoints with tight criteria (docs/opencv-notes.md: default iterations err at strong distortion)
     cam = random_camera(rng)
     uv = rng.uniform([0, 0], [1280, 720], (300, 2))
     ours = cam.undistort_normalised(uv, iterations=200)

@@ -65,7 +65,7 @@ def test_fit_air_from_conditions_is_written(track, tmp_path):
     r = runner.invoke(app, ["fit", str(p), "--ball", "baseball", "--temperature", "30", "--pressure", "898.7629",
                             "--humidity", "50", "-o", str(out)])
     assert r.exit_code == 0, r.output
-    # Source: CIPM-2007 check value, REFERENCES.md 5.5 (30 degC, 50 %, 89876.29 Pa -> 1.023880)
+    # Source: CIPM-2007 check value, docs/references.md 5.5 (30 degC, 50 %, 89876.29 Pa -> 1.023880)
     assert json.loads(out.read_text())["air"]["density_kg_m3"] == pytest.approx(1.023880, abs=2e-6)
 
 

@@ -1,7 +1,7 @@
 """Calibration: the lens from checkerboard views, the scene (camera pose) from landmarks.
 
 Uses OpenCV (findChessboardCorners + cornerSubPix, calibrateCamera, solvePnP + solvePnPRefineLM);
-see shared VISION-NOTES for the measured behaviour these choices rest on (tilted views needed;
+see docs/opencv-notes.md for the measured behaviour these choices rest on (tilted views needed;
 EPnP avoided with four coplanar points).
 """
 
@@ -295,7 +295,7 @@ def calibrate_scene(world, pixels, names, lens: Camera | None, image_size, name:
 
 
 def _solve_pnp(world, pix, K, dist):
-    """First finite pose from ITERATIVE, then SQPnP (VISION-NOTES: no EPnP with 4 coplanar points)."""
+    """First finite pose from ITERATIVE, then SQPnP (docs/opencv-notes.md: no EPnP with 4 coplanar points)."""
     for method in (cv2.SOLVEPNP_ITERATIVE, cv2.SOLVEPNP_SQPNP):
         try:
             ok, rvec, tvec = cv2.solvePnP(world, pix, K, dist, flags=method)

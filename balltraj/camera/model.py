@@ -151,7 +151,7 @@ def _num_list(v, n, key):
 
 
 def camera_from_dict(d) -> Camera:
-    """Validate a camera object of the camera-file contract (DESIGN section 4)."""
+    """Validate a camera object of the camera-file contract (docs/formats.md)."""
     if not isinstance(d, dict):
         raise InputError("a camera must be a JSON object")
     for key in ("name", "image_size", "K", "dist", "rvec", "tvec"):

@@ -103,7 +103,7 @@ def standard_pressure_at_altitude(altitude_m):
     U.S. Standard Atmosphere 1976 (NOAA/NASA/USAF), eq. 33a; ISO 2533:1975.
 
     >>> round(float(standard_pressure_at_altitude(1000.0)), 0)
-    89875.0
+    89876.0
     """
     z = np.asarray(altitude_m, dtype=float)
     h = _EARTH_R0 * z / (_EARTH_R0 + z)

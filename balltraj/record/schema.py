@@ -1,4 +1,4 @@
-"""The flight-file contract (DESIGN.md section 4): schema id, required keys, and the headline
+"""The flight-file contract (docs/formats.md): schema id, required keys, and the headline
 columns shared by ``summary.csv``, the SQLite library and its exports, declared once here.
 
 >>> HEADLINE_COLUMNS[:3]

@@ -1,0 +1,71 @@
+"""Option parsing at the edge: every value with a unit becomes an SI float here, once; the options
+several commands share are declared once."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from ..errors import InputError
+from ..units import parse_quantity, parse_vector
+
+
+def ball_option(name: str, ball_file: Optional[Path]):
+    """The ball named by ``--ball`` (and defined by ``--ball-file``)."""
+    from ..commands.common import load_ball
+
+    return load_ball(name, ball_file)
+
+
+def si(text: Optional[str], kind: str, option: str) -> Optional[float]:
+    """An option's value in SI (bare numbers are SI; units such as 92mph are converted)."""
+    return None if text is None else parse_quantity(text, kind, option)
+
+
+def air_options(air_density, temperature, pressure, humidity, altitude):
+    """The air from the air options: density, or weather and altitude (bare pressure is hPa)."""
+    from ..commands.common import air_from
+
+    rho = si(air_density, "density", "--air-density")
+    if rho is not None and rho <= 0:
+        raise InputError(f"--air-density must be positive, got {air_density}")
+    p = None
+    if pressure is not None:
+        # the contract's bare pressure is hPa; a unit (Pa, kPa, inHg) may be given
+        bare = str(pressure).strip().replace(".", "", 1).lstrip("+-").isdigit()
+        p = si(pressure, "pressure", "--pressure") * (100.0 if bare else 1.0)
+    return air_from(density=rho, temperature_c=si(temperature, "temperature", "--temperature"), pressure_pa=p,
+                    humidity_pct=si(humidity, "temperature", "--humidity"),
+                    altitude_m=si(altitude, "length", "--altitude"))
+
+
+def vector(text: Optional[str], option: str, kind: str = "length"):
+    """A vector option X,Y,Z in SI (each component may carry a unit)."""
+    return None if text is None else parse_vector(text, option)
+
+
+def fit_settings(ball, air, target_x, start_near, start_sigma, fit_drag=False, free_lift=False):
+    """The fit settings from the options, every unit in SI."""
+    from ..pipeline import FitSettings
+
+    if not (math.isfinite(start_sigma) and start_sigma > 0):
+        raise InputError(f"--start-sigma must be a positive number of metres, got {start_sigma}")
+    return FitSettings(ball=ball, air=air, target_x_m=si(target_x, "length", "--target-x"),
+                       start_near_m=vector(start_near, "--start-near"), start_sigma_m=start_sigma,
+                       fit_drag=fit_drag, free_lift=free_lift)
+
+
+# options shared by several commands, declared once
+AirDensityOpt = Annotated[Optional[str], typer.Option("--air-density", help="Air density [kg/m^3]; or give "
+                                                       "--temperature/--pressure/--humidity/--altitude.")]
+TemperatureOpt = Annotated[Optional[str], typer.Option("--temperature", help="Air temperature [deg C].")]
+PressureOpt = Annotated[Optional[str], typer.Option("--pressure", help="Station pressure [hPa] (or 101325pa).")]
+HumidityOpt = Annotated[Optional[str], typer.Option("--humidity", help="Relative humidity [%].")]
+AltitudeOpt = Annotated[Optional[str], typer.Option("--altitude", help="Altitude above sea level [m] (or 5280ft).")]
+BallFileOpt = Annotated[Optional[Path], typer.Option("--ball-file", help="JSON file defining an extra ball.")]
+StartNearOpt = Annotated[Optional[str], typer.Option("--start-near", help="Rough start point X,Y,Z [m] (release point, ball spot).")]
+StartSigmaOpt = Annotated[float, typer.Option("--start-sigma", help="How rough --start-near is [m].")]
+CaptureFpsOpt = Annotated[Optional[float], typer.Option("--capture-fps", help="True capture rate of a slow-motion file stored time-stretched.")]
