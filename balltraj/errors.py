@@ -11,10 +11,14 @@ from __future__ import annotations
 class BallTrajError(Exception):
     """A problem with the user's input or request, with an optional file and a hint."""
 
-    def __init__(self, problem: str, *, path: str | None = None, hint: str | None = None):
+    def __init__(self, problem: str, *, path: str | None = None, hint: str | None = None,
+                 about: str | None = None):
         self.problem = problem
         self.path = path
         self.hint = hint
+        #: which input the problem is about, in domain words (``"target_x"``, ``"start_near"``...);
+        #: the CLI maps it to its option name, so low layers never name command-line flags
+        self.about = about
         super().__init__(self.one_line())
 
     def one_line(self) -> str:

@@ -335,7 +335,7 @@ class Observations:
         if flight is None:
             if len(ids) > 1:
                 raise InputError(f"the file holds {len(ids)} flights ({', '.join(f'{i:g}' for i in ids)})",
-                                 path=self.path, hint="choose one with --flight N")
+                                 path=self.path, hint="choose one flight by its number", about="flight")
             return self
         if flight not in ids:
             raise InputError(f"there is no flight {flight} (flights: {', '.join(f'{i:g}' for i in ids)})",
@@ -405,7 +405,7 @@ def read_fit_input(path, cameras: list[Camera] | None = None, flight: int | None
     cols = set(csv_columns(path))
     if {"u", "v", "camera"} <= cols:
         if cameras is None:
-            raise InputError("this file holds pixel observations (t,camera,u,v); give --camera CAMERA.json",
-                             path=str(path))
+            raise InputError("this file holds pixel observations (t,camera,u,v); they are fitted through the "
+                             "camera file of the camera that made them", path=str(path), about="camera")
         return CameraObservations(read_observations_csv(path).one_flight(flight), list(cameras))
     return read_track_csv(path)

@@ -112,3 +112,13 @@ def test_settings_reject_a_non_positive_start_uncertainty():
 
     with pytest.raises(InputError, match="positive number of metres"):
         pipeline.FitSettings(get_ball("soccer"), air_conditions(), start_sigma_m=0.0)
+
+
+def test_low_layer_errors_name_the_option_only_at_the_cli():
+    from balltraj.cli.app import error_line
+    from balltraj.errors import PhysicsError
+
+    e = PhysicsError("the flight does not come down ahead of the launch point", hint="give a target plane",
+                     about="target_x")
+    assert "--" not in e.one_line()  # the low layer speaks in domain words
+    assert error_line(e).endswith("(see --target-x)")

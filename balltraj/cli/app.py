@@ -30,8 +30,21 @@ def _echo(text: str = "") -> None:
     typer.echo(text)
 
 
+#: the option that sets each input a low layer can complain about (BallTrajError.about)
+OPTION_FOR = {"target_x": "--target-x", "start_near": "--start-near", "ball": "--ball", "ball_file": "--ball-file",
+              "capture_fps": "--capture-fps", "flight": "--flight", "camera": "--camera", "lens": "--lens",
+              "board_size": "--cols/--rows"}
+
+
+def error_line(err: BallTrajError) -> str:
+    """The one line a user sees for an error, naming the option it is about."""
+    text = err.one_line()
+    option = OPTION_FOR.get(err.about or "")
+    return f"{text} (see {option})" if option and option not in text else text
+
+
 def _fail(err: BallTrajError) -> None:
-    typer.echo(f"error: {err.one_line()}", err=True)
+    typer.echo(f"error: {error_line(err)}", err=True)
     raise typer.Exit(2)
 
 

@@ -115,7 +115,7 @@ def simulate_record(ball: Ball, air: AirConditions, model: FlightModel, state0, 
         tg, sg = tr.first_crossing(2, 0.0, -1)
         if not np.isfinite(tg[0]) or sg[0, 0] <= s0[0]:
             raise PhysicsError("the flight does not come down ahead of the launch point within 30 s",
-                               hint="give --target-x")
+                               hint="give a target plane", about="target_x")
         target_x = float(sg[0, 0])
     d = plane_deflection(model, t0, s0, params, target_x, max_step=max_step)
     rec: dict[str, Any] = {
