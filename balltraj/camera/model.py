@@ -22,7 +22,20 @@ from ..errors import InputError
 
 
 def rodrigues(rvec) -> np.ndarray:
-    """Rotation matrix of a rotation vector (axis * angle)."""
+    """Rotation matrix of a rotation vector (axis times angle), as ``cv2.Rodrigues``.
+
+    Parameters
+    ----------
+    rvec : array_like, shape (3,) [rad]
+
+    Returns
+    -------
+    ndarray, shape (3, 3)
+
+    >>> import numpy as np
+    >>> np.round(rodrigues([0, 0, np.pi / 2]) @ [1, 0, 0], 12).tolist()
+    [0.0, 1.0, 0.0]
+    """
     r = np.asarray(rvec, dtype=float).reshape(3)
     th = float(np.linalg.norm(r))
     if th < 1e-12:
@@ -33,7 +46,7 @@ def rodrigues(rvec) -> np.ndarray:
 
 
 def rotation_vector(R) -> np.ndarray:
-    """Rotation vector of a rotation matrix (inverse of :func:`rodrigues`)."""
+    """Rotation vector, shape (3,) [rad], of a rotation matrix, shape (3, 3) (inverse of :func:`rodrigues`)."""
     R = np.asarray(R, dtype=float)
     c = (np.trace(R) - 1) / 2
     th = math.acos(max(-1.0, min(1.0, c)))
@@ -76,10 +89,12 @@ class Camera:
         return 0.5 * (self.K[0, 0] + self.K[1, 1])
 
     def to_cam(self, X) -> np.ndarray:
+        """World points, shape (..., 3) [m] -> camera coordinates R X + t, shape (..., 3) [m]."""
         return np.asarray(X, dtype=float) @ self.R.T + self.tvec
 
     def distort(self, xn) -> np.ndarray:
-        """Normalised undistorted (..., 2) -> normalised distorted (..., 2)."""
+        """Brown–Conrady distortion: normalised undistorted coordinates, shape (..., 2) -> normalised
+        distorted coordinates, shape (..., 2) (k1, k2, k3 radial; p1, p2 tangential; OpenCV order)."""
         k1, k2, p1, p2, k3 = self.dist
         x, y = xn[..., 0], xn[..., 1]
         r2 = x * x + y * y
@@ -89,7 +104,18 @@ class Camera:
         return np.stack([xd, yd], axis=-1)
 
     def project(self, X) -> np.ndarray:
-        """World points (..., 3) -> pixels (..., 2). Points behind the camera give NaN."""
+        """Project world points.
+
+        Parameters
+        ----------
+        X : array_like, shape (..., 3) [m]
+            Points in the world frame.
+
+        Returns
+        -------
+        ndarray, shape (..., 2) [px]
+            Pixel positions (origin top-left, x right, y down); NaN for points behind the camera.
+        """
         Xc = self.to_cam(X)
         z = Xc[..., 2]
         zs = np.where(z > 1e-9, z, np.nan)
@@ -101,6 +127,7 @@ class Camera:
         return np.stack([u, v], axis=-1)
 
     def depth(self, X) -> np.ndarray:
+        """Distance along the optical axis [m] of world points, shape (..., 3) -> (...)."""
         return self.to_cam(X)[..., 2]
 
     def undistort_normalised(self, uv, iterations: int = 50) -> np.ndarray:
@@ -122,7 +149,19 @@ class Camera:
         return np.stack([x, y], axis=-1)
 
     def rays(self, uv) -> tuple[np.ndarray, np.ndarray]:
-        """Back-projection: (origin (3,), unit directions (..., 3)) in world coordinates."""
+        """Back-project pixels into rays.
+
+        Parameters
+        ----------
+        uv : array_like, shape (..., 2) [px]
+
+        Returns
+        -------
+        origin : ndarray, shape (3,) [m]
+            The camera centre in the world frame.
+        directions : ndarray, shape (..., 3)
+            Unit ray directions in the world frame (lens distortion removed).
+        """
         xn = self.undistort_normalised(uv)
         d_cam = np.concatenate([xn, np.ones(xn.shape[:-1] + (1,))], axis=-1)
         d = d_cam @ self.R  # R^T d for row vectors

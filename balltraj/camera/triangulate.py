@@ -10,7 +10,19 @@ from .model import Camera
 
 
 def triangulate_points(cameras: list[Camera], uvs: list[np.ndarray]) -> np.ndarray:
-    """Points (N, 3) from matching pixels in each camera (uvs[k] is (N, 2); NaN rows skip a view)."""
+    """Triangulate points seen by several cameras (the linear DLT solution over all views, by SVD).
+
+    Parameters
+    ----------
+    cameras : list of Camera
+    uvs : list of ndarray, each shape (N, 2) [px]
+        The pixels of the same N points in each camera; a NaN row skips that view.
+
+    Returns
+    -------
+    ndarray, shape (N, 3) [m]
+        World points; NaN where fewer than two views see a point.
+    """
     n = uvs[0].shape[0]
     rows = []
     for cam, uv in zip(cameras, uvs):

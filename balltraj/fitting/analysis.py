@@ -23,7 +23,24 @@ DERIVED = ["speed_mps", "elevation_deg", "azimuth_deg", "transverse_rate_rpm", "
 
 
 def aero_at(model: FlightModel, velocity, spin, lift_override: float = float("nan")) -> dict:
-    """Coefficients at one instant: C_D, C_L, S (transverse), Re."""
+    """Aerodynamic coefficients at one instant.
+
+    Parameters
+    ----------
+    model : FlightModel
+    velocity : array_like, shape (3,) [m/s]
+        Ball velocity (the wind of the model is taken off).
+    spin : array_like, shape (3,) [rad/s]
+        Spin vector; only its part across the air-relative velocity counts.
+    lift_override : float
+        A constant C_L to report instead of the lift law (NaN: use the law).
+
+    Returns
+    -------
+    dict
+        ``drag_coefficient``, ``lift_coefficient``, ``spin_parameter`` (S = r |w_perp| / |v|) and
+        ``reynolds_number``.
+    """
     v = np.asarray(velocity, dtype=float) - np.asarray(model.wind_mps)
     speed = float(np.linalg.norm(v))
     w = np.asarray(spin, dtype=float)
@@ -71,7 +88,7 @@ def _wrap_deg(d):
 
 
 def states_at(model: FlightModel, t0: float, states, params: FlightParameters, t_new: float) -> np.ndarray:
-    """Batched states (B, 6) moved from t0 to t_new along their flights."""
+    """States, shape (B, 6) [m, m/s] at ``t0`` [s], moved to ``t_new`` [s] along their flights."""
     if t_new == t0:
         return np.asarray(states, float)
     tr = integrate(model, t0, states, params, (min(t0, t_new), max(t0, t_new)), max_step=0.01)
@@ -95,7 +112,8 @@ def launch_time(fit: FlightFit, model: FlightModel) -> float:
 
 def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
                           t_launch: float | None = None) -> tuple[dict, np.ndarray]:
-    """One-sigma uncertainties of the derived quantities and of the deflection (delta method,
+    """One-sigma uncertainties [the quantities' own units] of the derived quantities and of the
+    deflection at ``target_x`` [m], and the 2 x 2 deflection covariance [m^2] (delta method,
     central differences, one batched integration for all deflections)."""
     p = fit.params
     k = len(p)
