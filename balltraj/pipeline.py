@@ -6,6 +6,7 @@ workbench. Each entry point reads top to bottom as the recipe it is:
 - :func:`fit_input` — either of the two, as read by :func:`balltraj.formats.read_fit_input`
 - :func:`track` — a clip (+ camera) → timed pixel observations of each flight
 - :func:`analyze_clip` — a clip → tracking → one image-space fit per flight → flight records
+- :func:`analyze_rig` — one clip per camera of a rig, unsynchronised → one fit per flight through all cameras
 - :func:`simulate` — a launch state and spin → predicted flight → flight record
 
 Inputs are typed objects (files are read by :mod:`balltraj.formats`); every quantity is SI.
@@ -15,7 +16,7 @@ Nothing here prints or touches files other than reading the clip it is given.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Callable, Optional, Sequence
 
@@ -244,6 +245,81 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip.path),
                          hint="check the camera file, or give a start point")
     return ClipResult(records, res, failures)
+
+
+def analyze_rig(clips: Sequence[ClipInput], settings: FitSettings, *, progress: Progress = None) -> ClipResult:
+    """The whole job on one clip per camera of a rig, filmed unsynchronised: track each clip, pair
+    each flight of the first camera with the same flight in the others (the clock offsets found by
+    triangulating the two tracks consistently, then fitted with the flight), fit each flight through
+    all cameras at once. Times and the launch are on the first camera's clock.
+
+    Raises
+    ------
+    InputError
+        When a clip has no camera, the first clip has no flight, or no flight could be fitted.
+    """
+    if len(clips) < 2:
+        return analyze_clip(clips[0], settings, progress=progress)
+    if any(c.camera is None for c in clips):
+        raise InputError("every clip of a rig is analysed through its own camera; one has none")
+    results = [track(c, settings.ball, progress=progress) for c in clips]
+    if not results[0].flights:
+        raise no_ball_error(clips[0].path, results[0])
+    records, failures = [], []
+    first = replace(clips[0].camera, time_offset_s=0.0)  # times and the launch on the first camera's clock
+    for f in results[0].flights:
+        cams = [first]
+        parts = [_flight_observations(clips[0].path, f, clips[0].camera.name)]
+        for clip, res in zip(clips[1:], results[1:]):
+            match = _matching_flight(first, f, clip.camera, res.flights)
+            if match is None:
+                failures.append(f"flight {f.flight}: not seen by camera {clip.camera.name!r}")
+                continue
+            g, offset = match
+            cams.append(replace(clip.camera, time_offset_s=offset))
+            parts.append(_flight_observations(clip.path, g, clip.camera.name))
+        data = CameraObservations(_concatenate(parts, f"{clips[0].path}#flight-{f.flight}"), cams)
+        try:
+            rec = fit_observations(data, settings).record
+        except BallTrajError as e:
+            failures.append(f"flight {f.flight}: {e.one_line()}")
+            continue
+        rec["source"] = f"{clips[0].path}#flight-{f.flight}"
+        rec["clip"] = {"path": str(clips[0].path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
+                       "end_reason": f.end_reason, "cameras": [c.name for c in cams],
+                       "other_clips": [str(c.path) for c in clips[1:]]}
+        records.append(rec)
+    if not records:
+        raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures),
+                         path=str(clips[0].path), hint="check the rig file and that every camera saw the flight")
+    return ClipResult(records, results[0], failures)
+
+
+#: an offset is accepted when the two cameras' tracks triangulate to within this [px] (median)
+MATCH_REPROJECTION_PX = 6.0
+
+
+def _matching_flight(cam_a: Camera, f, cam_b: Camera, flights) -> tuple | None:
+    """The flight of camera b that is flight ``f`` of camera a (whose clock is the rig's), and b's
+    clock offset [s] (b's time + offset = a's time)."""
+    from .camera.triangulate import estimate_time_offset
+
+    best = None
+    for g in flights:
+        # coarse guess: the rig file's offset, or the two tracks starting together
+        for guess in {cam_b.time_offset_s, float(f.t[0] - g.t[0])}:
+            off, err = estimate_time_offset(cam_a, f.t, f.uv, cam_b, g.t, g.uv, guess_s=guess, search_s=0.3)
+            if err < MATCH_REPROJECTION_PX and (best is None or err < best[2]):
+                best = (g, off, err)
+    return None if best is None else best[:2]
+
+
+def _concatenate(parts, path: str):
+    from .formats import Observations
+
+    return Observations(path, np.concatenate([p.t for p in parts]), [c for p in parts for c in p.camera],
+                        np.concatenate([p.uv for p in parts]), np.concatenate([p.radius_px for p in parts]),
+                        np.concatenate([p.quality for p in parts]), None)
 
 
 def _flight_observations(path, f, camera_name: str):

@@ -86,3 +86,57 @@ def triangulate_observations(t, camera_names, uv, cameras: list[Camera]):
     xyz = triangulate_points(cams, uvs)
     ok = np.all(np.isfinite(xyz), axis=1)
     return t_ref[ok], xyz[ok]
+
+
+def reprojection_spread(cam_a: Camera, t_a, uv_a, cam_b: Camera, t_b, uv_b, offset_s: float) -> tuple[float, int]:
+    """Median reprojection error [px] of the points triangulated from two cameras' tracks when
+    camera b's clock runs ``offset_s`` [s] behind camera a's (b's time + offset = a's time), and
+    the number of points that overlap in time."""
+    t_a = np.asarray(t_a, float)
+    uv_b_at_a = interpolate_track(np.asarray(t_b, float) + offset_s, np.asarray(uv_b, float), t_a)
+    ok = np.all(np.isfinite(uv_b_at_a), axis=1)
+    if ok.sum() < 4:
+        return float("inf"), int(ok.sum())
+    X = triangulate_points([cam_a, cam_b], [np.asarray(uv_a, float)[ok], uv_b_at_a[ok]])
+    good = np.all(np.isfinite(X), axis=1)
+    if good.sum() < 4:
+        return float("inf"), int(good.sum())
+    err = np.concatenate([np.linalg.norm(cam_a.project(X[good]) - np.asarray(uv_a, float)[ok][good], axis=1),
+                          np.linalg.norm(cam_b.project(X[good]) - uv_b_at_a[ok][good], axis=1)])
+    err = np.where(np.isfinite(err), err, 1e6)  # a point triangulated behind a camera: far off
+    return float(np.median(err)), int(good.sum())
+
+
+def estimate_time_offset(cam_a: Camera, t_a, uv_a, cam_b: Camera, t_b, uv_b, *, guess_s: float = 0.0,
+                         search_s: float = 0.5, step_s: float = 0.002) -> tuple[float, float]:
+    """The clock offset [s] between two unsynchronised cameras that film the same flight: the shift
+    of camera b's times that makes the two tracks triangulate most consistently (a scan of the
+    median reprojection error over ``guess_s`` ± ``search_s``, refined by a parabola through the
+    best three steps). Returns (offset [s], median reprojection error there [px]); the error is
+    infinite when the tracks never overlap.
+
+    Parameters
+    ----------
+    cam_a, cam_b : Camera
+    t_a, t_b : array_like, shape (N,), (M,) [s]
+        Each camera's own observation times.
+    uv_a, uv_b : array_like, shape (N, 2), (M, 2) [px]
+    """
+    # the two tracks must overlap by at least a quarter of the shorter one
+    grid = np.arange(guess_s - search_s, guess_s + search_s + step_s / 2, step_s)
+    need = max(4, min(len(t_a), len(t_b)) // 4)
+    costs = np.full(len(grid), np.inf)
+    for i, o in enumerate(grid):
+        err, n = reprojection_spread(cam_a, t_a, uv_a, cam_b, t_b, uv_b, float(o))
+        if n >= need:
+            costs[i] = err
+    k = int(np.argmin(costs))
+    if not np.isfinite(costs[k]):
+        return float(guess_s), float("inf")
+    best = float(grid[k])
+    if 0 < k < len(grid) - 1 and np.all(np.isfinite(costs[k - 1:k + 2])):
+        c0, c1, c2 = costs[k - 1:k + 2]
+        den = c0 - 2 * c1 + c2
+        if den > 0:
+            best += 0.5 * step_s * (c0 - c2) / den
+    return best, float(costs[k])
