@@ -128,7 +128,7 @@ def test_pose_from_soccer_goal_landmarks():
     tpl = TEMPLATES["soccer-goal"]
     names = list(tpl["points"])
     world = np.array([tpl["points"][n] for n in names])
-    truth = look_at_camera("cam", [24.0, -4.0, 5.0], [7.0, 0.0, 0.5], 700, (1280, 720))
+    truth = look_at_camera("cam", [-24.0, 4.0, 5.0], [-7.0, 0.0, 0.5], 700, (1280, 720))  # field at x < 0
     rng = np.random.default_rng(3)
     pix = truth.project(world)
     seen = np.all(np.isfinite(pix), axis=1) & (pix[:, 0] > 0) & (pix[:, 0] < 1280) & (pix[:, 1] > 0) & (pix[:, 1] < 720)
