@@ -110,3 +110,20 @@ def test_anchor_choice_order_and_settings():
     assert apply_anchor(Settings(), none) == Settings()
     assert isinstance(a, Anchor) and a.as_tuple()[2] == "ground contact"
     assert math.isfinite(gp.horizontal_sigma_m)
+
+
+def test_bounce_contact_placed_on_the_ground():
+    # Source: invariant - a ball falling onto the plane z = R at a known point and rebounding, seen by a
+    # camera behind and above; the contact pixel from the two tracks meets the plane near that point
+    cam = look_at_camera("c", [-6.0, 1.0, 4.0], [14.0, 0.0, 0.0], 1200, (1280, 720))
+    R, contact, tc = 0.033, np.array([12.0, 0.5, 0.033]), 0.4
+    g = np.array([0, 0, -9.81])
+    vin, vout = np.array([20.0, 0.0, -6.0]), np.array([15.0, 0.0, 4.0])
+    tb = tc - np.arange(1, 10)[::-1] / 240
+    ta = tc + np.arange(1, 10) / 240
+    Xb = contact + np.outer(tb - tc, vin) + 0.5 * np.outer((tb - tc) ** 2, g)
+    Xa = contact + np.outer(ta - tc, vout) + 0.5 * np.outer((ta - tc) ** 2, g)
+    uv, t, gap = bounce_pixel(tb, cam.project(Xb), ta, cam.project(Xa))
+    gp = ground_point(cam, uv, R, pixel_sigma_px=max(0.5, gap))
+    assert abs(t - tc) < 2e-3
+    assert np.linalg.norm(gp.position_m - contact) < 3 * gp.sigma_m * math.sqrt(3) + 0.01

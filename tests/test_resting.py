@@ -46,3 +46,14 @@ def test_no_resting_ball_when_the_flight_comes_from_outside(clip):
     path, fl = clip
     res = find_resting_ball(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"] - 80] for r in fl])
     assert res.ball is None and res.reason
+
+
+def test_depth_anchor_prefers_the_resting_ball_over_a_hint(clip):
+    # Source: invariant - the anchor chosen for the flight is the ground contact at the rendered spot
+    from balltraj.vision.resting import depth_anchor
+
+    path, fl = clip
+    anchor, search = depth_anchor(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"]] for r in fl],
+                                  radius_px=[r["radius_px"] for r in fl], hint=((0.0, 0.0, 1.0), 0.3))
+    assert anchor.name == "ground contact" and search.ball is not None
+    assert np.linalg.norm(np.asarray(anchor.start_near_m) - REST) < 0.05

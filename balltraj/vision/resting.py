@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from ..camera.anchors import GroundPoint, ground_point
+from ..camera.anchors import Anchor, GroundPoint, bounce_pixel, choose_anchor, ground_point
 from ..camera.model import Camera
 from ..errors import BallTrajError
 from .clip import read_frames
@@ -251,4 +251,49 @@ def find_resting_ball(path, camera: Camera, ball_radius_m: float, flight_t, flig
                                f"flight {flight}")
 
 
-__all__ = ["RestingBall", "RestingSearch", "find_resting_ball"]
+def depth_anchor(path, camera: Camera, ball_radius_m: float, flight_t, flight_uv, *, flight: int = 1,
+                 radius_px=None, previous=None, hint=None, zone=None, capture_fps: float | None = None,
+                 calibration_rms_px: float = 0.0) -> tuple[Anchor, RestingSearch]:
+    """What fixes the depth of one tracked flight seen by one camera: a ball at rest where it starts,
+    else a bounce that starts it (the previous flight ending on a bounce just before), else the
+    user's hint, else a template zone, else the apparent size (see
+    :func:`balltraj.camera.anchors.choose_anchor`).
+
+    Parameters
+    ----------
+    path, camera, ball_radius_m, flight_t, flight_uv, flight, capture_fps, calibration_rms_px
+        As for :func:`find_resting_ball`.
+    radius_px : array_like, shape (N,) [px], optional
+        The flight's apparent radii (only whether any is finite matters).
+    previous : (t (M,), uv (M, 2)), optional
+        The flight just before, when it ended on a bounce [s, px].
+    hint : ((x, y, z), sigma), optional
+        The user's start point and its sigma [m].
+    zone : (centre (3,), sigma, label), optional
+        A template launch zone (:func:`balltraj.camera.calibrate.launch_zone`) [m].
+
+    Returns
+    -------
+    (Anchor, RestingSearch)
+        The chosen anchor and the resting-ball search (its reason says why none was found).
+    """
+    search = find_resting_ball(path, camera, ball_radius_m, flight_t, flight_uv, flight=flight,
+                               capture_fps=capture_fps, calibration_rms_px=calibration_rms_px)
+    bounce = None
+    if search.ball is None and previous is not None:
+        tp, up = np.asarray(previous[0], float), np.asarray(previous[1], float)
+        t = np.asarray(flight_t, float)
+        if len(tp) >= 3 and len(t) >= 3 and 0 <= t[0] - tp[-1] <= 0.05:
+            try:
+                uv_c, _, gap = bounce_pixel(tp, up, t, flight_uv)
+                bounce = ground_point(camera, uv_c, ball_radius_m, pixel_sigma_px=max(0.5, gap),
+                                      calibration_rms_px=calibration_rms_px)
+            except BallTrajError:
+                bounce = None
+    radii = radius_px is not None and bool(np.isfinite(np.asarray(radius_px, float)).any())
+    anchor = choose_anchor(resting=None if search.ball is None else search.ball.anchor, bounce=bounce, hint=hint,
+                           zone=zone, radii_observed=radii)
+    return anchor, search
+
+
+__all__ = ["RestingBall", "RestingSearch", "find_resting_ball", "depth_anchor"]
