@@ -13,7 +13,8 @@ Per kick and camera:
   3 % per-clip scale error and 0.3 px noise (tracking a whole clip per kick would take minutes);
 - the same observations are fitted with no anchor at all (apparent size only) for the coverage check.
 
-Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py [N]
+Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py [N]          (about 25 s per kick)
+     PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py tracked [N]  (whole clips tracked, ~75 s per kick)
 Targets: with a resting ball, median launch-speed error <= 1 %, deflection error <= max(3 cm, 5 %);
 with no anchor, one-sigma coverage 60-80 %.
 """
@@ -38,7 +39,8 @@ from balltraj.physics.balls import get_ball  # noqa: E402
 from balltraj.physics.flight import FlightModel  # noqa: E402
 from balltraj.record.build import fit_record  # noqa: E402
 from balltraj.vision.render import Scene, render_clip  # noqa: E402
-from balltraj.vision.resting import find_resting_ball  # noqa: E402
+from balltraj.vision.pipeline import track_clip  # noqa: E402
+from balltraj.vision.resting import depth_anchor, find_resting_ball  # noqa: E402
 
 CD = 0.22
 FPS = 240.0
@@ -194,7 +196,105 @@ def run(n):
     return rows
 
 
+def _fit_metrics(model, ball, air, sol, cam, t, uv, r, opts):
+    """(metrics dict or None, failure text)."""
+    try:
+        fit = fit_flight_image(model, t, [cam.name] * len(t), uv, [cam], radius_px=r, options=opts)
+        rec, _ = fit_record(fit, ball, air, model, target_x=TARGET_X)
+    except Exception as exc:  # a failed fit is a result of the benchmark
+        return None, str(exc).split(";")[0]
+    sp, dh, dv = truth_metrics(sol, rec["launch"]["t_s"])
+    u = rec["uncertainty"]
+    return {"speed_err": abs(rec["launch"]["speed_mps"] / sp - 1) * 100,
+            "defl_err": math.hypot(rec["deflection"]["horizontal_m"] - dh, rec["deflection"]["vertical_m"] - dv),
+            "z": [(rec["launch"]["speed_mps"] - sp) / u["launch"]["speed_mps"],
+                  (rec["deflection"]["horizontal_m"] - dh) / u["deflection"]["horizontal_m"],
+                  (rec["deflection"]["vertical_m"] - dv) / u["deflection"]["vertical_m"]]}, ""
+
+
+def run_tracked(n):
+    """Whole clips: render, track (balltraj.vision), find the resting ball, fit with the tracker's own
+    pixels and radii (contrast-dependent radius bias included)."""
+    global _BALL, _RHO
+    ball = get_ball("soccer")
+    air = air_conditions()
+    _BALL, _RHO = ball, air.density
+    model = FlightModel.for_ball(ball, air, drag_coefficient=CD)
+    R = model.radius_m
+    rng = np.random.default_rng(777)
+    tmp = Path(tempfile.mkdtemp(prefix="bench_single_tracked_"))
+    rows = {}
+    for k in range(n):
+        s0, spin = kick(rng, ball)
+        sol = truth_flight(ball, air.density, s0, spin)
+        for label, cam in cameras(rng).items():
+            e = rows.setdefault(label, {"rest": [], "none": [], "anchor": [], "why": []})
+
+            def pos(tt, sol=sol, rest=s0[:3]):
+                tt = np.asarray(tt, float)
+                out = np.tile(rest, (len(tt), 1))
+                m = tt > T_LAUNCH
+                if m.any():
+                    out[m] = sol(tt[m])[:3].T
+                return out
+
+            clip = tmp / f"t{k}_{label.replace(' ', '_')}.mp4"
+            render_clip(Scene(cam, fps=FPS, duration_s=T_LAUNCH + 0.85, ball_radius_m=R, flights=[(0.0, 2.0, pos)],
+                              clutter=4, seed=100 + k), clip)
+            res = track_clip(clip, cam, R)
+            if not res.flights:
+                e["why"].append("no flight tracked")
+                clip.unlink()
+                continue
+            f = max(res.flights, key=lambda f: len(f.t))
+            anchor, search = depth_anchor(clip, cam, R, f.t[:10], f.uv[:10], flight=f.flight, radius_px=f.radius_px)
+            clip.unlink()
+            e["anchor"].append(anchor.name)
+            for mode, opts in (("rest", FitOptions(start_near=anchor.start_near_m, start_sigma=anchor.start_sigma_m)),
+                               ("none", FitOptions())):
+                if mode == "rest" and anchor.start_near_m is None:
+                    e["why"].append(search.reason)
+                    continue
+                m, why = _fit_metrics(model, ball, air, sol, cam, f.t, f.uv, f.radius_px, opts)
+                e[mode].append(m)
+                if why:
+                    e["why"].append(f"{mode}: {why}")
+        print(f"tracked kick {k + 1}/{n} done", flush=True)
+    return rows
+
+
+def _row(label, name, res, extra):
+    ok = [x for x in res if x is not None]
+    if not ok:
+        return f"| {label} | {name} | {extra} | 0/{len(res)} | – | – | – |"
+    sp = np.array([x["speed_err"] for x in ok])
+    de = np.array([x["defl_err"] for x in ok]) * 100
+    cov = np.mean(np.abs(np.array([x["z"] for x in ok])) <= 1.0) * 100
+    return (f"| {label} | {name} | {extra} | {len(ok)}/{len(res)} | {np.median(sp):.2f} ({sp.max():.2f}) | "
+            f"{np.median(de):.1f} ({de.max():.1f}) | {cov:.0f} % |")
+
+
+def main_tracked(n):
+    rows = run_tracked(n)
+    lines = [f"Whole rendered clips, {n} seeded free kicks per camera, tracked by balltraj.vision (its own pixels "
+             "and radii), depth anchor by `depth_anchor`, no hint. Command: `PYTHONPATH=$PWD python "
+             f"tests/benchmarks/bench_single_camera.py tracked {n}`", "",
+             "| camera | depth from | anchor chosen | fits that gave a record | launch speed error % median (max) "
+             "| deflection error cm median (max) | one-sigma coverage |", "|---|---|---|---|---|---|---|"]
+    for label, e in rows.items():
+        names = ", ".join(f"{a} {e['anchor'].count(a)}" for a in sorted(set(e["anchor"])))
+        lines.append(_row(label, "chosen anchor", e["rest"], names))
+        lines.append(_row(label, "nothing (apparent size)", e["none"], "–"))
+    whys = sorted({w for e in rows.values() for w in e["why"]})
+    if whys:
+        lines += ["", "Failures: " + "; ".join(whys[:6])]
+    publish("single-camera-tracked", lines)
+
+
 def main():
+    if len(sys.argv) > 1 and sys.argv[1] == "tracked":
+        main_tracked(int(sys.argv[2]) if len(sys.argv) > 2 else 2)
+        return
     n = int(sys.argv[1]) if len(sys.argv) > 1 else 8
     rows = run(n)
     lines = [f"One camera, {n} seeded free kicks per set-up (soccer ball, 24-31 m/s, 300-700 rpm, 240 fps, "
