@@ -57,3 +57,14 @@ def test_depth_anchor_prefers_the_resting_ball_over_a_hint(clip):
                                   radius_px=[r["radius_px"] for r in fl], hint=((0.0, 0.0, 1.0), 0.3))
     assert anchor.name == "ground contact" and search.ball is not None
     assert np.linalg.norm(np.asarray(anchor.start_near_m) - REST) < 0.05
+
+
+def test_frames_overlapping_the_rest_spot_are_dropped(clip):
+    # Source: invariant - the detector's background keeps the resting ball for a while; observations within
+    # two ball radii of the spot are the ones that overlap it, those farther are kept
+    from balltraj.vision.resting import clear_of_rest_spot
+
+    path, fl = clip
+    b = find_resting_ball(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"]] for r in fl]).ball
+    uv = np.array([b.uv + [1.0, 0.0], b.uv + [2 * b.radius_px + 1.0, 0.0], b.uv + [2 * b.radius_px + 3.0, 0.0]])
+    assert clear_of_rest_spot(b, uv, [b.radius_px] * 3).tolist() == [False, False, True]

@@ -251,6 +251,35 @@ def find_resting_ball(path, camera: Camera, ball_radius_m: float, flight_t, flig
                                f"flight {flight}")
 
 
+def clear_of_rest_spot(ball: RestingBall, uv, radius_px=None, streak_px=None, margin_px: float = 2.0) -> np.ndarray:
+    """Which flight observations are clear of the spot the ball rested on.
+
+    The flight detector's background keeps the resting ball for a while after it leaves (a
+    ghost), so a ball image that still overlaps the spot is measured together with the ghost:
+    its centroid is pulled back toward the spot and it looks streaked. Those frames are dropped.
+
+    Parameters
+    ----------
+    ball : RestingBall
+    uv : array_like, shape (N, 2) [px]
+    radius_px, streak_px : array_like, shape (N,) [px], optional
+        The detector's radius and streak length of each observation.
+    margin_px : float [px]
+
+    Returns
+    -------
+    ndarray of bool, shape (N,)
+        True where the observation is clear of the spot.
+    """
+    uv = np.asarray(uv, float)
+    n = len(uv)
+    r = np.full(n, ball.radius_px) if radius_px is None else np.nan_to_num(np.asarray(radius_px, float),
+                                                                             nan=ball.radius_px)
+    s = np.zeros(n) if streak_px is None else np.nan_to_num(np.asarray(streak_px, float))
+    dist = np.linalg.norm(uv - ball.uv, axis=1)
+    return dist > ball.radius_px + r + 0.5 * s + margin_px
+
+
 def depth_anchor(path, camera: Camera, ball_radius_m: float, flight_t, flight_uv, *, flight: int = 1,
                  radius_px=None, previous=None, hint=None, zone=None, capture_fps: float | None = None,
                  calibration_rms_px: float = 0.0) -> tuple[Anchor, RestingSearch]:
@@ -296,4 +325,4 @@ def depth_anchor(path, camera: Camera, ball_radius_m: float, flight_t, flight_uv
     return anchor, search
 
 
-__all__ = ["RestingBall", "RestingSearch", "find_resting_ball", "depth_anchor"]
+__all__ = ["RestingBall", "RestingSearch", "find_resting_ball", "clear_of_rest_spot", "depth_anchor"]
