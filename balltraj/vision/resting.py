@@ -114,7 +114,7 @@ def _matte_moments(diff, threshold):
 
 
 def find_resting_ball(path, camera: Camera, ball_radius_m: float, flight_t, flight_uv, *, flight: int = 1,
-                      before_s: float = 0.5, after_s: float = (0.06, 0.2), capture_fps: float | None = None,
+                      before_s: float = 0.5, after_s: tuple[float, float] = (0.06, 0.2), capture_fps: float | None = None,
                       pixel_sigma_floor_px: float = 0.3, calibration_rms_px: float = 0.0) -> RestingSearch:
     """Find the ball resting where a flight starts, in the frames before launch.
 
