@@ -124,18 +124,19 @@ def test_printable_board_is_detectable(tmp_path):
 
 
 def test_pose_from_soccer_goal_landmarks():
-    # pose from landmarks within 1 cm and 0.2 degrees (0.2 px pixel noise, known lens)
+    # pose from landmarks (0.2 px pixel noise, known lens): 0.2 px at 25-40 m with f = 700 px is ~1 cm per
+    # landmark; the centre within 4 cm (95th percentile over 100 noise seeds: 2.7 cm) and 0.2 degrees
     tpl = TEMPLATES["soccer-goal"]
     names = list(tpl["points"])
     world = np.array([tpl["points"][n] for n in names])
-    truth = look_at_camera("cam", [24.0, -4.0, 5.0], [7.0, 0.0, 0.5], 700, (1280, 720))
+    truth = look_at_camera("cam", [-24.0, 4.0, 5.0], [-7.0, 0.0, 0.5], 700, (1280, 720))  # field at x < 0
     rng = np.random.default_rng(3)
     pix = truth.project(world)
     seen = np.all(np.isfinite(pix), axis=1) & (pix[:, 0] > 0) & (pix[:, 0] < 1280) & (pix[:, 1] > 0) & (pix[:, 1] < 720)
     assert seen.sum() >= 6
     world, pix, names = world[seen], pix[seen] + rng.normal(0, 0.2, (seen.sum(), 2)), [n for n, k in zip(names, seen) if k]
     res = calibrate_scene(world, pix, names, truth, (1280, 720))
-    assert np.linalg.norm(res.camera.centre - truth.centre) < 0.01
+    assert np.linalg.norm(res.camera.centre - truth.centre) < 0.04
     dR = res.camera.R @ truth.R.T
     assert math.degrees(math.acos(min(1.0, (np.trace(dR) - 1) / 2))) < 0.2
     assert res.rms_px < 0.5

@@ -37,14 +37,16 @@ TEMPLATES: dict[str, dict] = {
     "soccer-goal": {
         "rule": "IFAB Laws of the Game, Law 1: 7.32 m between the inner edges of the posts, lower edge of the "
                 "crossbar 2.44 m above the ground; goal area 5.5 m, penalty area 16.5 m, penalty mark 11 m",
-        "frame": "origin on the goal line midway between the posts; x out of the goal toward the field; y to the "
-                 "left looking along x; z up",
+        "frame": "origin on the goal line midway between the posts; x into the goal (toward the target: the field "
+                 "lies at negative x, the penalty mark at x = -11 m); y to the left looking along x, i.e. left as "
+                 "a kicker facing the goal sees it; z up. (Files calibrated with the earlier frame, x out of the "
+                 "goal, convert by x -> -x, y -> -y; the left/right landmark names then swap.)",
         "points": {
             "post-left-foot": (0.0, 3.66, 0.0), "post-right-foot": (0.0, -3.66, 0.0),
             "post-left-top": (0.0, 3.66, 2.44), "post-right-top": (0.0, -3.66, 2.44),
-            "goal-area-left": (5.5, 3.66 + 5.5, 0.0), "goal-area-right": (5.5, -3.66 - 5.5, 0.0),
-            "penalty-area-left": (16.5, 3.66 + 16.5, 0.0), "penalty-area-right": (16.5, -3.66 - 16.5, 0.0),
-            "penalty-mark": (11.0, 0.0, 0.0),
+            "goal-area-left": (-5.5, 3.66 + 5.5, 0.0), "goal-area-right": (-5.5, -3.66 - 5.5, 0.0),
+            "penalty-area-left": (-16.5, 3.66 + 16.5, 0.0), "penalty-area-right": (-16.5, -3.66 - 16.5, 0.0),
+            "penalty-mark": (-11.0, 0.0, 0.0),
         },
     },
     "tennis-court": {
@@ -73,6 +75,59 @@ TEMPLATES: dict[str, dict] = {
         },
     },
 }
+
+# Where flights start and where they go, per template (world frame of the template). A zone is a
+# soft prior on the point where the flight passes the plane x = centre[0]: centre [m], one-sigma [m],
+# and whether the ball starts on the ground (then z = the ball's radius). Typical values (from
+# memory): a pitcher releases about 1.5-2 m in front of the rubber at 1.5-2 m height; a bowler
+# releases near the popping crease (4 ft = 1.22 m in front of the bowling crease, Law 7) at about
+# 2 m; a server hits about 2.5-3 m up just behind the baseline.
+LAUNCH_ZONES: dict[str, dict[str, tuple[tuple[float, float, float], float, bool]]] = {
+    "baseball-pitch": {"release": ((1.7, 0.0, 1.75), 0.45, False),
+                       "rubber": ((0.0, 0.0, 0.0), 0.35, True)},
+    "soccer-goal": {"penalty-mark": ((-11.0, 0.0, 0.0), 0.10, True),
+                    "free-kick-arc": ((-20.0, 0.0, 0.0), 4.0, True)},
+    "tennis-court": {"serve": ((-0.1, 0.0, 2.7), 0.6, False),
+                     "baseline-rally": ((-1.0, 0.0, 1.0), 1.5, False)},
+    "cricket-pitch": {"release": ((1.22, 0.0, 2.1), 0.5, False)},
+}
+# the point each template's flights head for (x grows toward it)
+TARGETS: dict[str, tuple[float, float, float]] = {
+    "baseball-pitch": (18.44, 0.0, 0.0), "soccer-goal": (0.0, 0.0, 1.22),
+    "tennis-court": (23.77, 0.0, 0.0), "cricket-pitch": (20.12, 0.0, 0.0),
+}
+
+
+def launch_zone(template: str, zone: str | None = None, ball_radius_m: float | None = None):
+    """A template's launch zone as a soft prior.
+
+    Parameters
+    ----------
+    template : str
+        Template name (:data:`TEMPLATES`).
+    zone : str, optional
+        Zone name (:data:`LAUNCH_ZONES`); None: the template's first zone.
+    ball_radius_m : float, optional
+        Radius of the ball [m]; a ball starting on the ground has its centre at this height.
+
+    Returns
+    -------
+    centre : ndarray, shape (3,) [m]
+    sigma_m : float [m]
+    label : str
+    """
+    template_points(template)
+    zones = LAUNCH_ZONES[template]
+    name = zone if zone is not None else next(iter(zones))
+    if name not in zones:
+        raise InputError(f"template {template!r} has no launch zone {name!r}", hint=f"choose one of: {', '.join(zones)}")
+    c, sig, on_ground = zones[name]
+    centre = np.array(c, float)
+    if on_ground and ball_radius_m is not None:
+        centre[2] = float(ball_radius_m)
+    return centre, float(sig), f"{template} {name}"
+
+
 def template_points(name: str) -> dict:
     if name not in TEMPLATES:
         raise InputError(f"unknown landmark template {name!r}", hint=f"choose one of: {', '.join(TEMPLATES)}")
@@ -315,5 +370,5 @@ def describe_pose(cam: Camera) -> str:
             f"(toward +y is positive) and {el:+.0f} deg above the horizontal; focal length {cam.focal_px:.0f} px")
 
 
-__all__ = ["TEMPLATES", "board_object_points", "render_board_view", "calibrate_lens", "calibrate_scene",
+__all__ = ["TEMPLATES", "LAUNCH_ZONES", "TARGETS", "launch_zone", "board_object_points", "render_board_view", "calibrate_lens", "calibrate_scene",
            "describe_pose", "board_figure", "rotation_vector"]

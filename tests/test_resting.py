@@ -1,0 +1,70 @@
+"""A ball at rest before the flight, found in a short rendered clip."""
+import numpy as np
+import pytest
+
+from balltraj.camera.model import look_at_camera
+from balltraj.vision.render import Scene, render_clip
+from balltraj.vision.resting import find_resting_ball
+
+R = 0.11
+REST = np.array([0.5, 0.3, R])
+T_LAUNCH = 0.3
+CAM = look_at_camera("side", [3.0, -8.0, 1.4], [3.5, 0.0, 0.6], 700, (640, 360), dist=(-0.05, 0.01, 0, 0, 0))
+
+
+def _positions(t):
+    dt = np.clip(np.asarray(t, float) - T_LAUNCH, 0, None)[:, None]
+    return REST + np.array([22.0, -1.0, 6.0]) * dt + 0.5 * np.array([0, 0, -9.81]) * dt**2
+
+
+@pytest.fixture(scope="module")
+def clip(tmp_path_factory):
+    path = tmp_path_factory.mktemp("rest") / "rest.mp4"
+    truth = render_clip(Scene(CAM, fps=240, duration_s=0.5, ball_radius_m=R, flights=[(0.0, 0.5, _positions)],
+                              clutter=4, seed=1), path)
+    return path, [r for r in truth if r["t"] > T_LAUNCH + 0.01][:10]
+
+
+def test_resting_ball_found_linked_and_placed(clip):
+    # Source: the renderer's truth (ball centre at REST, radius f R / depth), an image made by render.py and
+    # read back through the video codec; the ground-plane anchor must land within 3 of its own sigmas
+    path, fl = clip
+    res = find_resting_ball(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"]] for r in fl])
+    b = res.ball
+    assert b is not None, res.reason
+    assert np.linalg.norm(b.uv - CAM.project(REST[None])[0]) < 0.5
+    assert b.expected_radius_px == pytest.approx(CAM.focal_px * R / CAM.depth(REST[None])[0], rel=0.01)
+    assert b.radius_px == pytest.approx(b.expected_radius_px, rel=0.1)
+    assert abs(b.t_leaves_s - T_LAUNCH) < 0.02 and b.motion_px < 0.5
+    err = b.anchor.position_m - REST
+    assert np.sqrt(err @ np.linalg.solve(b.anchor.covariance_m2 + 1e-12 * np.eye(3), err)) < 3 * 1.9  # 3 sigma, 3 dof
+    assert np.linalg.norm(err) < 0.05
+
+
+def test_no_resting_ball_when_the_flight_comes_from_outside(clip):
+    # Source: invariant - observations of a flight that started elsewhere (shifted 80 px up, across its path) find no ball at rest
+    path, fl = clip
+    res = find_resting_ball(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"] - 80] for r in fl])
+    assert res.ball is None and res.reason
+
+
+def test_depth_anchor_prefers_the_resting_ball_over_a_hint(clip):
+    # Source: invariant - the anchor chosen for the flight is the ground contact at the rendered spot
+    from balltraj.vision.resting import depth_anchor
+
+    path, fl = clip
+    anchor, search = depth_anchor(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"]] for r in fl],
+                                  radius_px=[r["radius_px"] for r in fl], hint=((0.0, 0.0, 1.0), 0.3))
+    assert anchor.name == "ground contact" and search.ball is not None
+    assert np.linalg.norm(np.asarray(anchor.start_near_m) - REST) < 0.05
+
+
+def test_frames_overlapping_the_rest_spot_are_dropped(clip):
+    # Source: invariant - the detector's background keeps the resting ball for a while; observations within
+    # two ball radii of the spot are the ones that overlap it, those farther are kept
+    from balltraj.vision.resting import clear_of_rest_spot
+
+    path, fl = clip
+    b = find_resting_ball(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"]] for r in fl]).ball
+    uv = np.array([b.uv + [1.0, 0.0], b.uv + [2 * b.radius_px + 1.0, 0.0], b.uv + [2 * b.radius_px + 3.0, 0.0]])
+    assert clear_of_rest_spot(b, uv, [b.radius_px] * 3).tolist() == [False, False, True]
