@@ -22,6 +22,7 @@ from typing import Callable, Optional, Sequence
 
 import numpy as np
 
+from .camera.anchors import apply_anchor
 from .camera.model import Camera
 from .errors import BallTrajError, InputError
 from .fitting.flight_fit import FitOptions, fit_flight
@@ -33,6 +34,7 @@ from .physics.flight import FlightModel, check_launch, launch_state
 from .physics.reference import Deflection
 from .record.build import fit_record, simulate_record
 from .vision.pipeline import TrackResult, no_ball_error, track_clip
+from .vision.resting import clear_of_rest_spot, depth_anchor
 
 Progress = Optional[Callable[[int, Optional[int]], None]]
 
@@ -229,17 +231,31 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
     if not res.flights:
         raise no_ball_error(clip.path, res)
     cam = clip.camera
+    hint = None if settings.start_near_m is None else (settings.start_near_m, settings.start_sigma_m)
     records, failures = [], []
-    for f in res.flights:
-        data = CameraObservations(_flight_observations(clip.path, f, cam.name), [cam])
+    for i, f in enumerate(res.flights):
+        # the depth along the line of sight: a ball at rest where the flight starts, a bounce that
+        # starts it, the user's hint, or only the apparent size (said in the record)
+        prev = res.flights[i - 1] if i > 0 and res.flights[i - 1].bounce else None
+        anchor, search = depth_anchor(clip.path, cam, settings.ball.radius_m, f.t[:10], f.uv[:10], flight=f.flight,
+                                      radius_px=f.radius_px, previous=None if prev is None else (prev.t, prev.uv),
+                                      hint=hint, capture_fps=clip.capture_fps)
+        keep = None if search.ball is None else clear_of_rest_spot(search.ball, f.uv, f.radius_px, f.streak_px)
+        data = CameraObservations(_flight_observations(clip.path, f, cam.name, keep), [cam])
         try:
-            rec = fit_observations(data, settings).record
+            rec = fit_observations(data, apply_anchor(settings, anchor)).record
         except BallTrajError as e:
             failures.append(f"flight {f.flight}: {e.one_line()}")
             continue
         rec["source"] = f"{clip.path}#flight-{f.flight}"
         rec["clip"] = {"path": str(clip.path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
                        "end_reason": f.end_reason}
+        rec["depth_anchor"] = {"name": anchor.name, "note": anchor.note,
+                               "start_near_m": None if anchor.start_near_m is None else list(anchor.start_near_m),
+                               "start_sigma_m": anchor.start_sigma_m, "resting_ball": search.reason,
+                               "frames_dropped_at_rest_spot": 0 if keep is None else int((~keep).sum())}
+        rec["warnings"] = [w.replace("pinned only by the start hint, ", f"pinned by the {anchor.name}, ")
+                           if w.startswith("one camera:") else w for w in rec["warnings"]]
         records.append(rec)
     if not records:
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip.path),
@@ -322,11 +338,14 @@ def _concatenate(parts, path: str):
                         np.concatenate([p.quality for p in parts]), None)
 
 
-def _flight_observations(path, f, camera_name: str):
+def _flight_observations(path, f, camera_name: str, keep=None):
+    """The tracked points of flight ``f`` as observations (only those ``keep`` marks, if given)."""
     from .formats import Observations
 
-    return Observations(f"{path}#flight-{f.flight}", np.asarray(f.t, float), [camera_name] * len(f.t),
-                        np.asarray(f.uv, float), np.asarray(f.radius_px, float), np.asarray(f.quality, float), None)
+    k = np.ones(len(f.t), bool) if keep is None else np.asarray(keep, bool)
+    return Observations(f"{path}#flight-{f.flight}", np.asarray(f.t, float)[k], [camera_name] * int(k.sum()),
+                        np.asarray(f.uv, float)[k], np.asarray(f.radius_px, float)[k],
+                        np.asarray(f.quality, float)[k], None)
 
 
 @dataclass(frozen=True)
