@@ -46,6 +46,27 @@ class TooLarge(InputError):
     pass
 
 
+class SafeHeaders:
+    """ASGI middleware: every response says not to sniff types, send referrers or be framed elsewhere."""
+
+    EXTRA = [(b"x-content-type-options", b"nosniff"), (b"referrer-policy", b"no-referrer"),
+             (b"x-frame-options", b"SAMEORIGIN")]
+
+    def __init__(self, app):
+        self.app = app
+
+    async def __call__(self, scope, receive, send):
+        if scope["type"] != "http":
+            return await self.app(scope, receive, send)
+
+        async def send_with_headers(message):
+            if message["type"] == "http.response.start":
+                message = {**message, "headers": list(message.get("headers", [])) + self.EXTRA}
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers)
+
+
 def _env() -> jinja2.Environment:
     return jinja2.Environment(loader=jinja2.FileSystemLoader(str(HERE / "templates")), autoescape=True,
                               undefined=jinja2.StrictUndefined)
@@ -258,17 +279,9 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         Route("/api/save", save, methods=["POST"]),
         Mount("/static", StaticFiles(directory=str(HERE / "static")), name="static"),
     ]
-    mw = [Middleware(TrustedHostMiddleware, allowed_hosts=list(allowed_hosts))]
+    mw = [Middleware(TrustedHostMiddleware, allowed_hosts=list(allowed_hosts)), Middleware(SafeHeaders)]
     app = Starlette(routes=routes, middleware=mw, exception_handlers={404: not_found})
     app.state.root, app.state.jobs, app.state.library = root, jobs, lib_path
-
-    @app.middleware("http")
-    async def headers(request: Request, call_next):
-        resp = await call_next(request)
-        resp.headers.setdefault("X-Content-Type-Options", "nosniff")
-        resp.headers.setdefault("Referrer-Policy", "no-referrer")
-        resp.headers.setdefault("X-Frame-Options", "SAMEORIGIN")
-        return resp
 
     return app
 
