@@ -199,6 +199,10 @@ def test_whole_flow_in_a_browser(server, page, tmp_path):
     # Source: the sample's truth.json (25 m/s, 520 rpm; invented demo flight simulated by balltraj and rendered)
     assert speed == pytest.approx(TRUTH["truth"]["launch"]["speed_mps"], rel=0.03)
     assert rpm == pytest.approx(TRUTH["truth"]["spin"]["rate_rpm"], rel=0.08)
+    report_loaded = ("(() => { const r = document.getElementById('report'); "
+                     "return r.src.includes('/report/') && r.dataset.loaded === r.src; })()")
+    page.wait(report_loaded, timeout=60)  # the report (inline SVG plots) loads in its frame
+    time.sleep(0.5)  # and is painted
     page.shot(shots / "analyse.png")
 
     # review: drop the first tracked point (clicked on the picture), fit again, save to the history
@@ -216,6 +220,8 @@ def test_whole_flow_in_a_browser(server, page, tmp_path):
     page.wait("document.getElementById('review-status').textContent.startsWith('Fitted again')")
     with urllib.request.urlopen(f"{base}/api/job/{job}") as r:
         assert json.load(r)["flights"][0]["keep"][0] is False
+    page.wait(report_loaded, timeout=60)  # the re-fitted flight's report
+    time.sleep(0.5)  # and is painted
     page.shot(shots / "review.png")
     page.js("document.getElementById('save-history').click()")
     page.wait("document.getElementById('review-status').textContent.startsWith('Saved')")

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import jinja2
 from starlette.applications import Starlette
+from starlette.concurrency import run_in_threadpool
 from starlette.middleware import Middleware
 from starlette.middleware.trustedhost import TrustedHostMiddleware
 from starlette.requests import Request
@@ -38,8 +39,9 @@ MAX_BODY_BYTES = 64 * 1024
 MAX_LABEL_CHARS = 200
 LIBRARY_NAME = "balltraj-library.sqlite"
 PAGE_CSP = ("default-src 'self'; img-src 'self' data: blob:; style-src 'self'; script-src 'self'; "
-            "frame-src 'self'; connect-src 'self'; object-src 'none'; base-uri 'none'; form-action 'self'")
-REPORT_CSP = "default-src 'none'; style-src 'unsafe-inline'; img-src data:; sandbox"
+            "frame-src 'self'; connect-src 'self'; object-src 'none'; base-uri 'none'; form-action 'self'; "
+            "frame-ancestors 'none'")
+REPORT_CSP = "default-src 'none'; style-src 'unsafe-inline'; img-src data:; frame-ancestors 'self'; sandbox"
 
 
 class TooLarge(InputError):
@@ -47,10 +49,11 @@ class TooLarge(InputError):
 
 
 class SafeHeaders:
-    """ASGI middleware: every response says not to sniff types, send referrers or be framed elsewhere."""
+    """ASGI middleware: every response says not to sniff types or send referrers (pages say where they may
+    be framed in their Content-Security-Policy: frame-ancestors)."""
 
     EXTRA = [(b"x-content-type-options", b"nosniff"), (b"referrer-policy", b"no-referrer"),
-             (b"x-frame-options", b"SAMEORIGIN")]
+             ]
 
     def __init__(self, app):
         self.app = app
@@ -131,7 +134,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
     async def clip_page(request: Request):
         try:
             p, rel = clip_of(request)
-            info = frames.info(p)
+            info = await run_in_threadpool(frames.info, p)
         except OutsideFolder as e:
             return error_page(e.problem, 404)
         except BallTrajError as e:
@@ -143,7 +146,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         try:
             p, _ = clip_of(request)
             k = _int(request.query_params.get("k", "0"), "frame")
-            data = frames.jpeg(p, k)
+            data = await run_in_threadpool(frames.jpeg, p, k)
         except OutsideFolder as e:
             return Response(e.problem, 404, media_type="text/plain")
         except BallTrajError as e:
@@ -153,7 +156,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
     @api
     async def clip_info(request: Request):
         p, rel = clip_of(request)
-        info = frames.info(p)
+        info = await run_in_threadpool(frames.info, p)
         cam = _camera_of(p)
         return JSONResponse({"clip": rel, **info, "camera": None if cam is None else cam.to_dict(),
                              "camera_file": camera_path(p).name, "balls": ball_names(),
@@ -165,7 +168,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
     async def calibrate(request: Request):
         b = await body(request)
         p = inside(root, _str(b.get("path"), "path"))
-        info = frames.info(p)
+        info = await run_in_threadpool(frames.info, p)
         template = _str(b.get("template"), "template")
         if template not in TEMPLATES:
             raise InputError(f"unknown template {template!r}")
@@ -177,7 +180,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
             return JSONResponse({"need": 4 - len(clicks)})
         lens_file = p.with_name("lens.json")
         lens = read_cameras(lens_file)[0] if lens_file.is_file() else None
-        res = calibrate_clicks(template, clicks, (info["width"], info["height"]), name=p.stem, lens=lens,
+        res = await run_in_threadpool(calibrate_clicks, template, clicks, (info["width"], info["height"]), name=p.stem, lens=lens,
                                turn=b.get("turn") if isinstance(b.get("turn"), bool) else None)
         out = {"rms_px": res.rms_px, "errors_px": res.errors_px, "pose": res.pose_text(), "frame": res.frame,
                "turned": res.turned, "camera": res.camera.to_dict(),
@@ -237,14 +240,14 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         keep = b.get("keep")
         if not isinstance(keep, list) or len(keep) > 100000 or not all(isinstance(k, bool) for k in keep):
             raise InputError("keep must be a list of true/false, one a tracked point")
-        refit(job, int(_num(b.get("flight"), "flight", lo=0, hi=1000)), keep)
+        await run_in_threadpool(refit, job, int(_num(b.get("flight"), "flight", lo=0, hi=1000)), keep)
         return JSONResponse(job.summary())
 
     @api
     async def save(request: Request):
         b = await body(request)
         job = jobs.get(_str(b.get("job"), "job"))
-        stored = save_to_library(job, lib_path)
+        stored = await run_in_threadpool(save_to_library, job, lib_path)
         return JSONResponse({"stored": stored, "library": lib_path.name})
 
     async def report(request: Request):
@@ -255,14 +258,14 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         recs = [r for r in job.records if r is not None]
         if not recs:
             return error_page("this analysis has no fitted flight to report", 404)
-        titles = [f"{Path(job.clip_name).stem} flight {r['clip']['flight']}" for r in recs]
         units = "imperial" if request.query_params.get("units") == "imperial" else "metric"
-        return HTMLResponse(build_report(recs, titles, units), headers={"Content-Security-Policy": REPORT_CSP})
+        html = await run_in_threadpool(job.report, units, build_report)
+        return HTMLResponse(html, headers={"Content-Security-Policy": REPORT_CSP})
 
     async def history_page(request: Request):
         q = request.query_params
         try:
-            ctx = history.view(lib_path, q.get("by", "athlete"), q.get("a"), q.get("b"))
+            ctx = await run_in_threadpool(history.view, lib_path, q.get("by", "athlete"), q.get("a"), q.get("b"))
         except BallTrajError as e:
             return error_page(e.one_line(), 400)
         return page("history.html", **ctx)

@@ -41,9 +41,20 @@ class Job:
     warnings: list = field(default_factory=list)
     started: float = field(default_factory=time.time)
     saved: bool = False
+    _reports: dict = field(default_factory=dict)  # units -> report HTML of the current records
+    _report_lock: threading.Lock = field(default_factory=threading.Lock)
 
     def progress(self, done: int, total: int | None) -> None:
         self.done, self.total = int(done), (None if total is None else int(total))
+
+    def report(self, units: str, build) -> str:
+        """The report page of the fitted flights (built once per set of records and units)."""
+        with self._report_lock:
+            if units not in self._reports:
+                recs = [r for r in self.records if r is not None]
+                titles = [f"{Path(self.clip_name).stem} flight {r['clip']['flight']}" for r in recs]
+                self._reports[units] = build(recs, titles, units)
+            return self._reports[units]
 
     def summary(self, units: str = "metric") -> dict:
         """What the page shows: state, progress, headline cards and tracked points of each flight."""
@@ -129,7 +140,9 @@ def refit(job: Job, index: int, keep) -> dict:
     rec["clip"] = {"path": job.clip_name, "flight": f["flight"], "frames": int(keep.sum()),
                    "dropped_points": [int(k) for k in f["frame"][~keep]]}
     f["keep"] = keep
-    job.records[index] = _labelled(rec, job.labels)
+    with job._report_lock:
+        job.records[index] = _labelled(rec, job.labels)
+        job._reports.clear()
     job.saved = False
     return rec
 

@@ -187,7 +187,7 @@ async function poll() {
     (s.warnings.length ? ` Note: ${s.warnings.join("; ")}` : ""));
   showResult(s, 0);
 }
-function showResult(s, flight) {
+function showResult(s, flight, jump = true) {
   state.summary = s; state.flight = flight; state.keep = [...s.flights[flight].keep];
   const sel = $("flight"); sel.replaceChildren();
   s.flights.forEach((f, i) => { const o = document.createElement("option"); o.value = i; o.textContent = `flight ${f.flight}`; sel.append(o); });
@@ -203,7 +203,7 @@ function showResult(s, flight) {
     cards.append(c);
   }
   $("report").src = `/report/${s.id}?t=${Date.now()}`;
-  if (f.frame.length) showFrame(f.frame[Math.floor(f.frame.length / 2)]);
+  if (jump && f.frame.length) showFrame(f.frame[Math.floor(f.frame.length / 2)]);
   draw();
 }
 $("flight").addEventListener("change", (e) => showResult(state.summary, Number(e.target.value)));
@@ -223,7 +223,7 @@ $("refit").addEventListener("click", async () => {
   try {
     const s = await api("/api/refit", {job: state.job, flight: state.flight, keep: state.keep});
     say("review-status", `Fitted again with ${state.keep.filter(Boolean).length} points.`);
-    showResult(s, state.flight);
+    showResult(s, state.flight, false);
   } catch (err) { say("review-status", err.message, true); }
 });
 $("save-history").addEventListener("click", async () => {
@@ -232,6 +232,8 @@ $("save-history").addEventListener("click", async () => {
     say("review-status", r.stored ? `Saved to the history (${r.library}).` : "Already in the history.");
   } catch (err) { say("review-status", err.message, true); }
 });
+
+$("report").addEventListener("load", () => { $("report").dataset.loaded = $("report").src; });
 
 // ------------------------------------------------------------------ start
 (async function init() {
