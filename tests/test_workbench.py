@@ -213,3 +213,23 @@ def test_analysis_review_refit_and_history(client, folder):
     h = client.get("/history", params={"by": "athlete", "a": "<b>Tobi Marsh</b>", "b": "<b>Tobi Marsh</b>"})
     assert 'id="comparison"' in h.text and f"{speed2:.1f}" in h.text
     assert client.get("/history", params={"by": "athlete", "a": "nobody", "b": "<b>Tobi Marsh</b>"}).status_code == 400
+
+
+def test_command_line(folder, monkeypatch):
+    from typer.testing import CliRunner
+
+    import uvicorn
+    from balltraj.cli import app
+
+    seen = {}
+    monkeypatch.setattr(uvicorn, "run", lambda web, host, port, log_level: seen.update(host=host, port=port))
+    runner = CliRunner()
+    r = runner.invoke(app, ["workbench", str(folder), "--port", "9123"])
+    assert r.exit_code == 0 and seen == {"host": "127.0.0.1", "port": 9123}
+    assert "http://127.0.0.1:9123/" in r.output and "warning" not in r.output
+    r = runner.invoke(app, ["workbench", str(folder), "--host", "0.0.0.0"])
+    assert r.exit_code == 0 and seen["host"] == "0.0.0.0" and "warning: listening on 0.0.0.0" in r.output
+    r = runner.invoke(app, ["workbench", str(folder / "nope")])
+    assert r.exit_code == 2 and "needs a folder of clips" in r.output
+    r = runner.invoke(app, ["workbench", str(folder), "--port", "0"])
+    assert r.exit_code == 2

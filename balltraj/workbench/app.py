@@ -129,7 +129,8 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         return run
 
     async def index(request: Request):
-        return page("index.html", clips=list_clips(root), has_library=lib_path.is_file())
+        clips = [(c, camera_path(inside(root, c)).is_file()) for c in list_clips(root)]
+        return page("index.html", clips=clips, has_library=lib_path.is_file())
 
     async def clip_page(request: Request):
         try:

@@ -203,6 +203,7 @@ function showResult(s, flight, jump = true) {
     cards.append(c);
   }
   $("report").src = `/report/${s.id}?t=${Date.now()}`;
+  $("report").classList.remove("hidden"); $("report-title").classList.remove("hidden");
   if (jump && f.frame.length) showFrame(f.frame[Math.floor(f.frame.length / 2)]);
   draw();
 }
