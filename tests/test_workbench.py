@@ -79,7 +79,7 @@ def test_pages_and_frames(client):
 @pytest.mark.parametrize("path", ["../secret.txt", "%2e%2e/secret.txt", "..%2fsecret.txt", "%2e%2e%2fsecret.txt",
                                   "%252e%252e%252fsecret.txt", "/etc/passwd", "//etc/passwd", "..\\secret.txt",
                                   "sub/../../secret.txt", "link/secret.txt", "linkfile.mp4", "~/x", "C:/x",
-                                  "", "a\x00b"])
+                                  "", ".", "./", "a\x00b"])
 def test_nothing_outside_the_folder(client, folder, path):
     os.symlink(folder.parent, folder / "link")
     os.symlink(folder.parent / "secret.txt", folder / "linkfile.mp4")

@@ -31,7 +31,7 @@ def inside(root: Path, rel: str) -> Path:
     if not isinstance(rel, str) or not rel or len(rel) > MAX_PATH_CHARS or "\x00" in rel or "\\" in rel:
         raise OutsideFolder("not a file name in this folder")
     p = PurePosixPath(rel)
-    if p.is_absolute() or rel.startswith("~") or ":" in p.parts[0] or any(part in ("..", "") for part in p.parts):
+    if not p.parts or p.is_absolute() or rel.startswith("~") or ":" in p.parts[0] or any(part in ("..", "") for part in p.parts):
         raise OutsideFolder("only files inside the workbench's folder can be opened")
     real_root = Path(os.path.realpath(root))
     real = Path(os.path.realpath(real_root.joinpath(*p.parts)))
