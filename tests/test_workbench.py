@@ -150,6 +150,9 @@ def test_calibration_round_trip(client, folder):
     assert 0.05 < body["rms_px"] < 1.0
     cam2 = read_cameras(folder / "free-kick-behind.camera.json")[0]  # not saved: still the exact one
     assert np.allclose(cam2.centre, cam.centre)
+    # reopening the clip brings back the saved clicks
+    back = client.get("/api/clip", params={"path": CLIP}).json()["clicked"]
+    assert back["template"] == "soccer-goal" and back["clicks"] == {k: list(v) for k, v in clicks.items()}
     # every template landmark the camera sees is predicted (the page rings the ones still to click)
     assert set(clicks) <= set(body["template_px"])
 

@@ -172,6 +172,10 @@ def test_whole_flow_in_a_browser(server, page, tmp_path):
     cam = read_cameras(folder / "free-kick-behind.camera.json")[0]
     # Source: the sample's camera file; the workbench's frame has the goal line at x = 0 (the sample's at 22 m)
     assert np.linalg.norm(cam.centre - (TRUE_CAM.centre - [GOAL_X, 0, 0])) < 0.5
+    # opening the clip again brings back the clicks and their errors
+    page.go(f"{base}/clip?path={CLIP}")
+    page.wait("document.getElementById('bench').dataset.ready === '1'")
+    page.wait(f"document.getElementById('calib-status').textContent.includes('over {len(clicks)} landmarks')")
 
     # start point: the ball in one of the first frames it is seen, at its height there (the render's truth)
     truth = pd.read_csv(ROOT / "sample_clips" / "free-kick-behind.truth.csv", comment="#")

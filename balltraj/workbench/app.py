@@ -25,7 +25,7 @@ from starlette.staticfiles import StaticFiles
 from .. import __version__, pipeline
 from ..camera.calibrate import TEMPLATES
 from ..errors import BallTrajError, InputError
-from ..formats import read_cameras, write_json
+from ..formats import read_cameras, read_json, write_json
 from ..physics.air import air_conditions
 from ..physics.balls import ball_names, get_ball
 from ..report.html import build_report
@@ -160,6 +160,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         info = await run_in_threadpool(frames.info, p)
         cam = _camera_of(p)
         return JSONResponse({"clip": rel, **info, "camera": None if cam is None else cam.to_dict(),
+                             "clicked": _saved_clicks(camera_path(p)) if cam is not None else None,
                              "camera_file": camera_path(p).name, "balls": ball_names(),
                              "templates": {k: {"frame": v["frame"], "rule": v["rule"],
                                                "points": {n: list(x) for n, x in v["points"].items()}}
@@ -293,6 +294,19 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
 def _camera_of(clip: Path):
     p = camera_path(clip)
     return read_cameras(p)[0] if p.is_file() else None
+
+
+def _saved_clicks(path: Path):
+    """The template and clicked pixels a workbench camera file was made from (None for other files)."""
+    cal = read_json(path).get("calibration") or {}
+    clicks, template = cal.get("clicked_px"), cal.get("template")
+    if cal.get("from") != "balltraj workbench" or template not in TEMPLATES or not isinstance(clicks, dict):
+        return None
+    try:
+        return {"template": template, "clicks": {_str(k, "landmark"): list(_pixel(v)) for k, v in clicks.items()
+                                                 if k in TEMPLATES[template]["points"]}}
+    except InputError:
+        return None
 
 
 def _reject(name):

@@ -23,7 +23,8 @@ function say(id, text, bad = false) { const el = $(id); el.textContent = text; e
 function showFrame(k) {
   state.k = Math.max(0, Math.min(N - 1, k));
   $("scrub").value = state.k;
-  $("frameno").textContent = `frame ${state.k} of ${N - 1}`;
+  const fps = Number(bench.dataset.fps);
+  $("frameno").textContent = `frame ${state.k} of ${N - 1}` + (fps > 0 ? ` · ${(state.k / fps).toFixed(3)} s` : "");
   img.src = `/frame?${q({path: clip, k: state.k})}`;
 }
 img.onload = draw;
@@ -245,8 +246,11 @@ $("report").addEventListener("load", () => { $("report").dataset.loaded = $("rep
       const o = document.createElement("option"); o.value = t; o.textContent = t; $("template").append(o);
     }
     for (const b of info.balls) { const o = document.createElement("option"); o.value = b; o.textContent = b; $("ball").append(o); }
-    state.template = Object.keys(info.templates)[0];
+    state.template = info.clicked?.template ?? Object.keys(info.templates)[0];
+    $("template").value = state.template;
+    if (info.clicked) state.clicks = info.clicked.clicks;
     nextLandmark(); listLandmarks();
+    if (info.clicked) recalibrate();
     bench.dataset.ready = "1";
   } catch (err) { say("calib-status", err.message, true); }
   showFrame(0);
