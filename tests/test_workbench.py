@@ -202,6 +202,7 @@ def test_analysis_review_refit_and_history(client, folder):
     report = client.get(f"/report/{s['id']}")
     assert report.status_code == 200 and "sandbox" in report.headers["content-security-policy"]
     assert "<b>Tobi" not in report.text
+    assert str(folder) not in report.text  # the clip by its name in the folder
     keep = list(f["keep"])
     keep[0] = keep[-1] = keep[len(keep) // 2] = False
     s2 = client.post("/api/refit", json={"job": s["id"], "flight": 0, "keep": keep}).json()
@@ -236,3 +237,24 @@ def test_command_line(folder, monkeypatch):
     assert r.exit_code == 2 and "needs a folder of clips" in r.output
     r = runner.invoke(app, ["workbench", str(folder), "--port", "0"])
     assert r.exit_code == 2
+
+
+def test_compare_two_flights(client, folder):
+    client.post("/api/calibrate", json={"path": CLIP, "template": "soccer-goal", "clicks": visible_clicks(),
+                                        "save": True})
+    s = _wait(client, client.post("/api/analyze", json={"path": CLIP, "ball": "soccer", "athlete": "A"}).json()["job"])
+    client.post("/api/save", json={"job": s["id"]})
+    keep = list(s["flights"][0]["keep"])
+    keep[:10] = [False] * 10
+    s2 = client.post("/api/refit", json={"job": s["id"], "flight": 0, "keep": keep}).json()
+    assert client.post("/api/save", json={"job": s["id"]}).json()["stored"] is True  # other points: another entry
+    h = client.get("/history").text
+    assert h.count('name="f"') == 2
+    r = client.get("/compare", params=[("f", "1"), ("f", "2")])
+    assert r.status_code == 200 and "sandbox" in r.headers["content-security-policy"]
+    # Source: the two fits shown on the page are the ones the workbench made (first and re-fitted)
+    for summ in (s, s2):
+        assert summ["flights"][0]["cards"][0][1].split(" (")[0] in r.text
+    assert client.get("/compare", params=[("f", "1")]).status_code == 400
+    assert client.get("/compare", params=[("f", "1"), ("f", "99")]).status_code == 404
+    assert client.get("/compare", params=[("f", "1"), ("f", "x;drop")]).status_code == 400

@@ -84,8 +84,8 @@ class Page:
         w, h = TRUE_CAM.image_size
         self.click(r[0] + (u + 0.5) * r[2] / w, r[1] + (v + 0.5) * r[3] / h)
 
-    def shot(self, path: Path):
-        data = self.send("Page.captureScreenshot", format="png", captureBeyondViewport=True)["data"]
+    def shot(self, path: Path, whole: bool = True):
+        data = self.send("Page.captureScreenshot", format="png", captureBeyondViewport=whole)["data"]
         path.write_bytes(base64.b64decode(data))
 
 
@@ -209,8 +209,10 @@ def test_whole_flow_in_a_browser(server, page, tmp_path):
     time.sleep(0.5)  # and is painted
     page.shot(shots / "analyse.png")
 
-    # review: drop the first tracked point (clicked on the picture), fit again, save to the history
+    # review: save the first fit, drop the first tracked point (clicked on the picture), fit again, save again
     page.js("document.querySelector('.tabs button[data-step=review]').click()")
+    page.js("document.getElementById('save-history').click()")
+    page.wait("document.getElementById('review-status').textContent.startsWith('Saved')")
     job = page.js("document.getElementById('report').src.split('/report/')[1].split('?')[0]")
     with urllib.request.urlopen(f"{base}/api/job/{job}") as r:
         summary = json.load(r)
@@ -235,7 +237,12 @@ def test_whole_flow_in_a_browser(server, page, tmp_path):
     page.shot(shots / "report.png")
     page.go(f"{base}/history")
     assert TRUTH["athlete"] in page.js("document.body.textContent")
+    page.js("document.querySelectorAll('input[name=f]').forEach((c) => { c.checked = true; })")
     page.shot(shots / "history.png")
+    page.js("document.querySelector('#compare-flights button').click()")
+    page.wait("location.pathname === '/compare' && document.readyState === 'complete'", timeout=60)
+    assert page.js("document.querySelectorAll('.flight, section').length") >= 2
+    page.shot(shots / "compare.png", whole=False)
 
     import matplotlib.image as mpimg
 

@@ -272,11 +272,23 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
             return error_page(e.one_line(), 400)
         return page("history.html", **ctx)
 
+    async def compare_flights(request: Request):
+        ids = request.query_params.getlist("f")
+        if len(ids) != 2 or not all(i.isdigit() and len(i) < 10 for i in ids):
+            return error_page("tick exactly two flights to compare", 400)
+        try:
+            recs, titles = await run_in_threadpool(history.flight_records, lib_path, ids)
+        except BallTrajError as e:
+            return error_page(e.one_line(), 404)
+        html = await run_in_threadpool(build_report, recs, titles)
+        return HTMLResponse(html, headers={"Content-Security-Policy": REPORT_CSP})
+
     async def not_found(request: Request, exc):
         return error_page("there is nothing at this address", 404)
 
     routes = [
         Route("/", index), Route("/clip", clip_page), Route("/frame", frame), Route("/history", history_page),
+        Route("/compare", compare_flights),
         Route("/report/{job}", report),
         Route("/api/clip", clip_info), Route("/api/calibrate", calibrate, methods=["POST"]),
         Route("/api/anchor", anchor, methods=["POST"]), Route("/api/analyze", analyze, methods=["POST"]),

@@ -30,7 +30,7 @@ def view(library: Path, by: str = "athlete", a: str | None = None, b: str | None
         groups: dict[str, list] = {}
         for r in rows:
             groups.setdefault(r[by] or "(no name)", []).append(
-                {"clip": r["path"], "flight": r["flight_index"], "other": (r["session"] if by == "athlete" else
+                {"id": r["id"], "clip": r["path"], "flight": r["flight_index"], "other": (r["session"] if by == "athlete" else
                                                                              r["athlete"]) or "",
                  "values": [_fmt(r[k], s) for k, _, s in COLUMNS]})
         out["groups"] = sorted(groups.items())
@@ -41,3 +41,21 @@ def view(library: Path, by: str = "athlete", a: str | None = None, b: str | None
                                   "values": [f"{spec.format(d[k][0])} ± {d[k][1]:.2g}" for k, _, spec in COLUMNS]}
                                  for d in res]
     return out
+
+
+def flight_records(library: Path, ids) -> tuple[list[dict], list[str]]:
+    """The flight records of the given library flight ids (in that order) and a title for each."""
+    import json
+
+    if not library.is_file():
+        raise InputError("there is no history yet", hint="save an analysis to the history first")
+    ids = [int(i) for i in ids]
+    with open_library(library, create=False) as lib:
+        by_id = {r["id"]: r for r in lib.flights()}
+    missing = [i for i in ids if i not in by_id]
+    if missing:
+        raise InputError(f"no flight {missing[0]} in the history")
+    rows = [by_id[i] for i in ids]
+    titles = [" · ".join(x for x in (r["athlete"], r["session"], f"{r['path']} flight {r['flight_index']}",
+                                     f"entry {r['clip_id']}") if x) for r in rows]
+    return [json.loads(r["record_json"]) for r in rows], titles

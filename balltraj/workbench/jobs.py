@@ -103,7 +103,7 @@ def _run(job: Job, clip: pipeline.ClipInput) -> None:
             job.flights.append({"flight": f.flight, "t": np.asarray(f.t, float), "frame": np.asarray(f.frame, int),
                                 "uv": np.asarray(f.uv, float), "radius_px": np.asarray(f.radius_px, float),
                                 "quality": np.asarray(f.quality, float), "keep": np.ones(len(f.t), bool)})
-            job.records.append(_labelled(by_flight.get(f.flight), job.labels))
+            job.records.append(_labelled(by_flight.get(f.flight), job.labels, job.clip_name))
         job.warnings = list(res.tracking.warnings) + list(res.failures)
         job.state = "done"
     except BallTrajError as e:
@@ -112,7 +112,11 @@ def _run(job: Job, clip: pipeline.ClipInput) -> None:
         job.error, job.state = f"internal error ({type(e).__name__}: {e}); this is a bug in balltraj", "failed"
 
 
-def _labelled(rec, labels):
+def _labelled(rec, labels, clip_name: str | None = None):
+    if rec is not None and clip_name is not None:  # the clip by its name in the folder, not where the folder is
+        n = rec["clip"]["flight"]
+        rec["source"] = f"{clip_name}#flight-{n}"
+        rec["clip"]["path"] = clip_name
     if rec is not None:
         for k, v in labels.items():
             if v:
