@@ -258,3 +258,27 @@ def test_compare_two_flights(client, folder):
     assert client.get("/compare", params=[("f", "1")]).status_code == 400
     assert client.get("/compare", params=[("f", "1"), ("f", "99")]).status_code == 404
     assert client.get("/compare", params=[("f", "1"), ("f", "x;drop")]).status_code == 400
+
+
+def test_viewer_frames_are_the_clips_frames_in_order():
+    import cv2
+
+    from balltraj.workbench.files import FrameStore
+
+    # Source: OpenCV's own sequential decode of the clip (what the tracker reads), independent of the store
+    cap = cv2.VideoCapture(str(ROOT / "sample_clips" / CLIP))
+    frames = []
+    while True:
+        ok, img = cap.read()
+        if not ok:
+            break
+        frames.append(img)
+    cap.release()
+    store = FrameStore(max_bytes=200_000)  # a small cache: most requests decode again
+    assert store.info(ROOT / "sample_clips" / CLIP)["frames"] == len(frames)
+    for k in (0, 7, 3, 120, len(frames) - 1, 60, 61, 59):  # forward, back, far, the last, stepping
+        img = cv2.imdecode(np.frombuffer(store.jpeg(ROOT / "sample_clips" / CLIP, k), np.uint8),
+                           cv2.IMREAD_COLOR).astype(float)
+        near = range(max(0, k - 3), min(len(frames), k + 4))
+        errs = {j: np.abs(img - frames[j]).mean() for j in near}
+        assert min(errs, key=errs.get) == k and errs[k] < 2.0  # JPEG quality 88: under 2 grey levels on average

@@ -15,7 +15,8 @@ from ..errors import InputError
 
 CLIP_EXTENSIONS = {".mp4", ".mov", ".avi", ".mkv", ".m4v"}
 MAX_PATH_CHARS = 500
-MAX_CACHED_FRAMES = 4000  # decoded frames kept (JPEG bytes) over all clips
+MAX_CACHE_BYTES = 200 * 1024 * 1024  # encoded frames kept over all clips
+MAX_OPEN_CLIPS = 4
 
 
 class OutsideFolder(InputError):
@@ -68,62 +69,94 @@ def list_clips(root: Path, depth: int = 2) -> list[str]:
 
 
 class FrameStore:
-    """Frames of clips as JPEG, decoded in order once (no seeking, so frame k is exactly the k-th
-    frame the tracker saw) and kept in a bounded cache."""
+    """Frames of clips as JPEG for the viewer.
 
-    def __init__(self, max_frames: int = MAX_CACHED_FRAMES):
+    Frames are decoded in order (never seeked, as the tracker reads them, so frame k here is the
+    k-th frame the tracker saw): a step forward reads on from the last frame, a step back reopens
+    the clip. Encoded frames are kept in a cache bounded in bytes, so going back over frames
+    already seen is instant. Opening a clip reads its header and first frame only.
+    """
+
+    def __init__(self, max_bytes: int = MAX_CACHE_BYTES):
         self._lock = threading.Lock()
-        self._clips: OrderedDict[str, dict] = OrderedDict()
-        self._max = max_frames
+        self._max = max_bytes
+        self._jpeg: OrderedDict[tuple[str, int, int], bytes] = OrderedDict()
+        self._bytes = 0
+        self._open: dict[str, dict] = {}  # clip -> {"stamp", "cap", "next", "info"}
 
     def info(self, clip: Path) -> dict:
-        """Frame count, rate and size of a clip (decoding it all once)."""
-        c = self._load(clip)
-        return {"frames": len(c["jpeg"]), "fps": c["fps"], "width": c["width"], "height": c["height"]}
+        """Frame count (from the header, corrected when the clip ends sooner), rate and size."""
+        with self._lock:
+            return dict(self._state(clip)["info"])
 
     def jpeg(self, clip: Path, k: int) -> bytes:
-        c = self._load(clip)
-        if not 0 <= k < len(c["jpeg"]):
-            raise InputError(f"frame {k} is not in this clip (0..{len(c['jpeg']) - 1})", path=clip.name)
-        return c["jpeg"][k]
-
-    def _load(self, clip: Path) -> dict:
-        key = str(clip)
-        stamp = clip.stat().st_mtime_ns if clip.exists() else None
         with self._lock:
-            c = self._clips.get(key)
-            if c is not None and c["stamp"] == stamp:
-                self._clips.move_to_end(key)
-                return c
-            c = _decode(clip, self._max)
-            c["stamp"] = stamp
-            self._clips[key] = c
-            while sum(len(v["jpeg"]) for v in self._clips.values()) > self._max and len(self._clips) > 1:
-                self._clips.popitem(last=False)
-            return c
-
-
-def _decode(clip: Path, limit: int) -> dict:
-    if not clip.is_file():
-        raise InputError("no such clip", path=clip.name)
-    cap = cv2.VideoCapture(str(clip))
-    try:
-        if not cap.isOpened():
-            raise InputError("this file cannot be read as a video", path=clip.name,
-                             hint="give an MP4, MOV, AVI or MKV clip")
-        fps = float(cap.get(cv2.CAP_PROP_FPS) or 0.0)
-        frames = []
-        w = h = 0
-        while len(frames) < limit:
-            ok, img = cap.read()
+            st = self._state(clip)
+            n = st["info"]["frames"]
+            if not 0 <= k < n:
+                raise InputError(f"frame {k} is not in this clip (0..{n - 1})", path=clip.name)
+            key = (str(clip), st["stamp"], k)
+            if key in self._jpeg:
+                self._jpeg.move_to_end(key)
+                return self._jpeg[key]
+            if k < st["next"] or st["cap"] is None:
+                _release(st)
+                st["cap"], st["next"] = _open(clip), 0
+            cap = st["cap"]
+            while st["next"] < k and cap.grab():
+                st["next"] += 1
+            ok, img = cap.read() if st["next"] == k else (False, None)
             if not ok:
-                break
-            h, w = img.shape[:2]
+                st["info"]["frames"] = max(1, st["next"])  # the header promised more frames than there are
+                _release(st)
+                raise InputError(f"frame {k} is not in this clip (it ends after {st['info']['frames']} frames)",
+                                 path=clip.name)
+            st["next"] = k + 1
             ok, buf = cv2.imencode(".jpg", img, [cv2.IMWRITE_JPEG_QUALITY, 88])
-            if ok:
-                frames.append(buf.tobytes())
-    finally:
+            data = buf.tobytes()
+            self._jpeg[key] = data
+            self._bytes += len(data)
+            while self._bytes > self._max and len(self._jpeg) > 1:
+                self._bytes -= len(self._jpeg.popitem(last=False)[1])
+            return data
+
+    def _state(self, clip: Path) -> dict:
+        if not clip.is_file():
+            raise InputError("no such clip", path=clip.name)
+        key, stamp = str(clip), clip.stat().st_mtime_ns
+        st = self._open.get(key)
+        if st is not None and st["stamp"] == stamp:
+            return st
+        if st is not None:
+            _release(st)
+        if len(self._open) >= MAX_OPEN_CLIPS:
+            _release(self._open.pop(next(iter(self._open))))
+        cap = _open(clip)
+        ok, img = cap.read()
+        if not ok:
+            cap.release()
+            raise InputError("the clip holds no readable frames", path=clip.name, hint="check that the file is a video")
+        count = int(cap.get(cv2.CAP_PROP_FRAME_COUNT) or 0)
+        fps = float(cap.get(cv2.CAP_PROP_FPS) or 0.0)
+        info = {"frames": max(count, 1), "fps": fps if fps > 0 else None, "width": int(img.shape[1]),
+                "height": int(img.shape[0])}
+        st = {"stamp": stamp, "cap": cap, "next": 1, "info": info}
+        ok, buf = cv2.imencode(".jpg", img, [cv2.IMWRITE_JPEG_QUALITY, 88])
+        self._jpeg[(key, stamp, 0)] = buf.tobytes()
+        self._bytes += len(self._jpeg[(key, stamp, 0)])
+        self._open[key] = st
+        return st
+
+
+def _open(clip: Path):
+    cap = cv2.VideoCapture(str(clip))
+    if not cap.isOpened():
         cap.release()
-    if not frames:
-        raise InputError("the clip holds no readable frames", path=clip.name, hint="check that the file is a video")
-    return {"jpeg": frames, "fps": fps if fps > 0 else None, "width": w, "height": h}
+        raise InputError("this file cannot be read as a video", path=clip.name, hint="give an MP4, MOV, AVI or MKV clip")
+    return cap
+
+
+def _release(st: dict) -> None:
+    if st.get("cap") is not None:
+        st["cap"].release()
+    st["cap"], st["next"] = None, 0
