@@ -20,14 +20,23 @@ const q = (o) => new URLSearchParams(o).toString();
 function say(id, text, bad = false) { const el = $(id); el.textContent = text; el.classList.toggle("bad", bad); }
 
 // ------------------------------------------------------------------ frames
+// one frame request at a time: while one loads, only the latest frame asked for waits
+let loading = false, pending = null;
 function showFrame(k) {
   state.k = Math.max(0, Math.min(N - 1, k));
   $("scrub").value = state.k;
   const fps = Number(bench.dataset.fps);
   $("frameno").textContent = `frame ${state.k} of ${N - 1}` + (fps > 0 ? ` · ${(state.k / fps).toFixed(3)} s` : "");
+  if (loading) { pending = state.k; return; }
+  loading = true;
   img.src = `/frame?${q({path: clip, k: state.k})}`;
 }
-img.onload = draw;
+function frameDone() {
+  loading = false;
+  if (pending !== null) { const k = pending; pending = null; showFrame(k); } else draw();
+}
+img.onload = frameDone;
+img.onerror = frameDone;
 $("scrub").addEventListener("input", (e) => showFrame(Number(e.target.value)));
 $("prev").addEventListener("click", () => showFrame(state.k - 1));
 $("next").addEventListener("click", () => showFrame(state.k + 1));
