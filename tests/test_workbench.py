@@ -282,3 +282,40 @@ def test_viewer_frames_are_the_clips_frames_in_order():
         near = range(max(0, k - 3), min(len(frames), k + 4))
         errs = {j: np.abs(img - frames[j]).mean() for j in near}
         assert min(errs, key=errs.get) == k and errs[k] < 2.0  # JPEG quality 88: under 2 grey levels on average
+
+
+def test_a_bug_is_a_clean_page_not_a_traceback(folder, monkeypatch):
+    import balltraj.workbench.app as wb_app
+
+    def boom(*a, **k):
+        raise ZeroDivisionError("secret detail")
+
+    monkeypatch.setattr(wb_app, "calibrate_clicks", boom)
+    monkeypatch.setattr(wb_app.history, "view", boom)
+    c = TestClient(create_app(folder, allowed_hosts=["testserver"]), raise_server_exceptions=False)
+    r = c.post("/api/calibrate", json={"path": CLIP, "template": "soccer-goal", "clicks": visible_clicks()})
+    assert r.status_code == 500 and "internal error (ZeroDivisionError)" in r.json()["error"]
+    r = c.get("/history")
+    assert r.status_code == 500 and "this is a bug in balltraj" in r.text and "Traceback" not in r.text
+    assert "secret detail" not in r.text
+
+
+def test_a_clip_without_a_ball_fails_with_a_message(folder):
+    import cv2
+
+    from balltraj.camera.model import look_at_camera
+    from balltraj.formats import write_json
+
+    path = folder / "empty-field.mp4"
+    w = cv2.VideoWriter(str(path), cv2.VideoWriter_fourcc(*"mp4v"), 60.0, (320, 240))
+    grass = np.full((240, 320, 3), (60, 120, 55), np.uint8)
+    for _ in range(30):
+        w.write(grass)
+    w.release()
+    cam = look_at_camera("side", [0, -10, 1.5], [0, 0, 1], 300, (320, 240))
+    write_json(folder / "empty-field.camera.json", cam.to_dict())
+    c = TestClient(create_app(folder, allowed_hosts=["testserver"]))
+    s = _wait(c, c.post("/api/analyze", json={"path": "empty-field.mp4", "ball": "baseball"}).json()["job"])
+    assert s["state"] == "failed" and "empty-field.mp4" in s["error"] and "ball" in s["error"]
+    assert 0 < s["done"] <= 30  # progress was reported, in frames of this clip
+    assert c.get(f"/report/{s['id']}").status_code == 404

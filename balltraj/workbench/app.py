@@ -126,6 +126,8 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
                 return JSONResponse({"error": e.problem}, 413)
             except BallTrajError as e:
                 return JSONResponse({"error": e.one_line()}, 400)
+            except Exception as e:  # noqa: BLE001 - a bug: say so on the page, keep serving
+                return JSONResponse({"error": f"internal error ({type(e).__name__}); this is a bug in balltraj"}, 500)
         return run
 
     async def index(request: Request):
@@ -286,6 +288,9 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
     async def not_found(request: Request, exc):
         return error_page("there is nothing at this address", 404)
 
+    async def server_error(request: Request, exc):
+        return error_page(f"internal error ({type(exc).__name__}); this is a bug in balltraj, please report it", 500)
+
     routes = [
         Route("/", index), Route("/clip", clip_page), Route("/frame", frame), Route("/history", history_page),
         Route("/compare", compare_flights),
@@ -297,7 +302,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         Mount("/static", StaticFiles(directory=str(HERE / "static")), name="static"),
     ]
     mw = [Middleware(TrustedHostMiddleware, allowed_hosts=list(allowed_hosts)), Middleware(SafeHeaders)]
-    app = Starlette(routes=routes, middleware=mw, exception_handlers={404: not_found})
+    app = Starlette(routes=routes, middleware=mw, exception_handlers={404: not_found, 500: server_error})
     app.state.root, app.state.jobs, app.state.library = root, jobs, lib_path
 
     return app
