@@ -31,7 +31,7 @@ from ..physics.balls import ball_names, get_ball
 from ..report.html import build_report
 from . import history
 from .files import FrameStore, OutsideFolder, camera_path, inside, list_clips
-from .geometry import calibrate_clicks, ground_point, template_pixels
+from .geometry import TOWARD_ORIGIN, calibrate_clicks, ground_point, template_pixels
 from .jobs import Jobs, refit, save_to_library
 
 HERE = Path(__file__).parent
@@ -164,6 +164,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         return JSONResponse({"clip": rel, **info, "camera": None if cam is None else cam.to_dict(),
                              "clicked": _saved_clicks(camera_path(p)) if cam is not None else None,
                              "camera_file": camera_path(p).name, "balls": ball_names(),
+                             "turn_default": sorted(TOWARD_ORIGIN),
                              "templates": {k: {"frame": v["frame"], "rule": v["rule"],
                                                "points": {n: list(x) for n, x in v["points"].items()}}
                                            for k, v in TEMPLATES.items()}})
@@ -320,7 +321,7 @@ def _saved_clicks(path: Path):
     if cal.get("from") != "balltraj workbench" or template not in TEMPLATES or not isinstance(clicks, dict):
         return None
     try:
-        return {"template": template, "clicks": {_str(k, "landmark"): list(_pixel(v)) for k, v in clicks.items()
+        return {"template": template, "turned": cal.get("turned") is True, "clicks": {_str(k, "landmark"): list(_pixel(v)) for k, v in clicks.items()
                                                  if k in TEMPLATES[template]["points"]}}
     except InputError:
         return None

@@ -106,8 +106,8 @@ def _run(job: Job, clip: pipeline.ClipInput) -> None:
             job.records.append(_labelled(by_flight.get(f.flight), job.labels, job.clip_name))
         job.warnings = list(res.tracking.warnings) + list(res.failures)
         job.state = "done"
-    except BallTrajError as e:
-        job.error, job.state = e.one_line(), "failed"
+    except BallTrajError as e:  # the clip by its name in the folder
+        job.error, job.state = e.one_line().replace(str(job.clip), job.clip_name), "failed"
     except Exception as e:  # noqa: BLE001 - a bug must reach the page, not kill the server
         job.error, job.state = f"internal error ({type(e).__name__}: {e}); this is a bug in balltraj", "failed"
 

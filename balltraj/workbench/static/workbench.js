@@ -136,7 +136,8 @@ function clickLandmark(uv) {
 async function recalibrate(save = false) {
   listLandmarks(); draw();
   try {
-    const r = await api("/api/calibrate", {path: clip, template: state.template, clicks: state.clicks, save});
+    const r = await api("/api/calibrate", {path: clip, template: state.template, clicks: state.clicks, save,
+      turn: $("turn").checked});
     if (r.need) {
       state.calib = null; $("save-camera").disabled = true;
       say("calib-status", `Click ${r.need} more landmark${r.need > 1 ? "s" : ""}.`);
@@ -153,8 +154,11 @@ async function recalibrate(save = false) {
 }
 $("save-camera").addEventListener("click", () => recalibrate(true));
 $("template").addEventListener("change", (e) => {
-  state.template = e.target.value; state.clicks = {}; state.calib = null; nextLandmark(); recalibrate();
+  state.template = e.target.value; state.clicks = {}; state.calib = null;
+  $("turn").checked = state.turnDefault.includes(state.template);
+  nextLandmark(); recalibrate();
 });
+$("turn").addEventListener("change", () => recalibrate());
 
 // ------------------------------------------------------------------ start point
 async function clickStart(uv) {
@@ -256,7 +260,9 @@ $("report").addEventListener("load", () => { $("report").dataset.loaded = $("rep
     }
     for (const b of info.balls) { const o = document.createElement("option"); o.value = b; o.textContent = b; $("ball").append(o); }
     state.template = info.clicked?.template ?? Object.keys(info.templates)[0];
+    state.turnDefault = info.turn_default;
     $("template").value = state.template;
+    $("turn").checked = info.clicked ? info.clicked.turned : state.turnDefault.includes(state.template);
     if (info.clicked) state.clicks = info.clicked.clicks;
     nextLandmark(); listLandmarks();
     if (info.clicked) recalibrate();
