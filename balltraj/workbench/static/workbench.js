@@ -93,7 +93,9 @@ function setStep(step) {
   $("hint").textContent = hints[step];
   draw();
 }
-canvas.addEventListener("click", (e) => {
+// pointer events carry fractional coordinates (sub-pixel on high-density screens); click events may not
+canvas.addEventListener("pointerdown", (e) => {
+  if (e.button !== 0) return;
   const uv = imagePoint(e);
   if (state.step === "calibrate") clickLandmark(uv);
   else if (state.step === "start") clickStart(uv);
