@@ -204,6 +204,9 @@ def test_analysis_review_refit_and_history(client, folder):
     speed = float(f["cards"][0][1].split("(")[1].split(" m/s")[0])
     assert speed == pytest.approx(TRUTH["truth"]["launch"]["speed_mps"], rel=0.02)
     assert float(f["cards"][2][1].split(" ")[0]) == pytest.approx(TRUTH["truth"]["spin"]["rate_rpm"], rel=0.05)
+    imperial = client.get(f"/api/job/{s['id']}", params={"units": "imperial"}).json()["flights"][0]["cards"][0][1]
+    # Source: 1 mph = 0.44704 m/s exactly (international yard and pound, 1959)
+    assert float(imperial.split(" mph")[0].split(" ")[0]) == pytest.approx(speed / 0.44704, abs=0.06)
     report = client.get(f"/report/{s['id']}")
     assert report.status_code == 200 and "sandbox" in report.headers["content-security-policy"]
     assert "<b>Tobi" not in report.text

@@ -236,7 +236,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
 
     @api
     async def job_state(request: Request):
-        return JSONResponse(jobs.get(request.path_params["job"]).summary())
+        return JSONResponse(jobs.get(request.path_params["job"]).summary(_units(request.query_params.get("units"))))
 
     @api
     async def refit_flight(request: Request):
@@ -246,7 +246,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         if not isinstance(keep, list) or len(keep) > 100000 or not all(isinstance(k, bool) for k in keep):
             raise InputError("keep must be a list of true/false, one a tracked point")
         await run_in_threadpool(refit, job, int(_num(b.get("flight"), "flight", lo=0, hi=1000)), keep)
-        return JSONResponse(job.summary())
+        return JSONResponse(job.summary(_units(b.get("units"))))
 
     @api
     async def save(request: Request):
@@ -263,8 +263,7 @@ def create_app(folder, *, library: Path | None = None, allowed_hosts=("127.0.0.1
         recs = [r for r in job.records if r is not None]
         if not recs:
             return error_page("this analysis has no fitted flight to report", 404)
-        units = "imperial" if request.query_params.get("units") == "imperial" else "metric"
-        html = await run_in_threadpool(job.report, units, build_report)
+        html = await run_in_threadpool(job.report, _units(request.query_params.get("units")), build_report)
         return HTMLResponse(html, headers={"Content-Security-Policy": REPORT_CSP})
 
     async def history_page(request: Request):
@@ -325,6 +324,10 @@ def _saved_clicks(path: Path):
                                                  if k in TEMPLATES[template]["points"]}}
     except InputError:
         return None
+
+
+def _units(x) -> str:
+    return "imperial" if x == "imperial" else "metric"
 
 
 def _reject(name):

@@ -191,7 +191,7 @@ $("run").addEventListener("click", async () => {
 });
 async function poll() {
   let s;
-  try { s = await api(`/api/job/${state.job}`); } catch (err) { say("run-status", err.message, true); return; }
+  try { s = await api(`/api/job/${state.job}?${q({units: $("units").value})}`); } catch (err) { say("run-status", err.message, true); return; }
   if (s.state === "running") {
     if (s.total) { $("progress").max = s.total; $("progress").value = s.done; }
     say("run-status", s.total ? `Tracking: frame ${s.done} of ${s.total}` : `Tracking: frame ${s.done}`);
@@ -218,12 +218,16 @@ function showResult(s, flight, jump = true) {
     }
     cards.append(c);
   }
-  $("report").src = `/report/${s.id}?t=${Date.now()}`;
+  $("report").src = `/report/${s.id}?${q({units: $("units").value, t: Date.now()})}`;
   $("report").classList.remove("hidden"); $("report-title").classList.remove("hidden");
   if (jump && f.frame.length) showFrame(f.frame[Math.floor(f.frame.length / 2)]);
   draw();
 }
 $("flight").addEventListener("change", (e) => showResult(state.summary, Number(e.target.value)));
+$("units").addEventListener("change", async () => {
+  if (!state.job || state.summary?.state !== "done") return;
+  showResult(await api(`/api/job/${state.job}?${q({units: $("units").value})}`), state.flight, false);
+});
 function togglePoint(uv) {
   const f = state.summary?.flights?.[state.flight];
   if (!f) return;
@@ -238,7 +242,8 @@ function togglePoint(uv) {
 $("refit").addEventListener("click", async () => {
   say("review-status", "Fitting…");
   try {
-    const s = await api("/api/refit", {job: state.job, flight: state.flight, keep: state.keep});
+    const s = await api("/api/refit", {job: state.job, flight: state.flight, keep: state.keep,
+      units: $("units").value});
     say("review-status", `Fitted again with ${state.keep.filter(Boolean).length} points.`);
     showResult(s, state.flight, false);
   } catch (err) { say("review-status", err.message, true); }
