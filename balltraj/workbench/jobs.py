@@ -63,8 +63,7 @@ class Job:
         if self.state == "done":
             out["flights"] = [{"flight": f["flight"], "frame": f["frame"].tolist(), "uv": f["uv"].tolist(),
                                "keep": f["keep"].tolist(),
-                               "cards": None if rec is None else [list(c) for c in headline(rec, units)],
-                               "fit_error": f.get("fit_error")}
+                               "cards": None if rec is None else [list(c) for c in headline(rec, units)]}
                               for f, rec in zip(self.flights, self.records)]
         return out
 

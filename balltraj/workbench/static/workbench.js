@@ -211,6 +211,7 @@ function showResult(s, flight, jump = true) {
   $("refit").disabled = false; $("save-history").disabled = false;
   const f = s.flights[flight];
   const cards = $("headline"); cards.replaceChildren();
+  if (!f.cards) say("review-status", "This flight could not be fitted; drop the points that are not the ball and fit again.", true);
   if (f.cards) for (const [k, v, n] of f.cards) {
     const c = document.createElement("div"); c.className = "card";
     for (const [cls, text] of [["k", k], ["v", v], ["n", n]]) {
