@@ -8,7 +8,7 @@ import sys
 
 import typer
 
-from . import flight, video, library, calibrate  # noqa: F401, I001  (each registers its commands, in this order)
+from . import flight, video, library, calibrate, workbench  # noqa: F401, I001  (each registers its commands, in this order)
 from .app import app
 
 __all__ = ["app", "main"]
