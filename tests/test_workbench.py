@@ -30,9 +30,9 @@ GOAL_X = TRUTH["target_x_m"]  # the sample's target plane is the goal line (inve
 
 
 def to_sample(p):
-    """The soccer-goal template frame (x out of the goal) -> the sample's frame (ball at the origin,
-    goal line at x = 22 m): a half turn about the vertical and a shift, so the goal is ahead."""
-    return np.array([GOAL_X - p[0], -p[1], p[2]])
+    """The soccer-goal template frame (x into the goal, origin on the goal line) -> the sample's frame
+    (ball at the origin, goal line at x = 22 m): a shift along x."""
+    return np.array([p[0] + GOAL_X, p[1], p[2]])
 
 
 def visible_clicks(cam=TRUE_CAM):
@@ -133,7 +133,7 @@ def test_calibration_round_trip(client, folder):
     assert r.json() == {"need": 1}
     r = client.post("/api/calibrate", json={"path": CLIP, "template": "soccer-goal", "clicks": clicks, "save": True})
     body = r.json()
-    assert r.status_code == 200 and body["saved"] == "free-kick-behind.camera.json" and body["turned"]
+    assert r.status_code == 200 and body["saved"] == "free-kick-behind.camera.json" and not body["turned"]
     assert body["rms_px"] < 1e-6  # exact pixels reproject exactly
     cam = read_cameras(folder / body["saved"])[0]
     # Source: the sample's camera file (calibration/free-kick-behind.json) — the workbench frame has the goal line
@@ -153,11 +153,11 @@ def test_calibration_round_trip(client, folder):
     # reopening the clip brings back the saved clicks
     back = client.get("/api/clip", params={"path": CLIP}).json()["clicked"]
     assert back["template"] == "soccer-goal" and back["clicks"] == {k: list(v) for k, v in clicks.items()}
-    assert back["turned"] is True
-    # not turned: the template's own frame, where the sample camera sits 29 m out on the +x side
+    assert back["turned"] is False
+    # turned half a turn (play the other way): the sample camera then sits 29 m out on the +x side
     body = client.post("/api/calibrate", json={"path": CLIP, "template": "soccer-goal", "clicks": clicks,
-                                               "turn": False}).json()
-    assert not body["turned"] and body["pose"].startswith("camera at x = 29.00 m, y = -1.50 m, height 3.20 m")
+                                               "turn": True}).json()
+    assert body["turned"] and body["pose"].startswith("camera at x = 29.00 m, y = -1.50 m, height 3.20 m")
     # every template landmark the camera sees is predicted (the page rings the ones still to click)
     assert set(clicks) <= set(body["template_px"])
 

@@ -15,11 +15,12 @@ from ..camera.calibrate import SceneCalibration, calibrate_scene, describe_pose,
 from ..camera.model import Camera, rotation_vector
 from ..errors import InputError
 
-# Templates whose frame points against the usual direction of play: the soccer goal's x axis runs
-# out of the goal toward the field, so a kick at goal travels along -x. The flight contract wants
-# the ball moving along +x (the deflection is taken at a plane x = X ahead of the launch), so the
-# workbench turns that frame half a turn about the vertical through its origin: (x, y, z) -> (-x, -y, z).
-TOWARD_ORIGIN = {"soccer-goal"}
+# Templates whose frame points against the usual direction of play would be turned half a turn
+# about the vertical through their origin, (x, y, z) -> (-x, -y, z), so the ball moves along +x as
+# the flight contract wants (the deflection is taken at a plane x = X ahead of the launch). Every
+# template's frame now has x toward the target (tests/test_templates.py), so none is turned by
+# default; the page's checkbox still turns a frame for play in the other direction.
+TOWARD_ORIGIN: set[str] = set()
 HALF_TURN = np.diag([-1.0, -1.0, 1.0])
 
 
