@@ -7,11 +7,11 @@ from typing import List, Optional
 
 import typer
 
-from .app import _command, app
+from .app import _command, app, new_group
 
 
-calibrate_app = typer.Typer(rich_markup_mode=None, help="Calibrate cameras: a printable board, the lens from board views, the scene "
-                            "(camera pose) from field landmarks.", no_args_is_help=True)
+calibrate_app = new_group(help="Calibrate cameras: a printable board, the lens from board views, the scene "
+                            "(camera pose) from field landmarks.")
 app.add_typer(calibrate_app, name="calibrate")
 
 

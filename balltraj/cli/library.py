@@ -8,7 +8,7 @@ from typing import Optional
 
 import typer
 
-from .app import _command, app
+from .app import _command, app, new_group
 from .options import (AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
                       StartSigmaOpt, TemperatureOpt, air_options, ball_option, fit_settings)
 
@@ -44,8 +44,7 @@ def batch(
                          show_progress=sys.stderr.isatty())
 
 
-library_app = typer.Typer(rich_markup_mode=None, help="The flight library: list, show, export and compare analysed clips.",
-                          no_args_is_help=True)
+library_app = new_group(help="The flight library: list, show, remove, export and compare analysed clips.")
 app.add_typer(library_app, name="library")
 
 
