@@ -82,7 +82,7 @@ def spin_dict(spin, velocity, *, gyro_observed: bool) -> dict:
         "axis": _unit(w) if gyro_observed else None,
         "gyro_observed": bool(gyro_observed),
         "gyro_rate_rpm": float(np.dot(w, vhat)) / RPM if gyro_observed else None,
-        "spin_efficiency": (trate / rate if rate > 0 else None) if gyro_observed else None,
+        "transverse_share": (trate / rate if rate > 0 else None) if gyro_observed else None,
         "note": ("full spin vector known (given as input)" if gyro_observed else
                  "only the transverse spin can be recovered from a trajectory; rate_rpm is the "
                  "transverse rate and the gyro (bullet) spin along the flight direction is unknown"),
