@@ -43,7 +43,8 @@ def run_simulate(*, ball: Ball, air: AirConditions, launch: pipeline.Launch, dra
     if path_csv is not None:
         write_csv(path_csv, SIMULATED_PATH_HEADER, simulated_path_rows(res.deflection))
     write_json(out_p, res.record)
-    return flight_summary(res.record, units) + f"\nair note        {air.source}\nwrote {out_p}"
+    note = f"\nair note        {air.source}" if units == "metric" else ""
+    return flight_summary(res.record, units) + f"{note}\nwrote {out_p}"
 
 
 def run_fit(*, inputs: Sequence[Path], settings: pipeline.FitSettings, path_csv: Optional[Path], out: Path,

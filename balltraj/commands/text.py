@@ -66,7 +66,8 @@ def flight_summary(rec: dict, units: str = "metric") -> str:
         lines.append(f"fit             {f['n_points']} points, {f['n_outliers']} outliers, "
                      + (f"rms residual {_len(f['rms_residual'], units)}" if f["residual_unit"] == "m"
                         else f"rms residual {f['rms_residual']:.2f} px"))
-    lines.append("(± one standard deviation; + left and + up are as seen looking along the flight)")
+    if measured:
+        lines.append("(± one standard deviation; left and right as seen looking along the flight)")
     for w in rec.get("warnings", []):
         lines.append(f"warning: {w}")
     return "\n".join(lines)

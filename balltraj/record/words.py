@@ -41,6 +41,8 @@ def source_words(text: str | None) -> str:
     if not text:
         return "—"
     out = str(text)
+    if out in MODEL_WORDS:
+        return MODEL_WORDS[out]
     for k in sorted(MODEL_WORDS, key=len, reverse=True):
         if out.endswith(f"model {k}"):
             return out[: -len(f"model {k}")] + MODEL_WORDS[k]
