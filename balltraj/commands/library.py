@@ -54,6 +54,7 @@ def run_batch_cmd(*, folder: Path, camera: Path, settings: FitSettings, library:
              + (f", {summ.replaced} earlier result(s) replaced" if summ.replaced else "")]
     lines += [f"  failed: {m}" for m in summ.messages]
     lines += [f"  note: {m}" for m in summ.notes]
+    lines += [f"  warning: {w}" for w in summ.warnings]
     if plane_words:
         lines.append(f"target plane: {plane_words}")
     lines.append(f"library: {library}")

@@ -71,6 +71,7 @@ class BatchSummary:
     skipped: int = 0
     messages: list = field(default_factory=list)
     notes: list = field(default_factory=list)  # clips kept as they were, and why
+    warnings: list = field(default_factory=list)  # warnings of the flights stored
     replaced: int = 0
 
 
@@ -116,6 +117,9 @@ def run_batch(lib, tasks: list[BatchTask], hashes: dict, opt_hash: str, options:
                                      "listed as a copy")
         elif out["records"]:
             summary.done += 1
+            for i, rec in enumerate(out["records"]):
+                summary.warnings += [f"{out['clip']} flight {i + 1}: {w}" for w in rec.get("warnings", [])]
+            summary.warnings += [f"{out['clip']}: {w}" for w in out.get("warnings") or []]
         else:
             summary.failed += 1
             summary.messages.append(out["error"] if out["clip"] in (out["error"] or "") else f"{out['clip']}: {out['error']}")
