@@ -241,3 +241,22 @@ def test_target_plane_plot_counts_left_positive(flight_file):
     assert all(b < a for a, b in zip(vals, vals[1:]))  # values fall from left to right
     # and the measured crossing (left of the reference when the deflection is + left) is drawn left of it
     assert rec["deflection"]["horizontal_m"] != 0
+
+
+def test_one_page_text_stays_on_the_page_and_above_the_footer(flight_file):
+    import matplotlib.pyplot as plt
+
+    from balltraj.report.page import FOOTER_TOP, page_figure
+
+    rec = json.loads(flight_file.read_text())
+    rec["warnings"] = ["a long warning that a coach has to read in full, " * 6] * 8
+    fig = page_figure(rec, "a flight with a rather long title " * 3, "imperial")
+    fig.canvas.draw()
+    r = fig.canvas.get_renderer()
+    W, H = fig.bbox.width, fig.bbox.height
+    whole = fig.get_tightbbox(r).transformed(fig.dpi_scale_trans)  # every drawn artist, in pixels
+    assert whole.x0 >= -0.5 and whole.y0 >= -0.5 and whole.x1 <= W + 0.5 and whole.y1 <= H + 0.5
+    above = [t.get_window_extent(r) for t in fig.texts if t.get_gid() != "footer"]
+    above += [ax.get_tightbbox(r) for ax in fig.axes]
+    assert min(b.y0 for b in above) >= FOOTER_TOP * H - 0.5  # nothing runs into the cautions
+    plt.close(fig)

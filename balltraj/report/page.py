@@ -20,7 +20,20 @@ PAGE_IN = (8.27, 11.69)  # A4 portrait
 WRAP = 105  # characters a line at 8 pt across the page's text width
 
 
+FOOTER_TOP = 0.045  # figure fraction: the cautions sit below this line, everything else above it
+
+
 def one_page(rec: dict, title: str, units: str = "metric", fmt: str = "png") -> bytes:
+    """The page as PNG or PDF bytes."""
+    fig = page_figure(rec, title, units)
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=110, metadata={"CreationDate": None} if fmt == "pdf" else None)
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def page_figure(rec: dict, title: str, units: str = "metric"):
+    """The page as a matplotlib figure (A4 portrait)."""
     paths = record_paths(rec)
     big, bu, small, su = plots.length_scale(units)
     fig = plt.figure(figsize=PAGE_IN)
@@ -48,9 +61,9 @@ def one_page(rec: dict, title: str, units: str = "metric", fmt: str = "png") -> 
             fig.text(0.06, y, ln, fontsize=7.5, color="#b45309")
             y -= 0.013
         shown += 1
-    ax1 = fig.add_axes([0.10, 0.50, 0.84, 0.17])
-    ax2 = fig.add_axes([0.10, 0.28, 0.84, 0.17])
-    ax3 = fig.add_axes([0.32, 0.075, 0.38, 0.15])
+    ax1 = fig.add_axes([0.10, 0.515, 0.84, 0.16])
+    ax2 = fig.add_axes([0.10, 0.305, 0.84, 0.16])
+    ax3 = fig.add_axes([0.32, 0.095, 0.38, 0.135])
     lab = "measured (fitted)" if measured(rec) else "predicted"
     for ax, j, ylab in ((ax1, 1, "left (+) of the line"), (ax2, 2, "height")):
         ax.plot(paths.ref_xyz[:, 0] * big, paths.ref_xyz[:, j] * big, "--", color=plots.REFERENCE, label="no spin")
@@ -72,8 +85,5 @@ def one_page(rec: dict, title: str, units: str = "metric", fmt: str = "png") -> 
     ax3.set_xlabel(f"← left (+)   right (−) → ({su})", fontsize=8)
     foot = textwrap.wrap(" ".join(CAUTIONS), 150)
     for i, ln in enumerate(foot):
-        fig.text(0.06, 0.012 + 0.011 * (len(foot) - 1 - i), ln, fontsize=6, color="#475569")
-    buf = io.BytesIO()
-    fig.savefig(buf, format=fmt, dpi=110, metadata={"CreationDate": None} if fmt == "pdf" else None)
-    plt.close(fig)
-    return buf.getvalue()
+        fig.text(0.06, 0.010 + 0.010 * (len(foot) - 1 - i), ln, fontsize=6, color="#475569", gid="footer")
+    return fig
