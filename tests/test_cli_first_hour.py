@@ -273,3 +273,11 @@ def test_transverse_share_replaces_spin_efficiency(tmp_path):
     assert spin["transverse_share"] == pytest.approx(math.sqrt(1 - (math.cos(math.radians(1)) / math.sqrt(2)) ** 2),
                                                      rel=1e-6)
     assert transverse_share({"spin_efficiency": 0.7}) == 0.7  # older files
+
+
+def test_report_repeats_the_flight_files_warnings(analyzed, tmp_path):
+    out, _ = analyzed
+    rec = json.loads((out / "flight.json").read_text())
+    r = runner.invoke(app, ["report", str(out / "flight.json"), "-o", str(tmp_path / "r.html")])
+    assert r.exit_code == 0 and rec["warnings"]
+    assert all(w in r.output for w in rec["warnings"])
