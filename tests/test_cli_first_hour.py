@@ -281,3 +281,11 @@ def test_report_repeats_the_flight_files_warnings(analyzed, tmp_path):
     r = runner.invoke(app, ["report", str(out / "flight.json"), "-o", str(tmp_path / "r.html")])
     assert r.exit_code == 0 and rec["warnings"]
     assert all(w in r.output for w in rec["warnings"])
+
+
+def test_console_angles_in_words(tmp_path):
+    r = runner.invoke(app, ["simulate", "--ball", "baseball", "--position", "0,0,1.8", "--speed", "40",
+                            "--elevation", "-1", "--azimuth", "-2", "--spin-rpm", "2200", "--spin-axis", "0,-1,0",
+                            "-o", str(tmp_path / "s.json")])
+    # azimuth is counted from +x toward +y (left): -2 degrees is 2 degrees to the right
+    assert "1.00 deg down, 2.00 deg right" in r.output

@@ -41,8 +41,9 @@ def flight_summary(rec: dict, units: str = "metric") -> str:
     lines = [
         f"ball            {rec['ball_properties']['title']}" + ("" if measured else " (predicted flight, not measured)"),
         f"launch speed    {speed_text(L['speed_mps'], units, u('launch', 'speed_mps'))}",
-        f"launch angles   {pm(L['elevation_deg'], 'launch', 'elevation_deg', 2)} deg up, "
-        f"{pm(L['azimuth_deg'], 'launch', 'azimuth_deg', 2)} deg left",
+        f"launch angles   {pm(abs(L['elevation_deg']), 'launch', 'elevation_deg', 2)} deg "
+        f"{'up' if L['elevation_deg'] >= 0 else 'down'}, "
+        f"{pm(abs(L['azimuth_deg']), 'launch', 'azimuth_deg', 2)} deg {'left' if L['azimuth_deg'] >= 0 else 'right'}",
         f"spin            {spin_text(S['transverse_rate_rpm'] * RPM, (u('spin', 'transverse_rate_rpm') or 0) * RPM or None)}"
         f" transverse" + ("" if S["gyro_observed"] else " (gyro spin not observable)"),
         f"transverse axis ({', '.join(f'{a:+.2f}' for a in S['transverse_axis'])})"
