@@ -249,27 +249,40 @@ def calibrate_lens(views: list[tuple[str, np.ndarray]], cols: int, rows: int, sq
     return LensCalibration(cam, float(rms), per_view, used, rejected, coverage, warnings)
 
 
-def board_figure(cols: int, rows: int, square_mm: float, margin_mm: float = 15.0):
-    """A matplotlib figure of the printable board at its true size (squares = inner corners + 1)."""
+def board_figure(cols: int, rows: int, square_mm: float, margin_mm: float = 10.0):
+    """A matplotlib figure of the printable board at its true size (squares = inner corners + 1), on
+    a page that fits both A4 (210 x 297 mm) and US Letter (215.9 x 279.4 mm) at 100 %: 210 x 279.4 mm,
+    the board turned to portrait when that fits better, ``margin_mm`` clear of every edge for the
+    printer. Raises InputError when the board does not fit at this square size."""
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
+    page_w, page_h = 210.0, 279.4  # mm: the narrower of A4 and Letter, the shorter of the two
     nx, ny = cols + 1, rows + 1
-    wmm, hmm = nx * square_mm + 2 * margin_mm, ny * square_mm + 2 * margin_mm + 10
-    fig = plt.figure(figsize=(wmm / 25.4, hmm / 25.4))
+    text_mm = 6.0
+    room_w, room_h = page_w - 2 * margin_mm, page_h - 2 * margin_mm - text_mm
+    fits = [(a, b) for a, b in ((nx, ny), (ny, nx)) if a * square_mm <= room_w and b * square_mm <= room_h]
+    if not fits:
+        best = max(min(room_w / a, room_h / b) for a, b in ((nx, ny), (ny, nx)))
+        raise InputError(f"a {cols} x {rows} board with {square_mm:g} mm squares does not fit on A4 or Letter",
+                         hint=f"use --square-mm {math.floor(best):g} or less, or fewer corners")
+    ax_n, ay_n = fits[0]
+    fig = plt.figure(figsize=(page_w / 25.4, page_h / 25.4))
     ax = fig.add_axes([0, 0, 1, 1])
-    ax.set_xlim(0, wmm)
-    ax.set_ylim(0, hmm)
+    ax.set_xlim(0, page_w)
+    ax.set_ylim(0, page_h)
     ax.axis("off")
-    for i in range(nx):
-        for j in range(ny):
+    x0 = (page_w - ax_n * square_mm) / 2
+    y0 = margin_mm + text_mm + (room_h - ay_n * square_mm) / 2
+    for i in range(ax_n):
+        for j in range(ay_n):
             if (i + j) % 2 == 0:
-                ax.add_patch(plt.Rectangle((margin_mm + i * square_mm, margin_mm + 10 + j * square_mm),
-                                           square_mm, square_mm, color="black", lw=0))
-    ax.text(margin_mm, 5, f"balltraj calibration board: {cols} x {rows} inner corners, squares {square_mm:g} mm. "
-            "Print at 100 % and check one square with a ruler.", fontsize=7)
+                ax.add_patch(plt.Rectangle((x0 + i * square_mm, y0 + j * square_mm), square_mm, square_mm,
+                                           color="black", lw=0))
+    ax.text(margin_mm, margin_mm, f"balltraj calibration board: {cols} x {rows} inner corners, squares "
+            f"{square_mm:g} mm. Print at 100 % (A4 or Letter) and check one square with a ruler.", fontsize=7)
     return fig
 
 

@@ -27,7 +27,8 @@ def main() -> None:
         rv = app(standalone_mode=False)
     except SystemExit:
         raise
-    except getattr(exc, "NoArgsIsHelpError", ()):  # bare `balltraj` or a bare group: help was shown
+    except getattr(exc, "NoArgsIsHelpError", ()) as e:  # bare `balltraj` or a bare group: its help, exit 0
+        typer.echo(e.format_message())
         sys.exit(0)
     except exc.UsageError as e:
         cmd = e.ctx.command_path if e.ctx is not None else "balltraj"

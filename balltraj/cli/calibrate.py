@@ -7,11 +7,11 @@ from typing import List, Optional
 
 import typer
 
-from .app import _command, app
+from .app import _command, app, new_group
 
 
-calibrate_app = typer.Typer(rich_markup_mode=None, help="Calibrate cameras: a printable board, the lens from board views, the scene "
-                            "(camera pose) from field landmarks.", no_args_is_help=True)
+calibrate_app = new_group(help="Calibrate cameras: a printable board, the lens from board views, the scene "
+                            "(camera pose) from field landmarks.")
 app.add_typer(calibrate_app, name="calibrate")
 
 
@@ -19,7 +19,7 @@ app.add_typer(calibrate_app, name="calibrate")
 def calibrate_board(
     cols: int = typer.Option(9, "--cols", help="Inner corners across."),
     rows: int = typer.Option(6, "--rows", help="Inner corners down."),
-    square_mm: float = typer.Option(30.0, "--square-mm", help="Square size [mm]."),
+    square_mm: float = typer.Option(25.0, "--square-mm", help="Square size [mm] (the board must fit A4 and Letter: 25 mm fits 9 x 6)."),
     out: Path = typer.Option(..., "-o", "--out", help="Board file; writes NAME.png and NAME.pdf."),
 ):
     """Write a printable checkerboard (PNG and PDF) at a stated square size."""
@@ -33,7 +33,7 @@ def calibrate_lens_cmd(
     inputs: List[Path] = typer.Argument(..., help="Images of the printed board, or a video of it."),
     cols: int = typer.Option(9, "--cols", help="Inner corners across."),
     rows: int = typer.Option(6, "--rows", help="Inner corners down."),
-    square_mm: float = typer.Option(30.0, "--square-mm", help="Square size as printed [mm]."),
+    square_mm: float = typer.Option(25.0, "--square-mm", help="Square size as printed [mm] (measure one with a ruler)."),
     name: str = typer.Option("camera", "--name", help="Camera name."),
     every: int = typer.Option(10, "--every", help="With a video: use every Nth frame."),
     out: Path = typer.Option(..., "-o", "--out", help="Lens (camera) file to write."),

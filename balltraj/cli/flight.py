@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 from typing import List, Optional
 
@@ -11,7 +10,8 @@ import typer
 from ..errors import InputError
 from .app import _command, app
 from .options import (AirDensityOpt, AltitudeOpt, BallFileOpt, HumidityOpt, PressureOpt, StartNearOpt,
-                      StartSigmaOpt, TemperatureOpt, air_options, ball_option, fit_settings, si, vector)
+                      StartSigmaOpt, TemperatureOpt, UnitsOpt, air_options, ball_option, fit_settings, si, si_list,
+                      units_option, vector)
 
 
 @_command(app)
@@ -36,6 +36,7 @@ def simulate(
     target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: landing point)."),
     ball_file: BallFileOpt = None,
     path_csv: Optional[Path] = typer.Option(None, "--path-csv", help="Also write the sampled path (t,x,y,z,vx,vy,vz)."),
+    units: UnitsOpt = "metric",
     out: Path = typer.Option(..., "-o", "--out", help="Flight file to write (JSON)."),
 ):
     """Predict a flight from a launch state and spin; write a flight file."""
@@ -60,6 +61,7 @@ def simulate(
         ball=ball_option(ball, ball_file), air=air_options(air_density, temperature, pressure, humidity, altitude), launch=launch,
         drag_coefficient=drag_coefficient, lift_model=lift_model, lift_coefficient=lift_coefficient,
         spin_decay_s=spin_decay, target_x_m=si(target_x, "length", "--target-x"), path_csv=path_csv, out=out,
+        units=units_option(units),
     )
 
 
@@ -67,7 +69,9 @@ def simulate(
 def fit(
     inputs: List[Path] = typer.Argument(..., help="Track CSV(s) (t,x,y,z[,sigma])."),
     ball: str = typer.Option(..., "--ball", help="Ball name (see `balltraj balls`)."),
-    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: last tracked x)."),
+    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: the game's natural "
+                                           "plane, e.g. the front of home plate, when the track starts before it; "
+                                           "else the last tracked x)."),
     camera: Optional[Path] = typer.Option(None, "--camera", help="Camera or rig file: fit pixel observations (t,camera,u,v) in image space."),
     flight: Optional[int] = typer.Option(None, "--flight", help="Which flight of an observations file with a flight column."),
     start_near: StartNearOpt = None,
@@ -84,6 +88,7 @@ def fit(
     session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight file."),
     notes: Optional[str] = typer.Option(None, "--notes", help="Free text kept in the flight file."),
     path_csv: Optional[Path] = typer.Option(None, "--path-csv", help="Write fitted and no-spin paths and their difference."),
+    units: UnitsOpt = "metric",
     out: Path = typer.Option(..., "-o", "--out", help="Flight file (one input) or folder (several)."),
 ):
     """Fit the flight model to tracked positions: launch state, transverse spin, deflection."""
@@ -92,36 +97,42 @@ def fit(
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),
                          target_x, start_near, start_sigma, fit_drag, free_lift)
     return run_fit(inputs=inputs, settings=settings, path_csv=path_csv, out=out,
-                   labels={"athlete": athlete, "session": session, "notes": notes}, camera=camera, flight=flight)
+                   labels={"athlete": athlete, "session": session, "notes": notes}, camera=camera, flight=flight,
+                   units=units_option(units))
 
 
 @_command(app)
 def report(
     flights: List[Path] = typer.Argument(..., help="Flight file(s) (JSON) from fit, simulate or analyze."),
-    units: str = typer.Option("metric", "--units", help="metric or imperial."),
+    units: UnitsOpt = "metric",
     fmt: str = typer.Option("html", "--format", help="html (any number of flights), png or pdf (one flight)."),
-    what_if_altitude: List[float] = typer.Option([], "--what-if-altitude", help="Also re-fly at this altitude [m]."),
-    what_if_temperature: List[float] = typer.Option([], "--what-if-temperature", help="Also re-fly at this temperature [deg C]."),
+    what_if_altitude: List[str] = typer.Option([], "--what-if-altitude", help="Also re-fly at this altitude [m] "
+                                               "(or 5280ft); repeatable."),
+    what_if_temperature: List[str] = typer.Option([], "--what-if-temperature", help="Also re-fly at this temperature "
+                                                  "[deg C] (or 90F); repeatable."),
     out: Path = typer.Option(..., "-o", "--out", help="Report file to write."),
 ):
     """Write a report a coach can read: headline numbers, paths with and without spin, fit quality."""
     from ..commands.report import run_report
 
-    return run_report(flights=flights, units=units, out=out, fmt=fmt, altitudes=what_if_altitude,
-                      temperatures=what_if_temperature)
+    return run_report(flights=flights, units=units_option(units), out=out, fmt=fmt.lower(),
+                      altitudes=si_list(what_if_altitude, "length", "--what-if-altitude"),
+                      temperatures=si_list(what_if_temperature, "temperature", "--what-if-temperature"))
 
 
 @_command(app)
-def balls(models: bool = typer.Option(False, "--models", help="Also list the aerodynamic models.")):
-    """List the ball catalogue (sizes from each game's rules) and the aerodynamic models."""
+def balls(models: bool = typer.Option(False, "--models", help="Also list the aerodynamic models."),
+          units: UnitsOpt = "metric"):
+    """List the ball catalogue (sizes from each game's rules), what is checked, and the aerodynamic models."""
     from ..commands.fit import run_balls
 
-    return run_balls(models)
+    return run_balls(models, units_option(units))
 
 
 @_command(app)
-def demo(out: Path = typer.Option(Path("balltraj-demo"), "--out", help="Folder for the results.")):
+def demo(out: Path = typer.Option(Path("balltraj-demo"), "-o", "--out", help="Folder for the results."),
+         units: UnitsOpt = "metric"):
     """Run the whole job on the bundled sample session and print a summary."""
     from ..commands.demo import run_demo
 
-    return run_demo(out, show_progress=sys.stderr.isatty())
+    return run_demo(out, show_progress=True, units=units_option(units))

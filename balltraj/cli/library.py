@@ -2,15 +2,15 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
-from typing import Optional
+from typing import List, Optional
 
 import typer
 
-from .app import _command, app
+from .app import _command, app, new_group
 from .options import (AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
-                      StartSigmaOpt, TemperatureOpt, air_options, ball_option, fit_settings)
+                      StartSigmaOpt, TemperatureOpt, UnitsOpt, air_options, ball_option, fit_settings,
+                      units_option)
 
 
 @_command(app)
@@ -21,7 +21,8 @@ def batch(
     library: Path = typer.Option(..., "--library", help="Library file (SQLite; created if missing)."),
     workers: int = typer.Option(1, "--workers", help="Local worker processes."),
     cluster: Optional[str] = typer.Option(None, "--cluster", help="Dask scheduler address (tcp://host:8786)."),
-    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m]."),
+    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: the game's natural "
+                                           "plane when --start-near is before it; else the last tracked x)."),
     start_near: StartNearOpt = None,
     start_sigma: StartSigmaOpt = 0.3,
     capture_fps: CaptureFpsOpt = None,
@@ -33,37 +34,48 @@ def batch(
     session: Optional[str] = typer.Option(None, "--session", help="Session name for these clips."),
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name for these clips."),
     ball_file: BallFileOpt = None,
+    replace: bool = typer.Option(False, "--replace", help="Analyse again clips already in the library with other "
+                                 "options (camera, ball, air), replacing their results."),
 ):
-    """Analyse every clip in a folder into the flight library; resumable, never doubles a clip."""
+    """Analyse every clip in a folder into the flight library; resumable, never doubles a clip. A clip
+    analysed before with other options is kept as it was (say --replace to redo it); failed clips are retried."""
     from ..commands.library import run_batch_cmd
 
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),
                          target_x, start_near, start_sigma)
     return run_batch_cmd(folder=folder, camera=camera, settings=settings, library=library, workers=workers,
                          cluster=cluster, capture_fps=capture_fps, session=session, athlete=athlete,
-                         show_progress=sys.stderr.isatty())
+                         show_progress=True, replace=replace)
 
 
-library_app = typer.Typer(rich_markup_mode=None, help="The flight library: list, show, export and compare analysed clips.",
-                          no_args_is_help=True)
+library_app = new_group(help="The flight library: list, show, remove, export and compare analysed clips.")
 app.add_typer(library_app, name="library")
 
 
 @_command(library_app, "list")
-def library_list(library: Path = typer.Argument(..., help="Library file.")):
-    """One line a clip: status, flights, session, athlete."""
+def library_list(library: Path = typer.Argument(..., help="Library file."), units: UnitsOpt = "metric"):
+    """One line a clip: status, ball, flights, session, athlete, the first flight's result."""
     from ..commands.library import run_library_list
 
-    return run_library_list(library)
+    return run_library_list(library, units_option(units))
 
 
 @_command(library_app, "show")
 def library_show(library: Path = typer.Argument(..., help="Library file."),
-                 clip: str = typer.Argument(..., help="Clip id, path or file name.")):
-    """The flights of one clip."""
+                 clip: str = typer.Argument(..., help="Clip id, path or file name."), units: UnitsOpt = "metric"):
+    """The flights of one clip, with their uncertainties and warnings."""
     from ..commands.library import run_library_show
 
-    return run_library_show(library, clip)
+    return run_library_show(library, clip, units_option(units))
+
+
+@_command(library_app, "remove")
+def library_remove(library: Path = typer.Argument(..., help="Library file."),
+                   clips: List[str] = typer.Argument(..., help="Clip ids, paths or file names to delete.")):
+    """Delete clips and their flights from the library (e.g. one analysed with the wrong ball)."""
+    from ..commands.library import run_library_remove
+
+    return run_library_remove(library, list(clips))
 
 
 @_command(library_app, "export")
@@ -76,7 +88,7 @@ def library_export(
     """Export the library: one row a clip with source, status and the headline results."""
     from ..commands.library import run_library_export
 
-    return run_library_export(library, out, per_flight, fmt)
+    return run_library_export(library, out, per_flight, fmt.lower())
 
 
 @_command(library_app, "compare")
@@ -85,8 +97,10 @@ def library_compare(
     a: str = typer.Argument(..., help="First session or athlete."),
     b: str = typer.Argument(..., help="Second session or athlete."),
     by: str = typer.Option("session", "--by", help="session or athlete."),
+    units: UnitsOpt = "metric",
 ):
-    """Mean and spread of speed, transverse spin and deflection for two sessions or athletes."""
+    """Mean and spread of speed, transverse spin and deflection for two sessions or athletes, one line
+    per ball (different balls are never averaged together)."""
     from ..commands.library import run_library_compare
 
-    return run_library_compare(library, by, a, b)
+    return run_library_compare(library, by.lower(), a, b, units_option(units))

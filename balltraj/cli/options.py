@@ -14,10 +14,27 @@ from ..units import parse_quantity, parse_vector
 
 
 def ball_option(name: str, ball_file: Optional[Path]):
-    """The ball named by ``--ball`` (and defined by ``--ball-file``)."""
-    from ..commands.common import load_ball
+    """The ball named by ``--ball`` (and defined by ``--ball-file``); an ambiguous name (football)
+    is said on stderr."""
+    from ..commands.common import ball_note, load_ball
 
-    return load_ball(name, ball_file)
+    ball = load_ball(name, ball_file)
+    note = ball_note(name) if ball_file is None or ball.name != str(name).strip().lower() else None
+    if note:
+        typer.echo(note, err=True)
+    return ball
+
+
+def units_option(text: Optional[str]) -> str:
+    """``--units`` case-insensitively: metric or imperial."""
+    from ..record.words import unit_system
+
+    return unit_system(text)
+
+
+def si_list(texts, kind: str, option: str) -> list[float]:
+    """A repeatable option's values in SI (e.g. ``--what-if-altitude 5280ft``)."""
+    return [parse_quantity(t, kind, option) for t in (texts or [])]
 
 
 def si(text: Optional[str], kind: str, option: str) -> Optional[float]:
@@ -69,3 +86,5 @@ BallFileOpt = Annotated[Optional[Path], typer.Option("--ball-file", help="JSON f
 StartNearOpt = Annotated[Optional[str], typer.Option("--start-near", help="Rough start point X,Y,Z [m] (release point, ball spot).")]
 StartSigmaOpt = Annotated[float, typer.Option("--start-sigma", help="How rough --start-near is [m].")]
 CaptureFpsOpt = Annotated[Optional[float], typer.Option("--capture-fps", help="True capture rate of a slow-motion file stored time-stretched.")]
+UnitsOpt = Annotated[str, typer.Option("--units", help="metric or imperial (any case): the units numbers are "
+                                        "printed in.")]

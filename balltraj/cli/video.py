@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 from typing import Optional
 
@@ -10,7 +9,8 @@ import typer
 
 from .app import _command, app
 from .options import (AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
-                      StartSigmaOpt, TemperatureOpt, air_options, ball_option, fit_settings)
+                      StartSigmaOpt, TemperatureOpt, UnitsOpt, air_options, ball_option, fit_settings,
+                      units_option)
 
 
 @_command(app)
@@ -29,7 +29,7 @@ def track(
     from ..commands.video import run_track
 
     return run_track(clip=clip, camera=camera, ball=ball_option(ball, ball_file), capture_fps=capture_fps, out=out,
-                     overlay=overlay, show_progress=sys.stderr.isatty(), start_s=start, end_s=end)
+                     overlay=overlay, show_progress=True, start_s=start, end_s=end)
 
 
 @_command(app)
@@ -37,7 +37,8 @@ def analyze(
     clip: Path = typer.Argument(..., help="Video clip."),
     camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clip."),
     ball: str = typer.Option(..., "--ball", help="Ball name."),
-    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: last tracked x)."),
+    target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: the game's natural "
+                                           "plane when --start-near is before it; else the last tracked x)."),
     start_near: StartNearOpt = None,
     start_sigma: StartSigmaOpt = 0.3,
     capture_fps: CaptureFpsOpt = None,
@@ -49,7 +50,8 @@ def analyze(
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name, kept in the flight files."),
     session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight files."),
     ball_file: BallFileOpt = None,
-    out: Path = typer.Option(..., "--out", help="Folder for observations.csv, flight.json and report.html."),
+    units: UnitsOpt = "metric",
+    out: Path = typer.Option(..., "-o", "--out", help="Folder for observations.csv, flight.json and report.html."),
 ):
     """The whole job on one clip: track, fit in image space, report."""
     from ..commands.video import run_analyze
@@ -57,7 +59,7 @@ def analyze(
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),
                          target_x, start_near, start_sigma)
     return run_analyze(clip=clip, camera=camera, settings=settings, capture_fps=capture_fps, out=out,
-                       labels={"athlete": athlete, "session": session}, show_progress=sys.stderr.isatty())
+                       labels={"athlete": athlete, "session": session}, show_progress=True, units=units_option(units))
 
 
 @_command(app)

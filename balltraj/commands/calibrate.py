@@ -15,7 +15,8 @@ from ..camera.calibrate import board_figure, calibrate_lens, calibrate_scene, de
 from ..camera.triangulate import triangulate_observations
 from ..errors import InputError
 from ..formats import (atomic_write_bytes, check_output_path, numeric_column, read_cameras, read_csv_table,
-                       read_observations_csv, write_csv, write_json)
+                       read_observations_csv, write_json)
+from .common import write_csv_sidecar
 
 
 IMAGE_EXT = {".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff"}
@@ -156,6 +157,6 @@ def run_triangulate(*, observations: Path, camera: Path, out: Path, flight: Opti
     if len(t) < 2:
         raise InputError("the cameras' observations do not overlap in time", path=str(observations),
                          hint="check the time offsets in the rig file")
-    write_csv(out_p, ["t", "x", "y", "z"], ([float(a), *map(float, b)] for a, b in zip(t, xyz)),
-              comment=f"triangulated from {observations} with {camera}")
+    write_csv_sidecar(out_p, ["t", "x", "y", "z"], ([float(a), *map(float, b)] for a, b in zip(t, xyz)),
+                      f"3D track (s, m) triangulated by balltraj from {observations} with {camera}")
     return f"triangulated {len(t)} points from {len(set(obs.camera))} cameras; wrote {out_p}"

@@ -27,6 +27,7 @@ def run_report(*, flights: Sequence[Path], units: str, out: Path, fmt: str = "ht
 
     ``altitudes`` [m] and ``temperatures`` [deg C] add what-ifs (the same launch in other air).
     """
+    units = str(units).lower()
     if units not in UNIT_SYSTEMS:
         raise InputError(f"--units must be metric or imperial, got {units!r}")
     if fmt not in FORMATS:
@@ -41,4 +42,5 @@ def run_report(*, flights: Sequence[Path], units: str, out: Path, fmt: str = "ht
         if len(recs) != 1:
             raise InputError(f"--format {fmt} makes a page for one flight; give one flight file or use html")
         atomic_write_bytes(out_p, one_page(recs[0], titles[0], units, fmt))
-    return f"wrote {out_p} ({len(recs)} flight{'s' if len(recs) > 1 else ''}, {units})"
+    warnings = [f"warning: {t}: {w}" for t, r in zip(titles, recs) for w in r.get("warnings", [])]
+    return "\n".join(warnings + [f"wrote {out_p} ({len(recs)} flight{'s' if len(recs) > 1 else ''}, {units})"])

@@ -9,14 +9,15 @@ import numpy as np
 
 from .. import pipeline
 from ..errors import InputError
-from ..formats import atomic_write_bytes, check_output_path, read_cameras, read_flight_file, write_csv, write_json
+from ..formats import atomic_write_bytes, check_output_path, read_cameras, read_flight_file, write_json
 from ..physics.balls import Ball
 from ..record.refly import ground_flight
 from ..report.html import build_report
+from ..vision.clip import clip_info
 from ..vision.pipeline import TrackResult, no_ball_error
 from ..vision.render import Scene, render_clip
-from .common import add_labels, folder_written_whole, progress_bar
-from .text import flight_line, tracking_lines
+from .common import add_labels, folder_written_whole, mark_plane, progress_bar, with_default_plane, write_csv_sidecar
+from .text import flight_summary, tracking_lines
 
 OBS_HEADER = ["t", "camera", "u", "v", "radius_px", "quality", "flight", "frame", "streak_px", "bounce"]
 
@@ -40,6 +41,29 @@ def clip_input(clip: Path, camera: Optional[Path], *, capture_fps: Optional[floa
     return pipeline.ClipInput(Path(clip), cams, capture_fps=capture_fps, start_s=start_s, end_s=end_s)
 
 
+def expected_frames(clip: pipeline.ClipInput) -> Optional[int]:
+    """Frames the tracker will read from ``start_s`` to ``end_s`` (or the clip's end); None when the
+    container does not say."""
+    try:
+        info = clip_info(clip.path)
+    except InputError:
+        return None
+    fps = clip.capture_fps or info.nominal_fps
+    dur = (info.frame_count / fps) if fps > 0 and info.frame_count > 0 else None
+    if not fps or fps <= 0 or (dur is None and clip.end_s is None):
+        return None
+    end = clip.end_s if dur is None else min(clip.end_s if clip.end_s is not None else dur, dur)
+    return max(1, int(round((end - clip.start_s) * fps)))
+
+
+def _notes(clip: pipeline.ClipInput, res: TrackResult) -> str:
+    return "\n".join([f"observations tracked by balltraj from {clip.path}",
+                      "columns: t [s], camera, u, v [px], radius_px, quality (0..1), flight, frame, streak_px, "
+                      "bounce (1 after a bounce); see docs/formats.md"]
+                     + [f"flight {f.flight}: {len(f.t)} points, {f.t[0]:.3f}-{f.t[-1]:.3f} s, ended: {f.end_reason}"
+                        for f in res.flights])
+
+
 def run_track(*, clip: Path, camera: Optional[Path], ball: Ball, out: Path, overlay: Optional[Path],
               capture_fps: Optional[float] = None, start_s: float = 0.0, end_s: Optional[float] = None,
               show_progress: bool = False) -> str:
@@ -48,16 +72,14 @@ def run_track(*, clip: Path, camera: Optional[Path], ball: Ball, out: Path, over
     if overlay is not None:
         check_output_path(overlay, [clip, out])
     clip = clip_input(clip, camera, capture_fps=capture_fps, start_s=start_s, end_s=end_s)
-    with progress_bar(f"tracking {Path(clip.path).name}", show_progress) as progress:
+    with progress_bar(f"tracking {Path(clip.path).name} (frames)", show_progress,
+                      total=expected_frames(clip)) as progress:
         res = pipeline.track(clip, ball, overlay_path=overlay, progress=progress)
     if not res.flights:
         raise no_ball_error(clip.path, res)
     name = clip.camera.name if clip.camera is not None else "camera"
-    comment = "\n".join([f"tracked from {clip.path}"] + [f"flight {f.flight}: {len(f.t)} points, "
-                                                         f"{f.t[0]:.3f}-{f.t[-1]:.3f} s, ended: {f.end_reason}"
-                                                         for f in res.flights])
-    write_csv(out_p, OBS_HEADER, observation_rows(res, name), comment=comment)
-    return "\n".join(tracking_lines(res) + [f"wrote {out_p}"])
+    side = write_csv_sidecar(out_p, OBS_HEADER, observation_rows(res, name), _notes(clip, res))
+    return "\n".join(tracking_lines(res) + [f"wrote {out_p} (notes in {side.name})"])
 
 
 def analyze_to_folder(clip: pipeline.ClipInput, settings: pipeline.FitSettings, out_dir: Path, *,
@@ -65,31 +87,37 @@ def analyze_to_folder(clip: pipeline.ClipInput, settings: pipeline.FitSettings, 
                       units: str = "metric") -> tuple[list[dict], str]:
     """The whole job on one clip, written into ``out_dir`` whole or not at all: observations.csv,
     flight.json (flight-1.json, ... for several throws) and report.html. Returns the records and
-    the text to print."""
+    the text to print: every flight's headline numbers with their sigmas, and every warning."""
+    settings, plane_words = with_default_plane(settings, None if settings.start_near_m is None
+                                               else settings.start_near_m[0])
     with folder_written_whole(out_dir) as tmp:  # checks the folder before any work
-        with progress_bar(f"tracking {Path(clip.path).name}", show_progress) as progress:
+        with progress_bar(f"tracking {Path(clip.path).name} (frames)", show_progress,
+                          total=expected_frames(clip)) as progress:
             res = pipeline.analyze_clip(clip, settings, progress=progress)
-        recs = [add_labels(r, labels) for r in res.records]
-        write_csv(tmp / "observations.csv", OBS_HEADER, observation_rows(res.tracking, clip.camera.name),
-                  comment=f"tracked from {clip.path}")
+        recs = [add_labels(mark_plane(r, plane_words), labels) for r in res.records]
+        write_csv_sidecar(tmp / "observations.csv", OBS_HEADER, observation_rows(res.tracking, clip.camera.name),
+                          _notes(clip, res.tracking))
         names = ["flight.json"] if len(recs) == 1 else [f"flight-{i + 1}.json" for i in range(len(recs))]
         for n, rec in zip(names, recs):
             write_json(tmp / n, rec)
         titles = [f"{Path(clip.path).stem}" + ("" if len(recs) == 1 else f" flight {i + 1}") for i in range(len(recs))]
         atomic_write_bytes(tmp / "report.html", build_report(recs, titles, units).encode("utf-8"))
-    lines = [f"{n}: {flight_line(rec)}" for n, rec in zip(names, recs)]
-    lines += [f"warning: {w}" for w in res.tracking.warnings] + [f"warning: {m}" for m in res.failures]
+    lines = tracking_lines(res.tracking)  # frames, the flights found, tracking warnings
+    for n, rec in zip(names, recs):
+        lines += ["", f"{n}:", flight_summary(rec, units)]
+    lines += [f"warning: {m}" for m in res.failures]
     lines.append(f"wrote {out_dir}/observations.csv, {', '.join(names)}, report.html")
     return recs, "\n".join(lines)
 
 
 def run_analyze(*, clip: Path, camera: Path, settings: pipeline.FitSettings, out: Path,
-                capture_fps: Optional[float] = None, labels: Optional[dict] = None, show_progress: bool = False) -> str:
+                capture_fps: Optional[float] = None, labels: Optional[dict] = None, show_progress: bool = False,
+                units: str = "metric") -> str:
     """Track, fit and report one clip filmed by one calibrated camera."""
     item = clip_input(clip, camera, capture_fps=capture_fps)
     if len(item.cameras) != 1:
         raise InputError("analyze takes one camera file (the camera that filmed the clip)", path=str(camera))
-    _, text = analyze_to_folder(item, settings, out, show_progress=show_progress, labels=labels)
+    _, text = analyze_to_folder(item, settings, out, show_progress=show_progress, labels=labels, units=units)
     return text
 
 
@@ -108,9 +136,9 @@ def run_render(*, flight: Path, camera: Path, out: Path, fps: float, duration: O
                   ball_radius_m=model.radius_m, flights=[(start, start + t_fl, fn)])
     truth = render_clip(scene, out_p)
     tpath = out_p.with_suffix(".truth.csv")
-    write_csv(tpath, ["t", "flight", "u", "v", "radius_px", "x", "y", "z"],
-              ([r[k] for k in ("t", "flight", "u", "v", "radius_px", "x", "y", "z")] for r in truth),
-              comment=f"synthetic clip rendered by balltraj from {flight}")
+    write_csv_sidecar(tpath, ["t", "flight", "u", "v", "radius_px", "x", "y", "z"],
+                      ([r[k] for k in ("t", "flight", "u", "v", "radius_px", "x", "y", "z")] for r in truth),
+                      f"truth of a synthetic clip rendered by balltraj from {flight} (s, px, m)")
     return (f"rendered {int(round(dur * fps))} frames ({cams[0].image_size[0]}x{cams[0].image_size[1]}, {fps:g} fps);"
             f" wrote {out_p} and {tpath}")
 

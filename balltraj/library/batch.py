@@ -70,18 +70,35 @@ class BatchSummary:
     failed: int = 0
     skipped: int = 0
     messages: list = field(default_factory=list)
+    notes: list = field(default_factory=list)  # clips kept as they were, and why
+    warnings: list = field(default_factory=list)  # warnings of the flights stored
+    replaced: int = 0
 
 
 def run_batch(lib, tasks: list[BatchTask], hashes: dict, opt_hash: str, options: dict, camera_hash: str, *,
               workers: int = 1, cluster: str | None = None, session=None, athlete=None,
-              progress: Callable | None = None) -> BatchSummary:
-    """Run the tasks not yet in the library; record each as it finishes."""
+              progress: Callable | None = None, replace: bool = False) -> BatchSummary:
+    """Run the tasks not yet in the library; record each as it finishes.
+
+    A clip already analysed with these options is skipped (an identical copy under another name is
+    noted as a copy of it); one analysed with other options (another camera, ball, air) is kept and
+    reported unless ``replace``; a failed analysis is retried."""
     summary = BatchSummary()
     todo = []
     for t in tasks:
-        if lib.is_done(hashes[t.clip], opt_hash):
+        h = hashes[t.clip]
+        ok = [r for r in lib.analyses(h) if r["status"] == "ok"]
+        same = [r for r in ok if r["options_hash"] == opt_hash]
+        if same:
             summary.skipped += 1
+            if all(r["path"] != t.clip for r in same) and lib.add_copy(same[0]["id"], t.clip):
+                summary.notes.append(f"{t.clip}: identical to clip {same[0]['id']} ({same[0]['path']}); listed as a copy")
+        elif ok and not replace:
+            summary.skipped += 1
+            summary.notes.append(f"{t.clip}: already analysed (clip {ok[0]['id']}, ball {ok[0]['ball']}) with other "
+                                 "options; kept that result (use --replace to analyse it again with these)")
         else:
+            summary.replaced += len(ok)
             todo.append(t)
     if progress:
         progress(summary.skipped, len(tasks))
@@ -89,11 +106,20 @@ def run_batch(lib, tasks: list[BatchTask], hashes: dict, opt_hash: str, options:
     def store(out):
         stored = lib.record(path=out["clip"], content_hash=hashes[out["clip"]], opt_hash=opt_hash, options=options,
                             camera_hash=camera_hash, ball=options["ball"], records=out["records"],
-                            error=out["error"], session=session, athlete=athlete, started_at=out.get("started"))
+                            error=out["error"], session=session, athlete=athlete, started_at=out.get("started"),
+                            replace=replace)
         if not stored:
             summary.skipped += 1
+            same = [r for r in lib.analyses(hashes[out["clip"]])
+                    if r["status"] == "ok" and r["options_hash"] == opt_hash and r["path"] != out["clip"]]
+            if same and lib.add_copy(same[0]["id"], out["clip"]):
+                summary.notes.append(f"{out['clip']}: identical to clip {same[0]['id']} ({same[0]['path']}); "
+                                     "listed as a copy")
         elif out["records"]:
             summary.done += 1
+            for i, rec in enumerate(out["records"]):
+                summary.warnings += [f"{out['clip']} flight {i + 1}: {w}" for w in rec.get("warnings", [])]
+            summary.warnings += [f"{out['clip']}: {w}" for w in out.get("warnings") or []]
         else:
             summary.failed += 1
             summary.messages.append(out["error"] if out["clip"] in (out["error"] or "") else f"{out['clip']}: {out['error']}")

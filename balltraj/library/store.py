@@ -7,6 +7,11 @@ identified by its content hash and the hash of the options it was analysed with,
 analysed again with the same content and options is skipped, and no result is ever stored twice.
 Every clip and its flights are written in one transaction: a killed batch leaves the library
 consistent, and the next run does what is missing.
+
+One clip (one content hash) holds at most one analysis: a re-run with other options (another
+camera, ball, air) is refused unless asked to replace it, so a clip is never stored as two
+different balls; a failed analysis is retried on the next run. An identical copy of a stored
+clip under another name is kept in ``copies`` (schema version 2) and listed beside it.
 """
 
 from __future__ import annotations
@@ -24,7 +29,7 @@ from ..errors import InputError
 from ..formats import json_safe
 from ..record.schema import HEADLINE_COLUMNS, headline_values
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
 MIGRATIONS = {
     1: [
@@ -60,6 +65,13 @@ MIGRATIONS = {
             record_json TEXT NOT NULL,
             UNIQUE (clip_id, flight_index))""",
         """CREATE INDEX IF NOT EXISTS clips_path ON clips(path)""",
+    ],
+    2: [
+        """CREATE TABLE IF NOT EXISTS copies (
+            id INTEGER PRIMARY KEY,
+            clip_id INTEGER NOT NULL REFERENCES clips(id) ON DELETE CASCADE,
+            path TEXT NOT NULL,
+            UNIQUE (clip_id, path))""",
     ],
 }
 
@@ -115,17 +127,55 @@ class Library:
         return self.conn.execute(f"SELECT id FROM {table} WHERE name = ?", (name,)).fetchone()[0]
 
     def is_done(self, content_hash: str, opt_hash: str) -> bool:
-        row = self.conn.execute("SELECT 1 FROM clips WHERE content_hash = ? AND options_hash = ?",
+        """An ``ok`` analysis of this content with these options is stored."""
+        row = self.conn.execute("SELECT 1 FROM clips WHERE content_hash = ? AND options_hash = ? AND status = 'ok'",
                                 (content_hash, opt_hash)).fetchone()
         return row is not None
 
+    def analyses(self, content_hash: str) -> list[sqlite3.Row]:
+        """Every stored analysis of one clip content (any name, any options)."""
+        return self.conn.execute("SELECT * FROM clips WHERE content_hash = ? ORDER BY id", (content_hash,)).fetchall()
+
+    def add_copy(self, clip_id: int, path: str) -> bool:
+        """Note an identical copy of a stored clip under another name. False if already noted."""
+        with self.transaction() as c:
+            known = c.execute("SELECT 1 FROM clips WHERE id = ? AND path = ?", (clip_id, path)).fetchone()
+            if known:
+                return False
+            cur = c.execute("INSERT OR IGNORE INTO copies(clip_id, path) VALUES (?, ?)", (clip_id, path))
+            return cur.rowcount > 0
+
+    def copies(self) -> dict[int, list[str]]:
+        out: dict[int, list[str]] = {}
+        for r in self.conn.execute("SELECT clip_id, path FROM copies ORDER BY id"):
+            out.setdefault(r["clip_id"], []).append(r["path"])
+        return out
+
+    def remove(self, clip_ids) -> int:
+        """Delete clips (their flights and copies go with them) in one transaction; how many went."""
+        ids = [int(i) for i in clip_ids]
+        with self.transaction() as c:
+            n = 0
+            for i in ids:
+                n += c.execute("DELETE FROM clips WHERE id = ?", (i,)).rowcount
+        return n
+
     def record(self, *, path: str, content_hash: str, opt_hash: str, options: dict, camera_hash: str | None,
                ball: str, records: list[dict] | None, error: str | None, session: str | None = None,
-               athlete: str | None = None, started_at: float | None = None) -> bool:
-        """Store one clip's outcome and its flights in one transaction. False if already stored."""
+               athlete: str | None = None, started_at: float | None = None, replace: bool = False) -> bool:
+        """Store one clip's outcome and its flights in one transaction. False if already stored.
+
+        Earlier failed analyses of the same content are replaced; an earlier ``ok`` one with other
+        options is replaced only with ``replace`` (otherwise False: it is kept)."""
         with self.transaction() as c:
             if self.is_done(content_hash, opt_hash):
                 return False
+            ok_other = c.execute("SELECT 1 FROM clips WHERE content_hash = ? AND status = 'ok'",
+                                 (content_hash,)).fetchone()
+            if ok_other and not replace:
+                return False
+            c.execute("DELETE FROM clips WHERE content_hash = ? AND (status = 'failed' OR ?)",
+                      (content_hash, int(bool(replace))))
             sid, aid = self._named("sessions", session), self._named("athletes", athlete)
             status = "ok" if records else "failed"
             cur = c.execute(
@@ -151,7 +201,7 @@ class Library:
             "LEFT JOIN athletes a ON a.id = c.athlete_id ORDER BY c.id").fetchall()
 
     def flights(self, clip_id: int | None = None) -> list[sqlite3.Row]:
-        q = ("SELECT f.*, c.path, c.status, s.name AS session, a.name AS athlete FROM flights f JOIN clips c ON c.id = "
+        q = ("SELECT f.*, c.path, c.status, c.ball, s.name AS session, a.name AS athlete FROM flights f JOIN clips c ON c.id = "
              "f.clip_id LEFT JOIN sessions s ON s.id = c.session_id LEFT JOIN athletes a ON a.id = c.athlete_id")
         if clip_id is None:
             return self.conn.execute(q + " ORDER BY f.clip_id, f.flight_index").fetchall()
@@ -253,8 +303,8 @@ def export_rows(lib: Library, per_flight: bool = False) -> tuple[list[str], Iter
             fl = flights.get(c["id"], [])
             base = [c["path"], c["status"], c["session"] or "", c["athlete"] or "", c["ball"], c["n_flights"]]
             tail = [c["error"] or "", c["content_hash"], c["tool_version"]]
-            if not fl:
-                yield base + [""] + [""] * len(cols) + tail
+            if not fl:  # a failed clip: empty numbers (None), so every column keeps one type (Parquet)
+                yield base + [None] + [None] * len(cols) + tail
                 continue
             for f in (fl if per_flight else fl[:1]):
                 yield base + [f["flight_index"]] + [f[k] for k in cols] + tail
@@ -263,7 +313,8 @@ def export_rows(lib: Library, per_flight: bool = False) -> tuple[list[str], Iter
 
 
 def compare(lib: Library, by: str, a: str, b: str) -> list[dict]:
-    """Mean and spread of speed, transverse spin and deflection for two sessions or athletes."""
+    """Mean and spread of speed, transverse spin and deflection for two sessions or athletes, one
+    group per ball: flights of different balls are never averaged together."""
     import numpy as np
 
     key = {"session": "session", "athlete": "athlete"}[by]
@@ -273,9 +324,12 @@ def compare(lib: Library, by: str, a: str, b: str) -> list[dict]:
         sel = [r for r in rows if (r[key] or "") == name and r["status"] == "ok"]
         if not sel:
             raise InputError(f"no flights of {by} {name!r} in the library", path=lib.path)
-        d = {"name": name, "n": len(sel)}
-        for col in ("launch_speed_mps", "transverse_rate_rpm", "deflection_horizontal_m", "deflection_vertical_m"):
-            v = np.array([r[col] for r in sel], float)
-            d[col] = (float(np.mean(v)), float(np.std(v, ddof=1)) if len(v) > 1 else 0.0)
-        out.append(d)
+        for ball in sorted({r["ball"] for r in sel}):
+            group = [r for r in sel if r["ball"] == ball]
+            d = {"name": name, "ball": ball, "n": len(group)}
+            for col in ("launch_speed_mps", "transverse_rate_rpm", "deflection_horizontal_m", "deflection_vertical_m"):
+                v = np.array([np.nan if r[col] is None else r[col] for r in group], float)
+                d[col] = (float(np.nanmean(v)) if np.isfinite(v).any() else float("nan"),
+                          float(np.nanstd(v, ddof=1)) if np.isfinite(v).sum() > 1 else 0.0)
+            out.append(d)
     return out

@@ -82,7 +82,7 @@ def spin_dict(spin, velocity, *, gyro_observed: bool) -> dict:
         "axis": _unit(w) if gyro_observed else None,
         "gyro_observed": bool(gyro_observed),
         "gyro_rate_rpm": float(np.dot(w, vhat)) / RPM if gyro_observed else None,
-        "spin_efficiency": (trate / rate if rate > 0 else None) if gyro_observed else None,
+        "transverse_share": (trate / rate if rate > 0 else None) if gyro_observed else None,
         "note": ("full spin vector known (given as input)" if gyro_observed else
                  "only the transverse spin can be recovered from a trajectory; rate_rpm is the "
                  "transverse rate and the gyro (bullet) spin along the flight direction is unknown"),
@@ -268,11 +268,34 @@ def _uncertainty_section(fit: FlightFit, sig: dict, dcov) -> dict:
     }
 
 
+def tracked_positions(fit: FlightFit):
+    """Each pixel observation of an image-space fit placed in the world: the point of its camera ray
+    nearest the fitted position at that time (the detection itself, at the fitted depth), shape
+    (N, 3) [m]; None without the cameras. For the report's path plots."""
+    cams = fit.extra.get("camera_objects")
+    idx = fit.extra.get("camera_index")
+    if not cams or idx is None or fit.fitted_xyz is None:
+        return None
+    idx = np.asarray(idx, int)
+    out = np.full((len(fit.t), 3), np.nan)
+    for k, cam in enumerate(cams):
+        m = idx == k
+        if not m.any():
+            continue
+        origin, d = cam.rays(np.asarray(fit.observed, float)[m])
+        along = np.einsum("ij,ij->i", np.asarray(fit.fitted_xyz, float)[m] - origin, d)
+        out[m] = origin + along[:, None] * d
+    return out
+
+
 def _fit_section(fit: FlightFit) -> dict:
     image = fit.residual_unit == "px"
     points = {"t": fit.t.tolist(), "residual": fit.residuals.tolist(), "outlier": fit.outliers.tolist()}
     if image:
         points.update(observed_px=fit.observed.tolist(), fitted_m=fit.fitted_xyz.tolist())
+        tracked = tracked_positions(fit)
+        if tracked is not None:
+            points["tracked_m"] = tracked.tolist()
     else:
         points.update(observed=fit.observed.tolist())
     return {
