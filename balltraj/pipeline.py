@@ -136,6 +136,8 @@ class ClipResult:
     records: list[dict]
     tracking: TrackResult
     failures: list[str] = field(default_factory=list)
+    #: with a rig: the tracking of each further camera's clip, in the rig's order
+    other_trackings: list[TrackResult] = field(default_factory=list)
 
 
 def fit_track(track: Track, settings: FitSettings) -> FlightResult:
@@ -308,7 +310,7 @@ def analyze_rig(clips: Sequence[ClipInput], settings: FitSettings, *, progress: 
     if not records:
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures),
                          path=str(clips[0].path), hint="check the rig file and that every camera saw the flight")
-    return ClipResult(records, results[0], failures)
+    return ClipResult(records, results[0], failures, results[1:])
 
 
 #: an offset is accepted when the two cameras' tracks triangulate to within this [px] (median)

@@ -62,3 +62,26 @@ def test_rig_clips_fitted_together(rig_clips):
     # the launch is at the first used observation (the flight has slowed a little by then)
     assert rec["launch"]["speed_mps"] == pytest.approx(speed, rel=0.02)
     assert rec["launch"]["t_s"] >= start - 1e-3  # on the first camera's clock
+
+
+def test_cli_analyze_with_a_rig_file(rig_clips, tmp_path):
+    import json
+
+    from typer.testing import CliRunner
+
+    from balltraj.cli import app
+
+    paths, _, _ = rig_clips
+    rig = tmp_path / "rig.json"
+    rig.write_text(json.dumps({"cameras": [SIDE.to_dict(), HIGH.to_dict()]}))
+    out = tmp_path / "pitch"
+    r = CliRunner().invoke(app, ["analyze", str(paths[0]), str(paths[1]), "--camera", str(rig), "--ball", "baseball",
+                                 "--target-x", "17", "-o", str(out)])
+    assert r.exit_code == 0, r.output
+    rec = json.loads((out / "flight.json").read_text())
+    assert rec["fit"]["cameras"]["time_offsets_s"]["high"] == pytest.approx(OFFSET_S, abs=2e-3)
+    assert {"side", "high"} <= set(open(out / "observations.csv").read().split(","))
+    # one clip for a two-camera rig: refused with the reason
+    r = CliRunner().invoke(app, ["analyze", str(paths[0]), "--camera", str(rig), "--ball", "baseball",
+                                 "-o", str(tmp_path / "x")])
+    assert r.exit_code == 2 and "one clip per camera" in r.output

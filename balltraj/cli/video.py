@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Optional
+from typing import List, Optional
 
 import typer
 
@@ -34,8 +34,8 @@ def track(
 
 @_command(app)
 def analyze(
-    clip: Path = typer.Argument(..., help="Video clip."),
-    camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clip."),
+    clip: List[Path] = typer.Argument(..., help="Video clip; or one clip per camera of a rig file, in its order."),
+    camera: Path = typer.Option(..., "--camera", help="Camera file of the camera that filmed the clip (or a rig file)."),
     ball: str = typer.Option(..., "--ball", help="Ball name."),
     target_x: Optional[str] = typer.Option(None, "--target-x", help="Target plane x [m] (default: the game's natural "
                                            "plane when --start-near is before it; else the last tracked x)."),
@@ -53,7 +53,7 @@ def analyze(
     units: UnitsOpt = "metric",
     out: Path = typer.Option(..., "-o", "--out", help="Folder for observations.csv, flight.json and report.html."),
 ):
-    """The whole job on one clip: track, fit in image space, report."""
+    """The whole job on one clip (or one clip per camera of a rig, unsynchronised): track, fit in image space, report."""
     from ..commands.video import run_analyze
 
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),

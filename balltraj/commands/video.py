@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Optional
+from typing import Optional, Sequence
 
 import numpy as np
 
@@ -82,27 +82,36 @@ def run_track(*, clip: Path, camera: Optional[Path], ball: Ball, out: Path, over
     return "\n".join(tracking_lines(res) + [f"wrote {out_p} (notes in {side.name})"])
 
 
-def analyze_to_folder(clip: pipeline.ClipInput, settings: pipeline.FitSettings, out_dir: Path, *,
-                      show_progress: bool = False, labels: Optional[dict] = None,
+def analyze_to_folder(clip: pipeline.ClipInput | Sequence[pipeline.ClipInput], settings: pipeline.FitSettings,
+                      out_dir: Path, *, show_progress: bool = False, labels: Optional[dict] = None,
                       units: str = "metric") -> tuple[list[dict], str]:
-    """The whole job on one clip, written into ``out_dir`` whole or not at all: observations.csv,
-    flight.json (flight-1.json, ... for several throws) and report.html. Returns the records and
-    the text to print: every flight's headline numbers with their sigmas, and every warning."""
+    """The whole job on one clip (or one clip per camera of a rig), written into ``out_dir`` whole or
+    not at all: observations.csv, flight.json (flight-1.json, ... for several throws) and
+    report.html. Returns the records and the text to print: every flight's headline numbers with
+    their sigmas, and every warning."""
+    clips = [clip] if isinstance(clip, pipeline.ClipInput) else list(clip)
+    first = clips[0]
     settings, plane_words = with_default_plane(settings, None if settings.start_near_m is None
                                                else settings.start_near_m[0])
     with folder_written_whole(out_dir) as tmp:  # checks the folder before any work
-        with progress_bar(f"tracking {Path(clip.path).name} (frames)", show_progress,
-                          total=expected_frames(clip)) as progress:
-            res = pipeline.analyze_clip(clip, settings, progress=progress)
+        with progress_bar(f"tracking {Path(first.path).name} (frames)", show_progress,
+                          total=expected_frames(first)) as progress:
+            if len(clips) == 1:
+                res = pipeline.analyze_clip(first, settings, progress=progress)
+            else:
+                res = pipeline.analyze_rig(clips, settings, progress=progress)
         recs = [add_labels(mark_plane(r, plane_words), labels) for r in res.records]
-        write_csv_sidecar(tmp / "observations.csv", OBS_HEADER, observation_rows(res.tracking, clip.camera.name),
-                          _notes(clip, res.tracking))
+        rows = [row for c, tr in zip(clips, [res.tracking, *res.other_trackings])
+                for row in observation_rows(tr, c.camera.name)]
+        write_csv_sidecar(tmp / "observations.csv", OBS_HEADER, rows, _notes(first, res.tracking))
         names = ["flight.json"] if len(recs) == 1 else [f"flight-{i + 1}.json" for i in range(len(recs))]
         for n, rec in zip(names, recs):
             write_json(tmp / n, rec)
-        titles = [f"{Path(clip.path).stem}" + ("" if len(recs) == 1 else f" flight {i + 1}") for i in range(len(recs))]
+        titles = [f"{Path(first.path).stem}" + ("" if len(recs) == 1 else f" flight {i + 1}") for i in range(len(recs))]
         atomic_write_bytes(tmp / "report.html", build_report(recs, titles, units).encode("utf-8"))
     lines = tracking_lines(res.tracking)  # frames, the flights found, tracking warnings
+    for c, tr in zip(clips[1:], res.other_trackings):
+        lines += [f"{Path(c.path).name} ({c.camera.name}):"] + tracking_lines(tr)
     for n, rec in zip(names, recs):
         lines += ["", f"{n}:", flight_summary(rec, units)]
     lines += [f"warning: {m}" for m in res.failures]
@@ -110,14 +119,24 @@ def analyze_to_folder(clip: pipeline.ClipInput, settings: pipeline.FitSettings, 
     return recs, "\n".join(lines)
 
 
-def run_analyze(*, clip: Path, camera: Path, settings: pipeline.FitSettings, out: Path,
+def run_analyze(*, clip: Path | Sequence[Path], camera: Path, settings: pipeline.FitSettings, out: Path,
                 capture_fps: Optional[float] = None, labels: Optional[dict] = None, show_progress: bool = False,
                 units: str = "metric") -> str:
-    """Track, fit and report one clip filmed by one calibrated camera."""
-    item = clip_input(clip, camera, capture_fps=capture_fps)
-    if len(item.cameras) != 1:
-        raise InputError("analyze takes one camera file (the camera that filmed the clip)", path=str(camera))
-    _, text = analyze_to_folder(item, settings, out, show_progress=show_progress, labels=labels, units=units)
+    """Track, fit and report one clip filmed by one calibrated camera, or one clip per camera of a
+    rig file (in the rig's order), filmed unsynchronised."""
+    paths = [clip] if isinstance(clip, (str, Path)) else list(clip)
+    cams = read_cameras(camera)
+    if len(paths) == 1:
+        if len(cams) != 1:
+            raise InputError(f"the camera file holds {len(cams)} cameras; give one clip per camera, in its order",
+                             path=str(camera))
+    elif len(cams) != len(paths):
+        raise InputError(f"{len(paths)} clips but {len(cams)} cameras in the rig file; give one clip per camera, "
+                         "in the rig's order", path=str(camera))
+    items = [clip_input(p, None, capture_fps=capture_fps) for p in paths]
+    items = [pipeline.ClipInput(it.path, [cam], capture_fps=it.capture_fps) for it, cam in zip(items, cams)]
+    _, text = analyze_to_folder(items if len(items) > 1 else items[0], settings, out, show_progress=show_progress,
+                                labels=labels, units=units)
     return text
 
 
