@@ -80,7 +80,7 @@ def test_cli_analyze_with_a_rig_file(rig_clips, tmp_path):
     assert r.exit_code == 0, r.output
     rec = json.loads((out / "flight.json").read_text())
     assert rec["fit"]["cameras"]["time_offsets_s"]["high"] == pytest.approx(OFFSET_S, abs=2e-3)
-    assert {"side", "high"} <= set(open(out / "observations.csv").read().split(","))
+    assert {"side", "high"} <= set((out / "observations.csv").read_text().split(","))
     # one clip for a two-camera rig: refused with the reason
     r = CliRunner().invoke(app, ["analyze", str(paths[0]), "--camera", str(rig), "--ball", "baseball",
                                  "-o", str(tmp_path / "x")])

@@ -248,24 +248,37 @@ def test_command_line(folder, monkeypatch):
 
 
 def test_compare_two_flights(client, folder):
+    import re
+
     client.post("/api/calibrate", json={"path": CLIP, "template": "soccer-goal", "clicks": visible_clicks(),
                                         "save": True})
     s = _wait(client, client.post("/api/analyze", json={"path": CLIP, "ball": "soccer", "athlete": "A"}).json()["job"])
-    client.post("/api/save", json={"job": s["id"]})
+    assert client.post("/api/save", json={"job": s["id"]}).json()["stored"] is True
     keep = list(s["flights"][0]["keep"])
     keep[:10] = [False] * 10
     s2 = client.post("/api/refit", json={"job": s["id"], "flight": 0, "keep": keep}).json()
-    assert client.post("/api/save", json={"job": s["id"]}).json()["stored"] is True  # other points: another entry
+    # the re-fit with other points replaces the clip's analysis (one analysis a clip in the library)
+    assert client.post("/api/save", json={"job": s["id"]}).json()["stored"] is True
+    assert client.get("/history").text.count('name="f"') == 1
+    # a second clip, with its camera file beside it (the sample pitch filmed from the side)
+    pitch = json.loads((ROOT / "sample_clips" / "pitch-side.truth.json").read_text())
+    shutil.copy(ROOT / "sample_clips" / "pitch-side.mp4", folder / "pitch-side.mp4")
+    shutil.copy(ROOT / pitch["camera"], folder / "pitch-side.camera.json")
+    s3 = _wait(client, client.post("/api/analyze", json={"path": "pitch-side.mp4", "ball": "baseball",
+                                                         "start_near_m": pitch["start_near"],
+                                                         "athlete": "B"}).json()["job"])
+    assert client.post("/api/save", json={"job": s3["id"]}).json()["stored"] is True
     h = client.get("/history").text
-    assert h.count('name="f"') == 2
-    r = client.get("/compare", params=[("f", "1"), ("f", "2")])
+    ids = re.findall(r'name="f" value="(\d+)"', h)
+    assert len(ids) == 2
+    r = client.get("/compare", params=[("f", ids[0]), ("f", ids[1])])
     assert r.status_code == 200 and "sandbox" in r.headers["content-security-policy"]
-    # Source: the two fits shown on the page are the ones the workbench made (first and re-fitted)
-    for summ in (s, s2):
+    # Source: the two fits shown on the page are the ones the workbench made (re-fitted kick, pitch)
+    for summ in (s2, s3):
         assert summ["flights"][0]["cards"][0][1].split(" (")[0] in r.text
-    assert client.get("/compare", params=[("f", "1")]).status_code == 400
-    assert client.get("/compare", params=[("f", "1"), ("f", "99")]).status_code == 404
-    assert client.get("/compare", params=[("f", "1"), ("f", "x;drop")]).status_code == 400
+    assert client.get("/compare", params=[("f", ids[0])]).status_code == 400
+    assert client.get("/compare", params=[("f", ids[0]), ("f", "99")]).status_code == 404
+    assert client.get("/compare", params=[("f", ids[0]), ("f", "x;drop")]).status_code == 400
 
 
 def test_viewer_frames_are_the_clips_frames_in_order():

@@ -151,7 +151,10 @@ def refit(job: Job, index: int, keep) -> dict:
 
 
 def save_to_library(job: Job, library: Path) -> bool:
-    """Store the analysis (with any re-fits) in the flight library; False if it is already there."""
+    """Store the analysis (with any re-fits) in the flight library; False if it is already there.
+
+    The library holds one analysis of a clip at a time: the coach's latest fit (other points,
+    another camera or ball) replaces the one stored before."""
     recs = [r for r in job.records if r is not None]
     if job.state != "done" or not recs:
         raise InputError("there is no fitted flight to save")
@@ -165,6 +168,6 @@ def save_to_library(job: Job, library: Path) -> bool:
                             opt_hash=options_hash({**options, "tool_version": __version__}), options=options,
                             camera_hash=options_hash(cam.to_dict()), ball=s.ball.name, records=recs, error=None,
                             session=job.labels.get("session") or None, athlete=job.labels.get("athlete") or None,
-                            started_at=job.started)
+                            started_at=job.started, replace=True)
     job.saved = True
     return stored
