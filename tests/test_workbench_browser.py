@@ -238,12 +238,10 @@ def test_whole_flow_in_a_browser(server, page, tmp_path):
     page.shot(shots / "report.png")
     page.go(f"{base}/history")
     assert TRUTH["athlete"] in page.js("document.body.textContent")
-    page.js("document.querySelectorAll('input[name=f]').forEach((c) => { c.checked = true; })")
+    # the re-fit replaced the first save: the library holds one analysis of the clip (comparing two
+    # clips' flights is tested with the test client in test_workbench.py)
+    assert page.js("document.querySelectorAll('input[name=f]').length") == 1
     page.shot(shots / "history.png")
-    page.js("document.querySelector('#compare-flights button').click()")
-    page.wait("location.pathname === '/compare' && document.readyState === 'complete'", timeout=60)
-    assert page.js("document.querySelectorAll('.flight, section').length") >= 2
-    page.shot(shots / "compare.png", whole=False)
 
     import matplotlib.image as mpimg
 
