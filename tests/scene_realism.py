@@ -231,8 +231,9 @@ def _ball_layer(shot: Shot, pos_fn, t_mid, spin_axis, angle0):
     if x1 < 0 or y1 < 0 or x0 >= W or y0 >= H:
         return None, truth
     ss = 4
-    gx = x0 + (np.arange((x1 - x0) * ss) + 0.5) / ss
-    gy = y0 + (np.arange((y1 - y0) * ss) + 0.5) / ss
+    # pixel i covers [i - 0.5, i + 0.5) (its centre at i, as in OpenCV)
+    gx = x0 - 0.5 + (np.arange((x1 - x0) * ss) + 0.5) / ss
+    gy = y0 - 0.5 + (np.arange((y1 - y0) * ss) + 0.5) / ss
     XX, YY = np.meshgrid(gx, gy)
     col = np.zeros(XX.shape + (3,), np.float32)
     cov = np.zeros(XX.shape, np.float32)
@@ -253,7 +254,7 @@ def _ball_layer(shot: Shot, pos_fn, t_mid, spin_axis, angle0):
         px, pz = ca * nx + sa * nz, -sa * nx + ca * nz
         seam_w = np.abs(pz - 0.35 * np.sin(2.0 * np.arctan2(ny, px))) < 0.08
         alb = np.where(seam_w[:, None], seam, base)
-        shade = 0.35 + 0.65 * np.clip(-(nx * light[0] + ny * light[1] + nz * light[2]), 0, 1)
+        shade = 0.35 + 0.65 * np.clip(nx * light[0] + ny * light[1] + nz * light[2], 0, 1)
         col[m] += (alb * shade[:, None] * 0.92).astype(np.float32)
         cov[m] += 1.0
     col /= len(ts)
@@ -328,7 +329,7 @@ def render_shot(shot: Shot, path) -> list[dict]:
             A[:, 2] += off - m
             frame = cv2.warpAffine(img, A, (W, H), flags=cv2.INTER_LINEAR)
             if net is not None:
-                nt = cv2.warpAffine(net, A * np.array([[1, 1, 0.5]]), (W, H), flags=cv2.INTER_LINEAR)
+                nt = cv2.warpAffine(net, A, (W, H), flags=cv2.INTER_LINEAR)  # shake is mostly rotation: no parallax
                 frame = frame * (1 - 0.45 * nt[..., None]) + 20 * 0.45 * nt[..., None]
             frame += rng.standard_normal(frame.shape[:2])[..., None].astype(np.float32) * shot.noise
             frame += np.sqrt(np.clip(frame, 0, 255) / 255.0) * rng.standard_normal(frame.shape).astype(np.float32) \
@@ -340,12 +341,13 @@ def render_shot(shot: Shot, path) -> list[dict]:
                 vc = A[1, 0] * (u + m) + A[1, 1] * (v + m) + A[1, 2]
                 if r <= uc <= W - 1 - r and r <= vc <= H - 1 - r:
                     row.update(u=float(uc), v=float(vc), r=float(r))
+            row["view_shift"] = (float(off[0]), float(off[1]))
             row["cut"] = bool(shot.cut_at_s is not None and last_exp is not None
                               and (last_exp / shot.capture_fps) < shot.cut_at_s <= t_cap)
             frame_cache = frame8
         else:
             prev = truth[-1]
-            for k in ("u", "v", "r"):
+            for k in ("u", "v", "r", "view_shift"):
                 if k in prev:
                     row[k] = prev[k]
         last_exp = exp_idx

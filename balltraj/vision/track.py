@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .detect import Candidate
+from .detect import Candidate, lens_magnification
 
 
 @dataclass
@@ -100,19 +100,20 @@ class _Track:
         return self._speed
 
 
-def world_speed(tr: _Track, focal_px: float, ball_radius_m: float) -> float:
+def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) -> float:
     """Typical speed [m/s] the track would have if it were the ball: depth from the apparent
     radius (f R / r, fitted by a straight line in time), sideways speed from the image motion."""
     ts, uv = tr.times(), tr.uv()
     r = np.array([p[2].radius_px for p in tr.points])
     tt = ts - ts.mean()
-    depth = focal_px * ball_radius_m / np.maximum(r, 0.3)
+    mag = lens_magnification(camera, uv) if camera is not None else np.ones(len(r))
+    depth = focal_px * mag * ball_radius_m / np.maximum(r, 0.3)
     dc = np.polyfit(tt, depth, 1)  # a straight line: noisy radii must not invent radial speed
     d_s = np.polyval(dc, tt)
     radial = np.full(len(tt), dc[0])
     uc = [np.polyfit(tt, uv[:, k], min(3, len(ts) - 1)) for k in range(2)]
     du = np.hypot(np.polyval(np.polyder(uc[0]), tt), np.polyval(np.polyder(uc[1]), tt))
-    lateral = du * np.maximum(d_s, 0.1) / focal_px
+    lateral = du * np.maximum(d_s, 0.1) / (focal_px * mag)
     return float(np.median(np.hypot(lateral, radial)))
 
 
@@ -127,12 +128,20 @@ def _blur_consistent(tr: _Track) -> bool:
 
 
 def _radius_consistent(tr: _Track) -> bool:
-    """Median scatter of the apparent radius about a quadratic in time within 10 % (0.3 px floor)."""
+    """Median scatter of the apparent radius within 10 % (0.3 px floor) about a smooth law: a
+    quadratic in time, or the reciprocal of one (the radius goes as 1/distance, and the distance of
+    a ball thrown away from the camera grows about linearly: r = a / (1 + b t) is far from any
+    quadratic when the ball recedes from 1 m to 20 m)."""
     r = np.array([p[2].radius_px for p in tr.points])
     ts = tr.times()
     tt = ts - ts.mean()
+    tol = max(0.1 * float(np.median(r)), 0.3)
     rf = np.polyval(np.polyfit(tt, r, 2), tt)
-    return float(np.median(np.abs(r - rf))) <= max(0.1 * float(np.median(r)), 0.3)
+    if float(np.median(np.abs(r - rf))) <= tol:
+        return True
+    inv = 1.0 / np.maximum(r, 0.3)
+    rf = 1.0 / np.maximum(np.polyval(np.polyfit(tt, inv, 2, w=r), tt), 1e-6)
+    return float(np.median(np.abs(r - rf))) <= tol
 
 
 def downward_acceleration(tr: _Track, camera, ball_radius_m: float) -> float | None:
@@ -144,7 +153,8 @@ def downward_acceleration(tr: _Track, camera, ball_radius_m: float) -> float | N
         return None
     r = np.array([p[2].radius_px for p in tr.points])
     tt = ts - ts.mean()
-    depth = np.polyval(np.polyfit(tt, camera.focal_px * ball_radius_m / np.maximum(r, 0.3), 1), tt)
+    mag = lens_magnification(camera, uv)
+    depth = np.polyval(np.polyfit(tt, camera.focal_px * mag * ball_radius_m / np.maximum(r, 0.3), 1), tt)
     origin, rays = camera.rays(uv)
     xyz = origin + rays * (np.maximum(depth, 0.3) / (rays @ camera.R[2]))[:, None]
     return float(2.0 * np.polyfit(tt, xyz[:, 2], 2)[0])
@@ -155,18 +165,50 @@ def _net_speed(tr: _Track) -> float:
     return float(np.linalg.norm(uv[-1] - uv[0]) / max(ts[-1] - ts[0], 1e-9))
 
 
+def _path_smoothness_px(uv: np.ndarray) -> float:
+    """Median distance of the points from a smooth path (the sideways coordinate a cubic of the
+    coordinate along the main direction, in windows of 24 points); inf where the path folds back.
+    Independent of the frame times, which frame-rate conversion (dropped exposures) makes uneven."""
+    res = []
+    for a in range(0, len(uv), 12):
+        seg = uv[a:a + 24]
+        if len(seg) < 5 or (a > 0 and len(seg) < 8):
+            continue
+        deg = 3 if len(seg) >= 8 else 2
+        d = seg[-1] - seg[0]
+        n = float(np.hypot(*d))
+        if n < 1e-9:
+            return np.inf
+        e = d / n
+        s_al = (seg - seg[0]) @ e
+        if np.any(np.diff(s_al) <= 0):
+            return np.inf
+        s_side = (seg - seg[0]) @ np.array([-e[1], e[0]])
+        x = (s_al - s_al.mean()) / max(n, 1.0)
+        res.extend(np.abs(s_side - np.polyval(np.polyfit(x, s_side, deg), x)) * np.sqrt(len(seg) / (len(seg) - deg - 1)))
+    return float(np.median(res)) if res else 0.0
+
+
 def _smoothness_px(tr: _Track) -> float:
-    """Median distance of the points from a smooth curve (cubic in time, in windows of 24 points)."""
+    """Median distance of the points from a smooth curve: a cubic in time in windows of 24 points,
+    or, where that fits worse, a smooth path regardless of time (uneven frame times)."""
+    return min(_time_smoothness_px(tr), _path_smoothness_px(tr.uv()))
+
+
+def _time_smoothness_px(tr: _Track) -> float:
     ts, uv = tr.times(), tr.uv()
     res = []
     for a in range(0, len(ts), 12):
         sl = slice(a, min(len(ts), a + 24))
-        if sl.stop - sl.start < 8:
+        m = sl.stop - sl.start
+        if m < 5 or (a > 0 and m < 8):
             continue
+        deg = 3 if m >= 8 else 2  # short tracks (25-30 frames/s): a parabola through 5-7 points
         tt = ts[sl] - ts[sl].mean()
-        A = np.vander(tt, 4)
+        A = np.vander(tt, deg + 1)
         coef, *_ = np.linalg.lstsq(A, uv[sl], rcond=None)
-        res.extend(np.linalg.norm(uv[sl] - A @ coef, axis=1))
+        # scaled for the degrees of freedom the fit used up (few points would look too smooth)
+        res.extend(np.linalg.norm(uv[sl] - A @ coef, axis=1) * np.sqrt(m / (m - deg - 1)))
     return float(np.median(res)) if res else 0.0
 
 
@@ -203,6 +245,7 @@ class Tracker:
         self.active: list[_Track] = []
         self.finished: list[_Track] = []
         self.pool: list[tuple[int, float, Candidate]] = []  # unclaimed candidates of recent frames
+        self.fall_hints: list[float] = []  # apparent fall [m/s^2] of smooth tracks rejected as flights
 
     def update(self, k: int, t: float, cands: list[Candidate]) -> None:
         free = list(range(len(cands)))
@@ -221,9 +264,6 @@ class Tracker:
                     best, best_d = i, d
             if best is not None:
                 c = cands[best]
-                if tr.confirmed and self._is_bounce(tr, t, c):
-                    tr.ended, tr.bounce = "bounce", True
-                    continue
                 tr.add(k, t, c)
                 tr.misses = 0
                 free.remove(best)
@@ -241,25 +281,46 @@ class Tracker:
         for tr in self.active:
             (self.finished if tr.ended else still).append(tr)
         self.active = still
-        # seed new tracks from unclaimed candidates and the recent pool
+        # seed new tracks from unclaimed candidates and the recent pool: three points in three recent
+        # exposures that move fast enough and continue each other's motion (a random pair of clutter
+        # blobs is common in a busy scene, a random triplet in line is not)
         new_pool = []
         for i in free:
             c = cands[i]
-            partner = next((p for p in self.pool if self._seeds(p, k, t, c)), None)
-            if partner is not None:
+            seed = self._seed(k, t, c)
+            if seed is not None:
                 tr = _Track()
-                tr.add(*partner)
-                tr.add(k, t, c)
+                for p in seed:
+                    tr.add(*p)
                 self.active.append(tr)
             else:
                 new_pool.append((k, t, c))
-        self.pool = [p for p in self.pool if k - p[0] < 2] + new_pool
+        self.pool = [p for p in self.pool if k - p[0] < 3] + new_pool
+
+    def _seed(self, k, t, c):
+        """The best (p0, p1, c) from the pool that starts a plausible flight, or None."""
+        best, best_d = None, np.inf
+        for p1 in self.pool:
+            if not self._seeds(p1, k, t, c):
+                continue
+            k1, t1, c1 = p1
+            for p0 in self.pool:
+                k0, t0, c0 = p0
+                if k0 >= k1 or not self._seeds(p0, k1, t1, c1):
+                    continue
+                f = (t - t1) / (t1 - t0)
+                pu, pv = c1.u + (c1.u - c0.u) * f, c1.v + (c1.v - c0.v) * f
+                step = float(np.hypot(c.u - c1.u, c.v - c1.v))
+                d = float(np.hypot(c.u - pu, c.v - pv))
+                if d < 3.0 + 2.0 * c.radius_px + 0.35 * step and d < best_d:
+                    best, best_d = (p0, p1, (k, t, c)), d
+        return best
 
     def _seeds(self, p, k, t, c) -> bool:
-        """Does pool entry p = (k0, t0, c0) and candidate c start a plausible flight?"""
+        """Could pool entry p = (k0, t0, c0) and candidate c be consecutive points of a flight?"""
         k0, t0, c0 = p
         dt = t - t0
-        if dt <= 0 or k - k0 > 2:
+        if dt <= 0 or k - k0 > 2 or k0 == k:
             return False
         sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
         return self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2
@@ -330,7 +391,7 @@ class Tracker:
         if not _blur_consistent(tr) or not _radius_consistent(tr):
             return False
         if self.focal_px and self.ball_radius_m:
-            ws = world_speed(tr, self.focal_px, self.ball_radius_m)
+            ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
             if not self.min_ball_speed <= ws <= self.max_ball_speed:
                 return False
         if self.camera is not None and self.ball_radius_m:
@@ -343,23 +404,100 @@ class Tracker:
         # both the net motion and the typical step: a jump onto a parked blob is not a flight
         return _net_speed(tr) >= self.min_speed and tr.speed_px_per_s() >= self.min_speed
 
-    def _is_bounce(self, tr: _Track, t, c) -> bool:
-        ts, uv = tr.times()[-6:], tr.uv()[-6:]
-        if len(ts) < 5:
-            return False
-        vv = np.diff(uv[:, 1]) / np.diff(ts)
-        v_now = (c.v - uv[-1, 1]) / max(t - ts[-1], 1e-9)
-        # falling (v increasing downward) then suddenly rising by far more than gravity could turn it
-        return vv[-1] > 0 and v_now < -0.3 * abs(vv[-1]) and abs(v_now - vv[-1]) > 0.5 * tr.speed_px_per_s()
+    def end_all(self, reason: str) -> None:
+        """End every track now (a scene cut): nothing continues across it."""
+        for tr in self.active:
+            tr.ended = reason
+        self.finished.extend(self.active)
+        self.active = []
+        self.pool = []
+
+    def _contact_height_ok(self, tr: _Track, i: int) -> bool:
+        """With a camera and a ball: is point i of tr near the ground (the ray at the depth the
+        apparent radius gives)? A bounce happens on the ground, a lift-curved path anywhere."""
+        if self.camera is None or not self.ball_radius_m:
+            return True
+        uv = tr.uv()
+        r = np.array([p[2].radius_px for p in tr.points])
+        lo, hi = max(0, i - 6), min(len(r), i + 7)
+        r_i = float(np.median(r[lo:hi]))
+        mag = float(lens_magnification(self.camera, uv[i]))
+        depth = self.camera.focal_px * mag * self.ball_radius_m / max(r_i, 0.3)
+        origin, ray = self.camera.rays(uv[i])
+        z = float(origin[2] + ray[2] * depth / max(float(ray @ self.camera.R[2]), 1e-6))
+        # the radius (hence depth) is known to ~15 %: allow that much of the ray's height change
+        dz = abs(ray[2]) * depth * 0.15 / max(float(ray @ self.camera.R[2]), 1e-6)
+        return z <= 0.5 + dz
+
+    def _split_at_bounce(self, tr: _Track) -> list[_Track]:
+        """Split tr where its up-down image motion reverses abruptly (a kink: the vertical velocity
+        just before and just after differ far beyond what one smooth curve through both sides
+        allows) and, with a camera, the ball is near the ground there. A path curved by lift bends
+        smoothly and stays one flight."""
+        ts, uv = tr.times(), tr.uv()
+        n = len(ts)
+        if n < 10:
+            return [tr]
+        best, best_score = None, 0.0
+        vel = np.convolve(np.gradient(uv[:, 1], ts), np.ones(5) / 5, mode="same")
+        for i in range(4, n - 4):
+            if not (vel[i - 2] > 0 and vel[min(n - 1, i + 2)] < 0):
+                continue  # only where the up-down motion turns from falling to rising
+            W = min(8, i, n - i - 1)
+            L, R_ = slice(i - W, i + 1), slice(i, i + W + 1)
+            if W < 4:
+                continue
+            tl, tr_ = ts[L] - ts[i], ts[R_] - ts[i]
+            cl, rl = np.polyfit(tl, uv[L, 1], 2, full=True)[:2]
+            cr, rr = np.polyfit(tr_, uv[R_, 1], 2, full=True)[:2]
+            v_before, v_after = cl[1], cr[1]
+            if not (v_before > 0 and v_after < 0):  # image v grows downwards: falling, then rising
+                continue
+            both = slice(i - W, i + W + 1)
+            tb = ts[both] - ts[i]
+            _, rb = np.polyfit(tb, uv[both, 1], 3, full=True)[:2]
+            split_rms = float(np.sqrt((float(np.sum(rl)) + float(np.sum(rr))) / (2 * W + 2)))
+            joint_rms = float(np.sqrt(float(np.sum(rb)) / (2 * W + 1)))
+            score = joint_rms / max(split_rms, 0.15)
+            dv = v_before - v_after
+            if score > 4.0 and joint_rms > 0.5 and dv > 0.1 * tr.speed_px_per_s() and score > best_score \
+                    and self._contact_height_ok(tr, i):
+                best, best_score = i, score
+        if best is None:
+            return [tr]
+        a, b = _Track(), _Track()
+        for p in tr.points[:best + 1]:
+            a.add(*p)
+        for p in tr.points[best + 1:]:
+            b.add(*p)
+        a.confirmed = b.confirmed = True
+        a.ended, a.bounce = "bounce", True
+        b.ended, b.bounce = tr.ended, tr.bounce
+        return [a] + self._split_at_bounce(b)
+
+    def apparent_fall(self, tr: _Track) -> float | None:
+        """Downward acceleration [m/s^2] of the track on the image's vertical, with the scale
+        (metres per pixel) from the ball's apparent size; None without a ball size or when the
+        track is short. A real flight gives about g; a time-stretched slow-motion file g / s^2."""
+        if not self.ball_radius_m or len(tr.points) < 8:
+            return None
+        ts, uv = tr.times(), tr.uv()
+        r = float(np.median([p[2].radius_px for p in tr.points]))
+        a_px = 2.0 * np.polyfit(ts - ts.mean(), uv[:, 1], 2)[0]
+        return float(a_px * self.ball_radius_m / max(r, 0.3))
 
     def finish(self) -> list[TrackedFlight]:
         for tr in self.active:
             tr.ended = tr.ended or "clip ended"
-        done = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
+        merged = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
+        done = [part for tr in merged for part in self._split_at_bounce(tr)]
         self.active = []
         flights = []
+        self.fall_hints = []
         for tr in done:
-            if not tr.confirmed or len(tr.points) < self.min_points:
+            dt = float(np.median(np.diff(tr.times()))) if len(tr.points) > 1 else 0.0
+            min_points = self.min_points if dt < 1 / 40 else max(5, self.min_points - 2)  # 25-30 frames/s
+            if not tr.confirmed or len(tr.points) < min_points:
                 continue
             uv = tr.uv()
             if np.linalg.norm(uv[-1] - uv[0]) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
@@ -369,6 +507,9 @@ class Tracker:
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball
             if not self._looks_like_ball(tr):
+                a = self.apparent_fall(tr)
+                if a is not None:
+                    self.fall_hints.append(a)
                 continue
             flights.append(tr)
         flights.sort(key=lambda x: x.points[0][1])
