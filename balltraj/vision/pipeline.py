@@ -133,7 +133,7 @@ def slow_motion_hint(fps: float, capture_fps, fall_hints) -> str | None:
     if capture_fps is not None or not fall_hints:
         return None
     a = float(np.median(fall_hints))
-    if not 0.02 < a < 3.0:
+    if not 0.02 < a < 1.0:  # a tenth of g or less: stretched 3x or more (small errors of scale do not get here)
         return None
     s = float(np.sqrt(9.81 / a))
     guess = fps * s

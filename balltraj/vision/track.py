@@ -128,14 +128,14 @@ def _blur_consistent(tr: _Track) -> bool:
 
 
 def _radius_consistent(tr: _Track) -> bool:
-    """Median scatter of the apparent radius within 10 % (0.3 px floor) about a smooth law: a
+    """Median scatter of the apparent radius within 12 % (0.5 px floor) about a smooth law: a
     quadratic in time, or the reciprocal of one (the radius goes as 1/distance, and the distance of
     a ball thrown away from the camera grows about linearly: r = a / (1 + b t) is far from any
     quadratic when the ball recedes from 1 m to 20 m)."""
     r = np.array([p[2].radius_px for p in tr.points])
     ts = tr.times()
     tt = ts - ts.mean()
-    tol = max(0.1 * float(np.median(r)), 0.3)
+    tol = max(0.12 * float(np.median(r)), 0.5)  # compressed small balls: their radius wobbles by half a pixel
     rf = np.polyval(np.polyfit(tt, r, 2), tt)
     if float(np.median(np.abs(r - rf))) <= tol:
         return True
@@ -248,35 +248,45 @@ class Tracker:
         self.fall_hints: list[float] = []  # apparent fall [m/s^2] of smooth tracks rejected as flights
 
     def update(self, k: int, t: float, cands: list[Candidate]) -> None:
-        free = list(range(len(cands)))
-        # locked-on tracks first (longest first), then tentative ones
-        for tr in sorted(self.active, key=lambda x: (not x.confirmed, -len(x.points))):
+        # every track's gate around its prediction; then pairs are taken best first (locked-on tracks
+        # before tentative ones, then by distance over gate), so that a wandering tentative track
+        # with a wide gate cannot take the ball from the track that predicts it
+        pairs = []
+        preds = []
+        for j, tr in enumerate(self.active):
             pred, spread = tr.predict(t)
+            preds.append(pred)
             last = tr.points[-1][2]
-            dt = t - tr.points[-1][1]
-            step = tr.speed_px_per_s() * dt
-            gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 * step if tr.confirmed else 0.6 * step)
-            best, best_d = None, gate
-            for i in free:
-                c = cands[i]
+            step = tr.speed_px_per_s() * (t - tr.points[-1][1])
+            gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 if tr.confirmed else 0.35) * step
+            for i, c in enumerate(cands):
                 d = float(np.hypot(c.u - pred[0], c.v - pred[1]))
-                if d < best_d and 0.33 * last.radius_px - 2 <= c.radius_px <= 3 * last.radius_px + 2:
-                    best, best_d = i, d
-            if best is not None:
-                c = cands[best]
-                tr.add(k, t, c)
-                tr.misses = 0
-                free.remove(best)
-                if not tr.confirmed and len(tr.points) >= self.confirm:
-                    tr.confirmed = self._plausible(tr)
-                    if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
-                        tr.ended = "not a flight"
-            else:
-                tr.misses += 1
-                if not (-0.05 * self.w <= pred[0] <= 1.05 * self.w and -0.05 * self.h <= pred[1] <= 1.05 * self.h):
-                    tr.ended = "left the frame"
-                elif tr.misses > (self.max_misses if tr.confirmed else 2):
-                    tr.ended = "lost"
+                if d < gate and 0.33 * last.radius_px - 2 <= c.radius_px <= 3 * last.radius_px + 2:
+                    pairs.append((not tr.confirmed, d / gate, j, i))
+        pairs.sort()
+        taken_t, taken_c = set(), set()
+        for _, _, j, i in pairs:
+            if j in taken_t or i in taken_c:
+                continue
+            taken_t.add(j)
+            taken_c.add(i)
+            tr = self.active[j]
+            tr.add(k, t, cands[i])
+            tr.misses = 0
+            if not tr.confirmed and len(tr.points) >= self.confirm:
+                tr.confirmed = self._plausible(tr)
+                if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
+                    tr.ended = "not a flight"
+        for j, tr in enumerate(self.active):
+            if j in taken_t:
+                continue
+            pred = preds[j]
+            tr.misses += 1
+            if not (-0.05 * self.w <= pred[0] <= 1.05 * self.w and -0.05 * self.h <= pred[1] <= 1.05 * self.h):
+                tr.ended = "left the frame"
+            elif tr.misses > (self.max_misses if tr.confirmed else 2):
+                tr.ended = "lost"
+        free = [i for i in range(len(cands)) if i not in taken_c]
         still = []
         for tr in self.active:
             (self.finished if tr.ended else still).append(tr)
@@ -394,6 +404,10 @@ class Tracker:
             ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
             if not self.min_ball_speed <= ws <= self.max_ball_speed:
                 return False
+        if self.camera is None and self.ball_radius_m:
+            a = self.apparent_fall(tr)
+            if a is not None and abs(a) > 100.0:
+                return False  # at the ball's own scale it turns at over 10 g: a swinging limb, not a flight
         if self.camera is not None and self.ball_radius_m:
             a_z = downward_acceleration(tr, self.camera, self.ball_radius_m)
             if a_z is not None and not (-1.0 > a_z > -30.0):
@@ -486,11 +500,45 @@ class Tracker:
         a_px = 2.0 * np.polyfit(ts - ts.mean(), uv[:, 1], 2)[0]
         return float(a_px * self.ball_radius_m / max(r, 0.3))
 
+    def _trim(self, tr: _Track) -> _Track:
+        """Drop stray points at either end of a track (a track often starts on the thrower's hand or
+        ends on clutter before it locks on or after it loses the ball): an end point goes while the
+        next 8 points, extrapolated by a parabola in time, miss it by more than a few radii, or its
+        apparent radius is far from the track's median (at most a third of the points go)."""
+        pts = list(tr.points)
+        if len(pts) < 12:
+            return tr
+        r_med = float(np.median([p[2].radius_px for p in pts]))
+        limit, removed = len(pts) // 3, 0
+
+        def stray(p, nxt):
+            ts = np.array([q[1] for q in nxt])
+            uv = np.array([(q[2].u, q[2].v) for q in nxt])
+            t0 = ts[0]
+            pred = [np.polyval(np.polyfit(ts - t0, uv[:, j], 2), p[1] - t0) for j in range(2)]
+            step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1)))
+            miss = float(np.hypot(p[2].u - pred[0], p[2].v - pred[1]))
+            return miss > 3.0 + 2.0 * r_med + 0.3 * step or abs(p[2].radius_px - r_med) > 0.5 * r_med + 1.0
+
+        while removed < limit and len(pts) >= 10 and stray(pts[0], pts[1:9]):
+            pts.pop(0)
+            removed += 1
+        while removed < limit and len(pts) >= 10 and stray(pts[-1], pts[-9:-1]):
+            pts.pop()
+            removed += 1
+        if not removed:
+            return tr
+        out = _Track()
+        for p in pts:
+            out.add(*p)
+        out.confirmed, out.ended, out.bounce = tr.confirmed, tr.ended, tr.bounce
+        return out
+
     def finish(self) -> list[TrackedFlight]:
         for tr in self.active:
             tr.ended = tr.ended or "clip ended"
         merged = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
-        done = [part for tr in merged for part in self._split_at_bounce(tr)]
+        done = [self._trim(part) for tr in merged for part in self._split_at_bounce(self._trim(tr))]
         self.active = []
         flights = []
         self.fall_hints = []
