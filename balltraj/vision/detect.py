@@ -235,18 +235,21 @@ class Detector:
         pad = 4
         x0, y0 = max(0, x - pad), max(0, y - pad)
         x1, y1 = min(self.w, x + bw + pad), min(self.h, y + bh + pad)
-        # soft matte |I - B| - T/2, clipped at zero (OpenCV calls: cheaper than numpy on tiny windows)
+        # soft matte |I - B| - 6 grey levels (more where the local threshold says the place is noisy),
+        # clipped at zero (OpenCV calls: cheaper than numpy on tiny windows)
         signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
         diff = np.abs(signed)
-        _, wgt = cv2.threshold(cv2.subtract(diff, max(4.0, 0.5 * t_loc)), 0.0, 0.0, cv2.THRESH_TOZERO)
+        _, wgt = cv2.threshold(cv2.subtract(diff, max(6.0, 0.5 * t_loc - 6.0)), 0.0, 0.0, cv2.THRESH_TOZERO)
         peak = float(cv2.minMaxLoc(wgt)[1])
         if peak <= 0:
             return None
-        # clipped at half the peak: a shaded ball (lit on one side) weighs its dim side nearly as much
-        # as its bright side, so the centroid is the disc's centre, not the centre of its light
-        _, wgt = cv2.threshold(wgt, 0.5 * peak, 0.0, cv2.THRESH_TRUNC)
+        # the centroid from weights clipped at half the peak: a shaded ball (lit on one side) weighs its
+        # dim side nearly as much as its bright side, so the centroid is the disc's centre, not the
+        # centre of its light; size and streak from the plain matte's second moments
+        _, flat = cv2.threshold(wgt, 0.5 * peak, 0.0, cv2.THRESH_TRUNC)
+        mc = cv2.moments(flat)
         m = cv2.moments(wgt)
-        cx, cy = m["m10"] / m["m00"], m["m01"] / m["m00"]
+        cx, cy = mc["m10"] / mc["m00"], mc["m01"] / mc["m00"]
         mu20, mu02, mu11 = m["mu20"] / m["m00"], m["mu02"] / m["m00"], m["mu11"] / m["m00"]
         tr, det = mu20 + mu02, mu20 * mu02 - mu11**2
         disc = math.sqrt(max(tr * tr / 4 - det, 0.0))

@@ -100,6 +100,25 @@ class _Track:
         return self._speed
 
 
+def _robust_line(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Theil-Sen straight line (slope the median of pairwise slopes, intercept the median offset):
+    a few wild radii where the ball passes in front of a person must not bend the depth trend.
+    Returns polyfit-style coefficients (slope, intercept)."""
+    n = len(x)
+    idx = np.arange(n)
+    if n > 60:  # pairs of points a fixed stride apart: enough for a median, linear in n
+        i = idx[: n - n // 3]
+        j = i + n // 3
+    else:
+        i, j = np.triu_indices(n, 1)
+    dx = x[j] - x[i]
+    ok = np.abs(dx) > 1e-12
+    if not ok.any():
+        return np.array([0.0, float(np.median(y))])
+    slope = float(np.median((y[j] - y[i])[ok] / dx[ok]))
+    return np.array([slope, float(np.median(y - slope * x))])
+
+
 def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) -> float:
     """Typical speed [m/s] the track would have if it were the ball: depth from the apparent
     radius (f R / r, fitted by a straight line in time), sideways speed from the image motion."""
@@ -108,7 +127,7 @@ def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) 
     tt = ts - ts.mean()
     mag = lens_magnification(camera, uv) if camera is not None else np.ones(len(r))
     depth = focal_px * mag * ball_radius_m / np.maximum(r, 0.3)
-    dc = np.polyfit(tt, depth, 1)  # a straight line: noisy radii must not invent radial speed
+    dc = _robust_line(tt, depth)  # a straight line: noisy radii must not invent radial speed
     d_s = np.polyval(dc, tt)
     radial = np.full(len(tt), dc[0])
     uc = [np.polyfit(tt, uv[:, k], min(3, len(ts) - 1)) for k in range(2)]
@@ -144,20 +163,40 @@ def _radius_consistent(tr: _Track) -> bool:
     return float(np.median(np.abs(r - rf))) <= tol
 
 
-def downward_acceleration(tr: _Track, camera, ball_radius_m: float) -> float | None:
+def downward_acceleration(tr: _Track, camera, ball_radius_m: float, with_sigma: bool = False):
     """Acceleration along +z [m/s^2] of the track placed in 3D (rays through the camera, depth from
-    the apparent radius fitted by a straight line in time); None when the track is too short
-    (under 0.1 s) to tell. A ball in free flight has about -g, give or take its lift."""
+    the apparent radius fitted by a robust straight line in time); None when the track is too
+    short to tell (under 0.2 s: over a shorter span a noisy depth-from-size trend says little about
+    the fall). A ball in free flight has about -g, give or take its lift."""
     ts, uv = tr.times(), tr.uv()
-    if ts[-1] - ts[0] < 0.1 or len(ts) < 8:
+    if ts[-1] - ts[0] < 0.2 or len(ts) < 8:
         return None
     r = np.array([p[2].radius_px for p in tr.points])
     tt = ts - ts.mean()
     mag = lens_magnification(camera, uv)
-    depth = np.polyval(np.polyfit(tt, camera.focal_px * mag * ball_radius_m / np.maximum(r, 0.3), 1), tt)
+    depth = np.polyval(_robust_line(tt, camera.focal_px * mag * ball_radius_m / np.maximum(r, 0.3)), tt)
     origin, rays = camera.rays(uv)
     xyz = origin + rays * (np.maximum(depth, 0.3) / (rays @ camera.R[2]))[:, None]
-    return float(2.0 * np.polyfit(tt, xyz[:, 2], 2)[0])
+    # a parabola in time, refitted without the points far off it (a tail that strayed onto a person)
+    keep = np.ones(len(tt), bool)
+    for _ in range(3):
+        c = np.polyfit(tt[keep], xyz[keep, 2], 2)
+        res = np.abs(xyz[:, 2] - np.polyval(c, tt))
+        mad = float(np.median(res[keep])) * 1.4826 + 1e-6
+        new = res <= 4.0 * mad
+        if new.sum() < 8 or np.array_equal(new, keep):
+            break
+        keep = new
+    if not with_sigma:
+        return float(2.0 * c[0])
+    # one sigma from the scatter about the parabola: a short track of a tiny ball (its depth from a
+    # radius of a pixel or two) tells the fall only roughly
+    tk = tt[keep]
+    A = np.vander(tk, 3)
+    res = xyz[keep, 2] - A @ c
+    s2 = float(res @ res) / max(1, len(tk) - 3)
+    cov = np.linalg.pinv(A.T @ A) * s2
+    return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
 
 
 def _net_speed(tr: _Track) -> float:
@@ -373,6 +412,23 @@ class Tracker:
         A's curve, extrapolated, lands on B's first points. Links are made best first, each
         fragment continuing at most one and continued by at most one."""
         tracks = sorted(tracks, key=lambda x: x.points[0][1])
+        # a track that ran on for a moment onto something else (a person the ball passed) after
+        # another fragment picked the ball up again: cut its tail where that fragment begins, if the
+        # cut track then continues into it
+        for i, a in enumerate(tracks):
+            for b in tracks:
+                t_b = b.points[0][1]
+                if b is a or not (a.points[0][1] < t_b <= a.points[-1][1]) or a.points[-1][1] - t_b > 0.06:
+                    continue
+                cut = _Track()
+                for p in a.points:
+                    if p[1] < t_b:
+                        cut.add(*p)
+                cut.confirmed, cut.ended = True, "lost"
+                if len(cut.points) >= self.min_points and self._can_be_continued(cut) and self._can_continue(b) \
+                        and self._continuation(cut, b) is not None:
+                    tracks[i] = cut
+                    break
         # the per-fragment tests once each (not once per pair: a clip can hold dozens of fragments)
         heads = [i for i, a in enumerate(tracks) if self._can_be_continued(a)]
         tails = [j for j, b in enumerate(tracks) if self._can_continue(b)]
@@ -409,8 +465,9 @@ class Tracker:
             if a is not None and abs(a) > 100.0:
                 return False  # at the ball's own scale it turns at over 10 g: a swinging limb, not a flight
         if self.camera is not None and self.ball_radius_m:
-            a_z = downward_acceleration(tr, self.camera, self.ball_radius_m)
-            if a_z is not None and not (-1.0 > a_z > -30.0):
+            fall = downward_acceleration(tr, self.camera, self.ball_radius_m, with_sigma=True)
+            a_z, s_a = fall if fall is not None else (None, 0.0)
+            if a_z is not None and not (-1.0 + 2 * s_a > a_z > -30.0 - 2 * s_a):
                 return False  # nothing in free flight keeps its height like that: a person, a flag
         return True
 
@@ -504,7 +561,7 @@ class Tracker:
         """Drop stray points at either end of a track (a track often starts on the thrower's hand or
         ends on clutter before it locks on or after it loses the ball): an end point goes while the
         next 8 points, extrapolated by a parabola in time, miss it by more than a few radii, or its
-        apparent radius is far from the track's median (at most a third of the points go)."""
+        apparent radius is far from what theirs extrapolates to (at most a third of the points go)."""
         pts = list(tr.points)
         if len(pts) < 12:
             return tr
@@ -518,7 +575,9 @@ class Tracker:
             pred = [np.polyval(np.polyfit(ts - t0, uv[:, j], 2), p[1] - t0) for j in range(2)]
             step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1)))
             miss = float(np.hypot(p[2].u - pred[0], p[2].v - pred[1]))
-            return miss > 3.0 + 2.0 * r_med + 0.3 * step or abs(p[2].radius_px - r_med) > 0.5 * r_med + 1.0
+            inv = 1.0 / np.maximum([q[2].radius_px for q in nxt], 0.3)  # radius ~ 1/distance, about linear in time
+            r_pred = 1.0 / max(float(np.polyval(np.polyfit(ts - t0, inv, 1), p[1] - t0)), 1e-3)
+            return miss > 3.0 + 2.0 * r_med + 0.3 * step or abs(p[2].radius_px - r_pred) > 0.4 * r_pred + 1.0
 
         while removed < limit and len(pts) >= 10 and stray(pts[0], pts[1:9]):
             pts.pop(0)
