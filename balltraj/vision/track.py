@@ -147,7 +147,7 @@ class Tracker:
 
     def _can_be_continued(self, prev: _Track) -> bool:
         """May prev (lost, or ended on a suspected bounce) be continued by a later fragment?"""
-        if prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
+        if len(prev.points) < 5 or prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
             return False
         if _smoothness_px(prev) > max(1.5, 0.5 * float(np.median([q[2].radius_px for q in prev.points]))):
             return False  # a jittery fragment (a person's limb, a ghost) is continued by nothing
@@ -186,8 +186,11 @@ class Tracker:
         # a track that ran on for a moment onto something else (a person the ball passed) after
         # another fragment picked the ball up again: cut its tail where that fragment begins, if the
         # cut track then continues into it
+        long = [b for b in tracks if len(b.points) >= self.min_points]
         for i, a in enumerate(tracks):
-            for b in tracks:
+            if len(a.points) < self.min_points + 2:
+                continue
+            for b in long:
                 t_b = b.points[0][1]
                 if b is a or not (a.points[0][1] < t_b <= a.points[-1][1]) or a.points[-1][1] - t_b > 0.06:
                     continue

@@ -18,13 +18,13 @@ class _Track:
     _ts: list = field(default_factory=list)
     _uvs: list = field(default_factory=list)
     _steps: list = field(default_factory=list)
-    _speed: float = 0.0
+    _speed: float | None = 0.0
 
     def add(self, k, t, c):
         if self.points:
             t0, (u0, v0) = self._ts[-1], self._uvs[-1]
-            self._steps.append(float(np.hypot(c.u - u0, c.v - v0)) / max(t - t0, 1e-9))
-            self._speed = float(np.median(self._steps))
+            self._steps.append(((c.u - u0) ** 2 + (c.v - v0) ** 2) ** 0.5 / max(t - t0, 1e-9))
+            self._speed = None  # the median is taken when asked for (tracks are rebuilt point by point)
         self.points.append((k, t, c))
         self._ts.append(t)
         self._uvs.append((c.u, c.v))
@@ -87,4 +87,8 @@ class _Track:
         return np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]]), spread
 
     def speed_px_per_s(self):
+        if self._speed is None:
+            st = sorted(self._steps)
+            n = len(st)
+            self._speed = 0.5 * (st[(n - 1) // 2] + st[n // 2])
         return self._speed
