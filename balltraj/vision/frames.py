@@ -43,6 +43,7 @@ class FrameGuard:
         self._pts = None
         self._key = None  # key frame the corners were found in, and the view motion at it
         self._key_T = IDENTITY.copy()
+        self._still = 0  # consecutive checks that found the view standing still
         self._k = 0
         self.total_motion = IDENTITY.copy()  # first exposure -> current (half-resolution px)
         self.max_moved_px = 0.0  # largest displacement of the view centre from the first frame [px]
@@ -51,14 +52,15 @@ class FrameGuard:
         if self._prev_small is None:
             self._prev_small = small
             return FrameKind("new", IDENTITY, 0.0)
-        d = cv2.absdiff(small, self._prev_small)
-        mean = float(cv2.mean(d)[0])
+        a, b = small[::4], self._prev_small[::4]  # every 4th row (a view: no copy) is plenty for a mean
+        mean = float(cv2.norm(a, b, cv2.NORM_L1)) / a.size
         typical = float(np.median(self._diffs)) if len(self._diffs) >= 3 else None
         if mean <= 1e-3 or (typical is not None and mean < self.repeat_fraction * typical):
             return FrameKind("repeat", IDENTITY, 0.0)
-        if typical is not None:
-            _, big = cv2.threshold(d, max(20.0, 6.0 * typical), 255, cv2.THRESH_BINARY)
-            if cv2.countNonZero(big) > self.cut_share * d.size:
+        big_change = max(20.0, 6.0 * typical) if typical is not None else None
+        if big_change is not None and mean >= self.cut_share * big_change:  # necessary for a cut: cheap test first
+            _, big = cv2.threshold(cv2.absdiff(small, self._prev_small), big_change, 255, cv2.THRESH_BINARY)
+            if cv2.countNonZero(big) > self.cut_share * small.size:
                 self._reset(small)
                 return FrameKind("cut", IDENTITY, 0.0)
         self._diffs = (self._diffs + [mean])[-31:]
@@ -98,6 +100,8 @@ class FrameGuard:
         drifts add up to a measurable shift there, where frame to frame they hide in the noise).
         The view is still when standing still explains nearly as many corners as the best fit."""
         self._k += 1
+        if self._still >= 3 and self._k % 4 and self._key is not None:
+            return IDENTITY  # a still view is re-checked every 4th exposure (drift adds up from the key frame)
         if self._key is None or self._k % 30 == 0:
             self._key, self._key_T = self._prev_small, self.total_motion.copy()
             self._pts = self._corners(self._key)
@@ -121,6 +125,8 @@ class FrameGuard:
             n_still = int(np.count_nonzero(np.linalg.norm(p1 - p0, axis=1) < 0.5))
             if n_still >= 0.7 * n_fit or n_fit < max(8, 0.3 * len(p0)):
                 A = IDENTITY
+        self._still = self._still + 1 if A is IDENTITY and self._key_T is not None and \
+            np.allclose(self._key_T, self.total_motion) else 0
         if ok.sum() < 0.5 * len(self._pts):
             self._key = None  # too many corners lost: a new key frame next time
         # key -> current composed with reference -> key; the step since the last exposure
