@@ -33,9 +33,25 @@ class Candidate:
     contrast: float
 
 
+def lens_magnification(camera: Camera, uv) -> np.ndarray:
+    """Local linear magnification of the lens distortion at pixels uv (..., 2): the square root of
+    the Jacobian determinant of the map from undistorted to distorted normalised coordinates (1
+    without distortion; below 1 towards the edge of a barrel-distorted wide-angle image). A ball's
+    apparent radius is f R / depth times this."""
+    xn = camera.undistort_normalised(np.asarray(uv, float))
+    eps = 1e-6
+    dx = (camera.distort(xn + [eps, 0.0]) - camera.distort(xn - [eps, 0.0])) / (2 * eps)
+    dy = (camera.distort(xn + [0.0, eps]) - camera.distort(xn - [0.0, eps])) / (2 * eps)
+    det = dx[..., 0] * dy[..., 1] - dx[..., 1] * dy[..., 0]
+    return np.sqrt(np.abs(det))
+
+
 def radius_gate_map(camera: Camera | None, ball_radius_m: float | None, size: tuple[int, int],
-                    cells=(32, 18), z_range=(0.0, 4.0), depth_limits=(0.8, 120.0)):
-    """Coarse map of (r_min, r_max) apparent radius [px] per image cell."""
+                    cells=(32, 18), z_range=(-0.3, 60.0), depth_limits=(0.8, 150.0)):
+    """Coarse map of (r_min, r_max) apparent radius [px] per image cell: the ball anywhere along
+    the pixel's ray between the ground and ``z_range[1]`` (lobs, fly balls and high kicks reach
+    tens of metres; the ray and the depth limits, not a fixed height, bound it), through the lens
+    model's local magnification."""
     w, h = size
     if camera is None or ball_radius_m is None:
         return None
@@ -58,7 +74,7 @@ def radius_gate_map(camera: Camera | None, ball_radius_m: float | None, size: tu
     empty = hi <= lo  # the ray never passes the slab: no gating information, be permissive
     near = np.where(empty, depth_limits[0], near)
     far = np.where(empty, depth_limits[1], far)
-    f = camera.focal_px
+    f = camera.focal_px * lens_magnification(camera, np.stack([uu, vv], axis=-1))
     rmin = np.maximum(0.6, 0.5 * f * ball_radius_m / far)
     rmax = 2.0 * f * ball_radius_m / near + 1.0
     return rmin, rmax
@@ -71,22 +87,35 @@ def _static(box, frames) -> bool:
 
 
 class Detector:
-    """Stateful per-clip detector; call :meth:`process` on consecutive frames."""
+    """Stateful per-clip detector; call :meth:`process` on consecutive exposures (not on repeated
+    frames). The foreground threshold is local: ``k_noise`` times a running per-pixel mean absolute
+    deviation of the frame from the background (high at textured or flickering places, low on a
+    plain sky), never below ``min_threshold`` grey levels. Balls brighter or darker than the
+    background are found alike (absolute differences)."""
 
-    def __init__(self, width: int, height: int, *, gate=None, alpha: float = 0.03, min_threshold: float = 12.0,
-                 max_candidates: int = 40):
+    def __init__(self, width: int, height: int, *, gate=None, alpha: float = 0.03, min_threshold: float = 5.0,
+                 k_noise: float = 5.0, max_candidates: int = 40):
         self.w, self.h = width, height
         self.sw, self.sh = width // 2, height // 2
         self.gate = gate
         self.alpha = alpha
         self.min_threshold = min_threshold
+        self.k_noise = k_noise
         self.max_candidates = max_candidates
         self.bg_small = None
         self.bg_full = None
-        self.threshold = min_threshold
+        self.dev = None  # running mean |frame - background| per half-resolution pixel [grey levels]
+        self.thr = None  # the current local threshold map (uint8)
+        self.T = None  # view motion reference -> current frame (half-resolution px), None when still
+        self._origin = np.eye(3)  # the caller's view motion at the reference frame
         self.k = 0
         self._kernel = np.ones((5, 5), np.uint8)
         self._boxes = (None, None)  # half-resolution blob boxes of the last two frames
+
+    @property
+    def threshold(self) -> float:
+        """Median local threshold [grey levels] (a summary for messages)."""
+        return float(np.median(self.thr)) if self.thr is not None else self.min_threshold
 
     def _gate(self, u, v):
         if self.gate is None:
@@ -102,19 +131,64 @@ class Detector:
         gray = cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY) if frame.ndim == 3 else frame
         return gray, cv2.resize(gray, (self.sw, self.sh), interpolation=cv2.INTER_AREA)
 
+    def reset(self, keep_origin: bool = False) -> None:
+        """Forget the background (after a scene cut)."""
+        self.bg_small = self.bg_full = self.dev = self.thr = None
+        self.T = None
+        if not keep_origin:
+            self._origin = np.eye(3)
+        self._boxes = (None, None)
+
+    def set_view(self, T) -> None:
+        """The view's motion since the background began: T (2x3) maps half-resolution pixels of the
+        first exposure (the reference) to the current frame. The background is kept in reference
+        coordinates and each new frame is warped into them once (no blur piles up from warping the
+        background again and again); measurements are made in the current frame against the
+        background warped into it. A view that has moved far from the reference starts afresh."""
+        if T is None:
+            self.T = None
+            return
+        T = (np.vstack([T, [0, 0, 1]]) @ np.linalg.inv(self._origin))[:2]
+        if np.abs(T[:, :2] - np.eye(2)).max() < 1e-4 and np.abs(T[:, 2]).max() < 0.02:
+            self.T = None
+            return
+        if np.abs(T[:, 2]).max() > 0.2 * max(self.sw, self.sh):
+            self._origin = np.vstack([T, [0, 0, 1]]) @ self._origin  # this frame is the new reference
+            self.reset(keep_origin=True)
+            self.T = None
+            return
+        self.T = T
+
+    def _to_ref(self, img, T, size):
+        return cv2.warpAffine(img, T, size, flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+                              borderMode=cv2.BORDER_REPLICATE)
+
+    def _bg_window(self, x0, y0, x1, y1):
+        """The full-resolution background over the current frame's window [x0, x1) x [y0, y1)."""
+        if self.T is None:
+            return self.bg_full[y0:y1, x0:x1]
+        Tf = np.vstack([self.T * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
+        M = np.linalg.inv(Tf)[:2]  # current -> reference (full resolution)
+        M[:, 2] += M[:, :2] @ [x0, y0]
+        return cv2.warpAffine(self.bg_full, M, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR,
+                              borderMode=cv2.BORDER_REPLICATE)
+
     def process(self, frame, prepared=None) -> list[Candidate]:
         gray, small = prepared if prepared is not None else self.prepare(frame)
         self.k += 1
+        if self.T is not None and self.bg_small is not None:
+            small = self._to_ref(small, self.T, (self.sw, self.sh))
         if self.bg_small is None:
             self.bg_small = small.astype(np.float32)
             self.bg_full = gray.astype(np.float32)
+            self.dev = np.full(small.shape, 2.0, np.float32)
+            self.thr = np.full(small.shape, max(self.min_threshold, 2.0 * self.k_noise), np.uint8)
             return []
         bg8 = cv2.convertScaleAbs(self.bg_small)
         diff = cv2.absdiff(small, bg8)
-        if self.k % 32 == 2:  # noise level of the difference image -> threshold
-            med = float(np.median(diff[::4, ::4]))
-            self.threshold = max(self.min_threshold, 6.0 * 1.4826 * med)
-        _, mask = cv2.threshold(diff, self.threshold, 255, cv2.THRESH_BINARY)
+        thr = cv2.max(cv2.convertScaleAbs(self.dev, alpha=self.k_noise), self.min_threshold)
+        self.thr = thr
+        mask = cv2.compare(diff, thr, cv2.CMP_GT)
         contours, _ = cv2.findContours(mask, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
         cands: list[Candidate] = []
         boxes = []
@@ -125,14 +199,26 @@ class Detector:
                     continue  # cut by the image edge: its centroid would be biased
                 if _static((x, y, bw, bh), self._boxes):
                     continue  # the same box for three frames: clutter or a ghost, not a ball in flight
-                cand = self._measure(gray, 2 * x, 2 * y, 2 * bw, 2 * bh)
+                t_loc = float(thr[min(self.sh - 1, y + bh // 2), min(self.sw - 1, x + bw // 2)])
+                if self.T is not None:  # the box in the current frame
+                    cx, cy = self.T @ [x + 0.5 * bw, y + 0.5 * bh, 1.0]
+                    x, y = int(round(cx - 0.5 * bw)), int(round(cy - 0.5 * bh))
+                    if x <= 0 or y <= 0 or x + bw >= self.sw or y + bh >= self.sh:
+                        continue
+                cand = self._measure(gray, 2 * x, 2 * y, 2 * bw, 2 * bh, t_loc)
                 if cand is not None:
                     cands.append(cand)
         self._boxes = (self._boxes[1], set(boxes))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
         # everywhere so that objects put down for good join the background
         keep = cv2.bitwise_not(cv2.dilate(mask, self._kernel))
+        cv2.accumulateWeighted(diff, self.dev, 2 * self.alpha, mask=keep)
+        # and slowly everywhere: places that always differ (edges that shake or resample, flicker)
+        # must raise their own threshold even though they are always flagged
+        cv2.accumulateWeighted(diff, self.dev, 0.5 * self.alpha)
         cv2.accumulateWeighted(small, self.bg_small, self.alpha, mask=keep)
+        if self.k % 4 == 0 and self.T is not None:
+            gray = self._to_ref(gray, self.T * [[1, 1, 2], [1, 1, 2]], (self.w, self.h))
         if self.k % 8 == 0:  # the full-resolution background (for the measurements) every 8th frame
             cv2.accumulateWeighted(gray, self.bg_full, min(1.0, 8 * self.alpha),
                                    mask=cv2.resize(keep, (self.w, self.h), interpolation=cv2.INTER_NEAREST))
@@ -145,17 +231,25 @@ class Detector:
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands
 
-    def _measure(self, gray, x, y, bw, bh):
+    def _measure(self, gray, x, y, bw, bh, t_loc):
         pad = 4
         x0, y0 = max(0, x - pad), max(0, y - pad)
         x1, y1 = min(self.w, x + bw + pad), min(self.h, y + bh + pad)
-        # soft matte |I - B| - T/2, clipped at zero (OpenCV calls: cheaper than numpy on tiny windows)
-        diff = cv2.absdiff(gray[y0:y1, x0:x1].astype(np.float32), self.bg_full[y0:y1, x0:x1])
-        _, wgt = cv2.threshold(cv2.subtract(diff, 0.5 * self.threshold), 0.0, 0.0, cv2.THRESH_TOZERO)
-        m = cv2.moments(wgt)
-        if m["m00"] <= 0:
+        # soft matte |I - B| - 6 grey levels (more where the local threshold says the place is noisy),
+        # clipped at zero (OpenCV calls: cheaper than numpy on tiny windows)
+        signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
+        diff = np.abs(signed)
+        _, wgt = cv2.threshold(cv2.subtract(diff, max(6.0, 0.5 * t_loc - 6.0)), 0.0, 0.0, cv2.THRESH_TOZERO)
+        peak = float(cv2.minMaxLoc(wgt)[1])
+        if peak <= 0:
             return None
-        cx, cy = m["m10"] / m["m00"], m["m01"] / m["m00"]
+        # the centroid from weights clipped at half the peak: a shaded ball (lit on one side) weighs its
+        # dim side nearly as much as its bright side, so the centroid is the disc's centre, not the
+        # centre of its light; size and streak from the plain matte's second moments
+        _, flat = cv2.threshold(wgt, 0.5 * peak, 0.0, cv2.THRESH_TRUNC)
+        mc = cv2.moments(flat)
+        m = cv2.moments(wgt)
+        cx, cy = mc["m10"] / mc["m00"], mc["m01"] / mc["m00"]
         mu20, mu02, mu11 = m["mu20"] / m["m00"], m["mu02"] / m["m00"], m["mu11"] / m["m00"]
         tr, det = mu20 + mu02, mu20 * mu02 - mu11**2
         disc = math.sqrt(max(tr * tr / 4 - det, 0.0))
@@ -168,11 +262,16 @@ class Detector:
         if not (rmin <= r <= rmax):
             return None
         area = float(cv2.countNonZero(wgt))
-        if streak > 3 * max(r, 1) + 40:  # a long thin thing (a line, a limb), not a blurred ball
+        if streak > 0.3 * max(self.w, self.h):  # a long thin thing (a line, a pole), not a blurred ball
+            return None
+        # one polarity: a ball is wholly brighter or wholly darker than what it hides; a moving
+        # textured thing (a shirt's folds, an arm over a patterned background) is both
+        pol = abs(float((signed * (wgt > 0)).sum())) / max(float(diff[wgt > 0].sum()), 1e-9)
+        if pol < 0.6:
             return None
         fill = area / max(1.0, math.pi * r * r + 2 * r * streak)
         if fill < 0.3:
             return None
         return Candidate(u=u + 0.0, v=v + 0.0, radius_px=r, streak_px=streak,
                          angle_rad=0.5 * math.atan2(2 * mu11, mu20 - mu02), area_px=area,
-                         contrast=float(cv2.minMaxLoc(wgt)[1]))
+                         contrast=peak)

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import cv2
 import numpy as np
@@ -12,6 +12,8 @@ from ..camera.model import Camera
 from ..errors import InputError
 from .clip import clip_info, read_frames
 from .detect import Detector, radius_gate_map
+from .frames import FrameGuard
+from .overlay import write_overlay
 from .track import TrackedFlight, Tracker
 
 
@@ -41,7 +43,18 @@ def _opencv_single_threaded():
 @_opencv_single_threaded()
 def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None = None, *,
                capture_fps: float | None = None, start_s: float = 0.0, end_s: float | None = None,
-               progress=None, overlay_path=None) -> TrackResult:
+               progress=None, overlay_path=None, on_exposure=None) -> TrackResult:
+    """Find and link the ball in a clip.
+
+    Every frame is read as the decoder's luma plane (the same pixels whether or not an overlay is
+    written). Repeated frames (frame-rate conversion) are skipped, so each exposure gives at most one
+    observation, timed by the first frame that shows it; a scene cut ends every track and resets the
+    background; the view's motion between exposures is estimated and the background moved with it.
+
+    ``overlay_path``: also write a video with each flight in its own colour, its number and time,
+    and rejected candidates drawn faintly (a second decoding pass). ``on_exposure(frame_index,
+    time_s, candidates)``, if given, is called for every exposure.
+    """
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):
         raise InputError(f"the camera file is for {camera.image_size[0]}x{camera.image_size[1]} frames but the "
@@ -51,45 +64,82 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     det = Detector(info.width, info.height, gate=gate)
     trk = Tracker(info.width, info.height, focal_px=None if camera is None else camera.focal_px,
                   ball_radius_m=ball_radius_m, camera=camera)
-    times, n = [], 0
-    writer = None
-    if overlay_path is not None:
-        fps = info.nominal_fps if info.nominal_fps > 0 else 30.0
-        writer = cv2.VideoWriter(str(overlay_path), cv2.VideoWriter_fourcc(*"mp4v"), fps, (info.width, info.height))
-    overlay = writer is not None
-    prep = (lambda f: (f, det.prepare(f))) if overlay else det.prepare  # the decoding thread does this
-    for k, t, item in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
-                                  grey=not overlay, prepare=prep):
-        if overlay:
-            frame, prepared = item
-        else:
-            frame, prepared = None, item
-        cands = det.process(frame, prepared)
-        trk.update(k, t, cands)
-        times.append(t)
+    guard = FrameGuard()
+    times, frame_of, log = [], [], []
+    n = n_repeat = 0
+    cuts: list[float] = []
+    for k, t, prepared in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
+                                      grey=True, prepare=det.prepare):
         n += 1
-        if writer is not None:
-            for c in cands:
-                cv2.circle(frame, (int(round(c.u)), int(round(c.v))), int(max(3, c.radius_px + 3)), (0, 200, 255), 1)
-            for tr in trk.active:
-                if tr.confirmed:
-                    pts = np.round(tr.uv()).astype(np.int32)
-                    cv2.polylines(frame, [pts.reshape(-1, 1, 2)], False, (255, 80, 0), 2)
-            writer.write(frame)
+        kind = guard.check(prepared[1])
+        if kind.kind == "repeat":
+            n_repeat += 1
+            continue
+        if kind.kind == "cut":
+            trk.end_all("scene cut")
+            det.reset()
+            cuts.append(t)
+        det.set_view(guard.total_motion if guard.max_moved_px > 0 else None)
+        cands = det.process(None, prepared)
+        trk.update(len(frame_of), t, cands)
+        frame_of.append(k)
+        times.append(t)
+        if overlay_path is not None:
+            log.append((k, cands))
+        if on_exposure is not None:
+            on_exposure(k, t, cands)
         if progress is not None and n % 16 == 0:
             progress(n, info.frame_count)
-    if writer is not None:
-        writer.release()
-    flights = trk.finish()
+    flights = [replace(f, frame=np.asarray(frame_of)[f.frame]) for f in trk.finish()]
+    if overlay_path is not None:
+        write_overlay(path, overlay_path, flights, log, fps=info.nominal_fps, start_s=start_s, end_s=end_s,
+                      capture_fps=capture_fps)
     warnings = []
     fps_m = 0.0
     if len(times) > 2:
         dt = np.median(np.diff(times))
         fps_m = 1.0 / dt if dt > 0 else 0.0
-        if fps_m < 90 and capture_fps is None:
-            warnings.append(f"the clip runs at {fps_m:.0f} frames/s; 120 or 240 frames/s tracks fast balls far better"
-                            " (for slow-motion files stored time-stretched, give --capture-fps)")
+    if n_repeat:
+        warnings.append(f"{n_repeat} of {n} frames repeat the previous image (frame-rate conversion): "
+                        f"{fps_m:.0f} distinct images a second were used, one observation each")
+    if cuts:
+        warnings.append("scene cut at " + ", ".join(f"{c:.2f} s" for c in cuts) + ": tracks end there")
+    if camera is not None and guard.max_moved_px > 2.0:
+        warnings.append(f"the view moved by up to {guard.max_moved_px:.0f} px during the clip (hand-held or a pan): "
+                        "the camera file describes a fixed view and no longer applies; use a tripod, or calibrate "
+                        "from the clip itself")
+    falls = [_apparent_fall(f, ball_radius_m) for f in flights] if flights else trk.fall_hints
+    slow = slow_motion_hint(fps_m, capture_fps, [a for a in falls if a is not None])
+    if slow:
+        warnings.append(slow)
+    elif 0 < fps_m < 90 and capture_fps is None:
+        warnings.append(f"the clip runs at {fps_m:.0f} frames/s; 120 or 240 frames/s tracks fast balls far better"
+                        " (for slow-motion files stored time-stretched, give --capture-fps)")
     return TrackResult(flights, n, fps_m, info.width, info.height, warnings)
+
+
+def _apparent_fall(f, ball_radius_m) -> float | None:
+    """Downward acceleration [m/s^2] of a flight on the image's vertical, scaled by the ball's size."""
+    if not ball_radius_m or len(f.t) < 8:
+        return None
+    a_px = 2.0 * np.polyfit(f.t - f.t.mean(), f.uv[:, 1], 2)[0]
+    return float(a_px * ball_radius_m / max(float(np.median(f.radius_px)), 0.3))
+
+
+def slow_motion_hint(fps: float, capture_fps, fall_hints) -> str | None:
+    """A message when the ball falls far slower than gravity allows: the file is probably slow
+    motion stored time-stretched (a ball in free flight falls at about 9.8 m/s^2, give or take its
+    lift and drag; time stretched by s makes it g / s^2)."""
+    if capture_fps is not None or not fall_hints:
+        return None
+    a = float(np.median(fall_hints))
+    if not 0.02 < a < 1.0:  # a tenth of g or less: stretched 3x or more (small errors of scale do not get here)
+        return None
+    s = float(np.sqrt(9.81 / a))
+    guess = fps * s
+    common = min((120, 240, 480, 960), key=lambda c: abs(np.log(c / max(guess, 1.0))))
+    return (f"the ball seems to fall at {a:.2f} m/s^2 instead of about 9.8: this looks like slow motion stored "
+            f"time-stretched (about {s:.0f}x); give the capture rate with --capture-fps (e.g. --capture-fps {common})")
 
 
 def no_ball_error(path, res: TrackResult) -> InputError:

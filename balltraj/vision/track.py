@@ -1,173 +1,25 @@
 """Linking candidates into flights.
 
 Each track predicts its next image position from a constant-acceleration fit (in u and v against
-time) to its last points; once locked on, only candidates in a small window around the prediction
-are considered. New tracks start from pairs of unclaimed candidates in consecutive frames that
-move fast enough to be a thrown ball. A track survives a few missed frames (occlusion, a blurred
-frame), ends when the ball leaves the frame, stops or bounces (a sudden reversal of its up-down
-image motion; the bounce is flagged), and is kept as a flight when it has enough points and moved
-far enough. Slow movers (people, flags) fail the speed test.
+time) to its last points; candidates are given to tracks best first inside a window around each
+prediction (locked-on tracks before tentative ones). New tracks start from three unclaimed
+candidates in recent exposures that move fast enough and continue each other's motion. A track
+survives a few missed exposures (occlusion), ends when the ball leaves the frame or is lost, and at
+the end fragments are joined, stray end points trimmed, and tracks split at bounces (an abrupt
+reversal of the up-down image motion — a kink, not a smooth lift-curved bend — near the ground when
+a camera says where that is). A track is kept as a flight when it passes the tests in checks.py.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
-from .detect import Candidate
-
-
-@dataclass
-class _Track:
-    points: list = field(default_factory=list)  # (k, t, Candidate)
-    misses: int = 0
-    confirmed: bool = False
-    ended: str = ""
-    bounce: bool = False
-    _ts: list = field(default_factory=list)
-    _uvs: list = field(default_factory=list)
-    _steps: list = field(default_factory=list)
-    _speed: float = 0.0
-
-    def add(self, k, t, c):
-        if self.points:
-            t0, (u0, v0) = self._ts[-1], self._uvs[-1]
-            self._steps.append(float(np.hypot(c.u - u0, c.v - v0)) / max(t - t0, 1e-9))
-            self._speed = float(np.median(self._steps))
-        self.points.append((k, t, c))
-        self._ts.append(t)
-        self._uvs.append((c.u, c.v))
-
-    def times(self):
-        return np.asarray(self._ts)
-
-    def uv(self):
-        return np.asarray(self._uvs)
-
-    def predict(self, t):
-        """Position at t from a least-squares line (under 4 points) or parabola in time through the
-        last 8 points, and the rms scatter about it. Plain floats: numpy's per-call cost would
-        dominate these 8-point fits, done for every track in every frame."""
-        ts, uvs = self._ts[-8:], self._uvs[-8:]
-        n = len(ts)
-        if n == 1:
-            return np.asarray(uvs[-1]), 0.0
-        t_ref = ts[-1]
-        deg = 2 if n >= 4 else 1
-        s = [0.0] * (2 * deg + 1)
-        bu = [0.0] * (deg + 1)
-        bv = [0.0] * (deg + 1)
-        for ti, (u, v) in zip(ts, uvs):
-            x = ti - t_ref
-            p = 1.0
-            for k in range(2 * deg + 1):
-                s[k] += p
-                if k <= deg:
-                    bu[k] += p * u
-                    bv[k] += p * v
-                p *= x
-        if deg == 1:
-            det = s[0] * s[2] - s[1] * s[1]
-            if abs(det) < 1e-30:
-                return np.asarray(uvs[-1]), 0.0
-            cu = ((s[2] * bu[0] - s[1] * bu[1]) / det, (s[0] * bu[1] - s[1] * bu[0]) / det, 0.0)
-            cv = ((s[2] * bv[0] - s[1] * bv[1]) / det, (s[0] * bv[1] - s[1] * bv[0]) / det, 0.0)
-        else:  # symmetric 3x3 normal equations, solved by the adjugate
-            a, b, c, d, e = s
-            i00, i01, i02 = c * e - d * d, c * d - b * e, b * d - c * c
-            i11, i12, i22 = a * e - c * c, b * c - a * d, a * c - b * b
-            det = a * i00 + b * i01 + c * i02
-            if abs(det) < 1e-30:
-                return np.asarray(uvs[-1]), 0.0
-            cu = ((i00 * bu[0] + i01 * bu[1] + i02 * bu[2]) / det, (i01 * bu[0] + i11 * bu[1] + i12 * bu[2]) / det,
-                  (i02 * bu[0] + i12 * bu[1] + i22 * bu[2]) / det)
-            cv = ((i00 * bv[0] + i01 * bv[1] + i02 * bv[2]) / det, (i01 * bv[0] + i11 * bv[1] + i12 * bv[2]) / det,
-                  (i02 * bv[0] + i12 * bv[1] + i22 * bv[2]) / det)
-        spread = 0.0
-        if n > deg + 1:
-            acc = 0.0
-            for ti, (u, v) in zip(ts, uvs):
-                x = ti - t_ref
-                du = u - (cu[0] + x * cu[1] + x * x * cu[2])
-                dv = v - (cv[0] + x * cv[1] + x * x * cv[2])
-                acc += du * du + dv * dv
-            spread = (acc / n) ** 0.5
-        x = t - t_ref
-        return np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]]), spread
-
-    def speed_px_per_s(self):
-        return self._speed
-
-
-def world_speed(tr: _Track, focal_px: float, ball_radius_m: float) -> float:
-    """Typical speed [m/s] the track would have if it were the ball: depth from the apparent
-    radius (f R / r, fitted by a straight line in time), sideways speed from the image motion."""
-    ts, uv = tr.times(), tr.uv()
-    r = np.array([p[2].radius_px for p in tr.points])
-    tt = ts - ts.mean()
-    depth = focal_px * ball_radius_m / np.maximum(r, 0.3)
-    dc = np.polyfit(tt, depth, 1)  # a straight line: noisy radii must not invent radial speed
-    d_s = np.polyval(dc, tt)
-    radial = np.full(len(tt), dc[0])
-    uc = [np.polyfit(tt, uv[:, k], min(3, len(ts) - 1)) for k in range(2)]
-    du = np.hypot(np.polyval(np.polyder(uc[0]), tt), np.polyval(np.polyder(uc[1]), tt))
-    lateral = du * np.maximum(d_s, 0.1) / focal_px
-    return float(np.median(np.hypot(lateral, radial)))
-
-
-def _blur_consistent(tr: _Track) -> bool:
-    """A ball's streak is at most the distance it moves in one frame interval (the exposure is
-    shorter than the interval), plus the blur of its edge."""
-    uv, ts = tr.uv(), tr.times()
-    step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.diff(ts))) * float(np.median(np.diff(ts)))
-    streak = float(np.median([p[2].streak_px for p in tr.points]))
-    r = float(np.median([p[2].radius_px for p in tr.points]))
-    return streak <= 1.2 * step + 2.0 + 0.5 * r
-
-
-def _radius_consistent(tr: _Track) -> bool:
-    """Median scatter of the apparent radius about a quadratic in time within 10 % (0.3 px floor)."""
-    r = np.array([p[2].radius_px for p in tr.points])
-    ts = tr.times()
-    tt = ts - ts.mean()
-    rf = np.polyval(np.polyfit(tt, r, 2), tt)
-    return float(np.median(np.abs(r - rf))) <= max(0.1 * float(np.median(r)), 0.3)
-
-
-def downward_acceleration(tr: _Track, camera, ball_radius_m: float) -> float | None:
-    """Acceleration along +z [m/s^2] of the track placed in 3D (rays through the camera, depth from
-    the apparent radius fitted by a straight line in time); None when the track is too short
-    (under 0.1 s) to tell. A ball in free flight has about -g, give or take its lift."""
-    ts, uv = tr.times(), tr.uv()
-    if ts[-1] - ts[0] < 0.1 or len(ts) < 8:
-        return None
-    r = np.array([p[2].radius_px for p in tr.points])
-    tt = ts - ts.mean()
-    depth = np.polyval(np.polyfit(tt, camera.focal_px * ball_radius_m / np.maximum(r, 0.3), 1), tt)
-    origin, rays = camera.rays(uv)
-    xyz = origin + rays * (np.maximum(depth, 0.3) / (rays @ camera.R[2]))[:, None]
-    return float(2.0 * np.polyfit(tt, xyz[:, 2], 2)[0])
-
-
-def _net_speed(tr: _Track) -> float:
-    ts, uv = tr.times(), tr.uv()
-    return float(np.linalg.norm(uv[-1] - uv[0]) / max(ts[-1] - ts[0], 1e-9))
-
-
-def _smoothness_px(tr: _Track) -> float:
-    """Median distance of the points from a smooth curve (cubic in time, in windows of 24 points)."""
-    ts, uv = tr.times(), tr.uv()
-    res = []
-    for a in range(0, len(ts), 12):
-        sl = slice(a, min(len(ts), a + 24))
-        if sl.stop - sl.start < 8:
-            continue
-        tt = ts[sl] - ts[sl].mean()
-        A = np.vander(tt, 4)
-        coef, *_ = np.linalg.lstsq(A, uv[sl], rcond=None)
-        res.extend(np.linalg.norm(uv[sl] - A @ coef, axis=1))
-    return float(np.median(res)) if res else 0.0
+from .checks import (_blur_consistent, _net_speed, _radius_consistent, _smoothness_px, downward_acceleration,
+                     world_speed)
+from .detect import Candidate, lens_magnification
+from .trackpoints import _Track
 
 
 @dataclass(frozen=True)
@@ -203,70 +55,99 @@ class Tracker:
         self.active: list[_Track] = []
         self.finished: list[_Track] = []
         self.pool: list[tuple[int, float, Candidate]] = []  # unclaimed candidates of recent frames
+        self.fall_hints: list[float] = []  # apparent fall [m/s^2] of smooth tracks rejected as flights
 
     def update(self, k: int, t: float, cands: list[Candidate]) -> None:
-        free = list(range(len(cands)))
-        # locked-on tracks first (longest first), then tentative ones
-        for tr in sorted(self.active, key=lambda x: (not x.confirmed, -len(x.points))):
+        # every track's gate around its prediction; then pairs are taken best first (locked-on tracks
+        # before tentative ones, then by distance over gate), so that a wandering tentative track
+        # with a wide gate cannot take the ball from the track that predicts it
+        pairs = []
+        preds = []
+        for j, tr in enumerate(self.active):
             pred, spread = tr.predict(t)
+            preds.append(pred)
             last = tr.points[-1][2]
-            dt = t - tr.points[-1][1]
-            step = tr.speed_px_per_s() * dt
-            gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 * step if tr.confirmed else 0.6 * step)
-            best, best_d = None, gate
-            for i in free:
-                c = cands[i]
+            step = tr.speed_px_per_s() * (t - tr.points[-1][1])
+            gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 if tr.confirmed else 0.35) * step
+            for i, c in enumerate(cands):
                 d = float(np.hypot(c.u - pred[0], c.v - pred[1]))
-                if d < best_d and 0.33 * last.radius_px - 2 <= c.radius_px <= 3 * last.radius_px + 2:
-                    best, best_d = i, d
-            if best is not None:
-                c = cands[best]
-                if tr.confirmed and self._is_bounce(tr, t, c):
-                    tr.ended, tr.bounce = "bounce", True
-                    continue
-                tr.add(k, t, c)
-                tr.misses = 0
-                free.remove(best)
-                if not tr.confirmed and len(tr.points) >= self.confirm:
-                    tr.confirmed = self._plausible(tr)
-                    if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
-                        tr.ended = "not a flight"
-            else:
-                tr.misses += 1
-                if not (-0.05 * self.w <= pred[0] <= 1.05 * self.w and -0.05 * self.h <= pred[1] <= 1.05 * self.h):
-                    tr.ended = "left the frame"
-                elif tr.misses > (self.max_misses if tr.confirmed else 2):
-                    tr.ended = "lost"
+                if d < gate and 0.33 * last.radius_px - 2 <= c.radius_px <= 3 * last.radius_px + 2:
+                    pairs.append((not tr.confirmed, d / gate, j, i))
+        pairs.sort()
+        taken_t, taken_c = set(), set()
+        for _, _, j, i in pairs:
+            if j in taken_t or i in taken_c:
+                continue
+            taken_t.add(j)
+            taken_c.add(i)
+            tr = self.active[j]
+            tr.add(k, t, cands[i])
+            tr.misses = 0
+            if not tr.confirmed and len(tr.points) >= self.confirm:
+                tr.confirmed = self._plausible(tr)
+                if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
+                    tr.ended = "not a flight"
+        for j, tr in enumerate(self.active):
+            if j in taken_t:
+                continue
+            pred = preds[j]
+            tr.misses += 1
+            if not (-0.05 * self.w <= pred[0] <= 1.05 * self.w and -0.05 * self.h <= pred[1] <= 1.05 * self.h):
+                tr.ended = "left the frame"
+            elif tr.misses > (self.max_misses if tr.confirmed else 2):
+                tr.ended = "lost"
+        free = [i for i in range(len(cands)) if i not in taken_c]
         still = []
         for tr in self.active:
             (self.finished if tr.ended else still).append(tr)
         self.active = still
-        # seed new tracks from unclaimed candidates and the recent pool
+        # seed new tracks from unclaimed candidates and the recent pool: three points in three recent
+        # exposures that move fast enough and continue each other's motion (a random pair of clutter
+        # blobs is common in a busy scene, a random triplet in line is not)
         new_pool = []
         for i in free:
             c = cands[i]
-            partner = next((p for p in self.pool if self._seeds(p, k, t, c)), None)
-            if partner is not None:
+            seed = self._seed(k, t, c)
+            if seed is not None:
                 tr = _Track()
-                tr.add(*partner)
-                tr.add(k, t, c)
+                for p in seed:
+                    tr.add(*p)
                 self.active.append(tr)
             else:
                 new_pool.append((k, t, c))
-        self.pool = [p for p in self.pool if k - p[0] < 2] + new_pool
+        self.pool = [p for p in self.pool if k - p[0] < 3] + new_pool
+
+    def _seed(self, k, t, c):
+        """The best (p0, p1, c) from the pool that starts a plausible flight, or None."""
+        best, best_d = None, np.inf
+        for p1 in self.pool:
+            if not self._seeds(p1, k, t, c):
+                continue
+            k1, t1, c1 = p1
+            for p0 in self.pool:
+                k0, t0, c0 = p0
+                if k0 >= k1 or not self._seeds(p0, k1, t1, c1):
+                    continue
+                f = (t - t1) / (t1 - t0)
+                pu, pv = c1.u + (c1.u - c0.u) * f, c1.v + (c1.v - c0.v) * f
+                step = float(np.hypot(c.u - c1.u, c.v - c1.v))
+                d = float(np.hypot(c.u - pu, c.v - pv))
+                if d < 3.0 + 2.0 * c.radius_px + 0.35 * step and d < best_d:
+                    best, best_d = (p0, p1, (k, t, c)), d
+        return best
 
     def _seeds(self, p, k, t, c) -> bool:
-        """Does pool entry p = (k0, t0, c0) and candidate c start a plausible flight?"""
+        """Could pool entry p = (k0, t0, c0) and candidate c be consecutive points of a flight?"""
         k0, t0, c0 = p
         dt = t - t0
-        if dt <= 0 or k - k0 > 2:
+        if dt <= 0 or k - k0 > 2 or k0 == k:
             return False
         sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
         return self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2
 
     def _can_be_continued(self, prev: _Track) -> bool:
         """May prev (lost, or ended on a suspected bounce) be continued by a later fragment?"""
-        if prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
+        if len(prev.points) < 5 or prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
             return False
         if _smoothness_px(prev) > max(1.5, 0.5 * float(np.median([q[2].radius_px for q in prev.points]))):
             return False  # a jittery fragment (a person's limb, a ghost) is continued by nothing
@@ -302,6 +183,26 @@ class Tracker:
         A's curve, extrapolated, lands on B's first points. Links are made best first, each
         fragment continuing at most one and continued by at most one."""
         tracks = sorted(tracks, key=lambda x: x.points[0][1])
+        # a track that ran on for a moment onto something else (a person the ball passed) after
+        # another fragment picked the ball up again: cut its tail where that fragment begins, if the
+        # cut track then continues into it
+        long = [b for b in tracks if len(b.points) >= self.min_points]
+        for i, a in enumerate(tracks):
+            if len(a.points) < self.min_points + 2:
+                continue
+            for b in long:
+                t_b = b.points[0][1]
+                if b is a or not (a.points[0][1] < t_b <= a.points[-1][1]) or a.points[-1][1] - t_b > 0.06:
+                    continue
+                cut = _Track()
+                for p in a.points:
+                    if p[1] < t_b:
+                        cut.add(*p)
+                cut.confirmed, cut.ended = True, "lost"
+                if len(cut.points) >= self.min_points and self._can_be_continued(cut) and self._can_continue(b) \
+                        and self._continuation(cut, b) is not None:
+                    tracks[i] = cut
+                    break
         # the per-fragment tests once each (not once per pair: a clip can hold dozens of fragments)
         heads = [i for i, a in enumerate(tracks) if self._can_be_continued(a)]
         tails = [j for j, b in enumerate(tracks) if self._can_continue(b)]
@@ -330,12 +231,17 @@ class Tracker:
         if not _blur_consistent(tr) or not _radius_consistent(tr):
             return False
         if self.focal_px and self.ball_radius_m:
-            ws = world_speed(tr, self.focal_px, self.ball_radius_m)
+            ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
             if not self.min_ball_speed <= ws <= self.max_ball_speed:
                 return False
+        if self.camera is None and self.ball_radius_m:
+            a = self.apparent_fall(tr)
+            if a is not None and abs(a) > 100.0:
+                return False  # at the ball's own scale it turns at over 10 g: a swinging limb, not a flight
         if self.camera is not None and self.ball_radius_m:
-            a_z = downward_acceleration(tr, self.camera, self.ball_radius_m)
-            if a_z is not None and not (-1.0 > a_z > -30.0):
+            fall = downward_acceleration(tr, self.camera, self.ball_radius_m, with_sigma=True)
+            a_z, s_a = fall if fall is not None else (None, 0.0)
+            if a_z is not None and not (-1.0 + 2 * s_a > a_z > -30.0 - 2 * s_a):
                 return False  # nothing in free flight keeps its height like that: a person, a flag
         return True
 
@@ -343,23 +249,136 @@ class Tracker:
         # both the net motion and the typical step: a jump onto a parked blob is not a flight
         return _net_speed(tr) >= self.min_speed and tr.speed_px_per_s() >= self.min_speed
 
-    def _is_bounce(self, tr: _Track, t, c) -> bool:
-        ts, uv = tr.times()[-6:], tr.uv()[-6:]
-        if len(ts) < 5:
-            return False
-        vv = np.diff(uv[:, 1]) / np.diff(ts)
-        v_now = (c.v - uv[-1, 1]) / max(t - ts[-1], 1e-9)
-        # falling (v increasing downward) then suddenly rising by far more than gravity could turn it
-        return vv[-1] > 0 and v_now < -0.3 * abs(vv[-1]) and abs(v_now - vv[-1]) > 0.5 * tr.speed_px_per_s()
+    def end_all(self, reason: str) -> None:
+        """End every track now (a scene cut): nothing continues across it."""
+        for tr in self.active:
+            tr.ended = reason
+        self.finished.extend(self.active)
+        self.active = []
+        self.pool = []
+
+    def _contact_height_ok(self, tr: _Track, i: int) -> bool:
+        """With a camera and a ball: is point i of tr near the ground (the ray at the depth the
+        apparent radius gives)? A bounce happens on the ground, a lift-curved path anywhere."""
+        if self.camera is None or not self.ball_radius_m:
+            return True
+        uv = tr.uv()
+        r = np.array([p[2].radius_px for p in tr.points])
+        lo, hi = max(0, i - 6), min(len(r), i + 7)
+        r_i = float(np.median(r[lo:hi]))
+        mag = float(lens_magnification(self.camera, uv[i]))
+        depth = self.camera.focal_px * mag * self.ball_radius_m / max(r_i, 0.3)
+        origin, ray = self.camera.rays(uv[i])
+        z = float(origin[2] + ray[2] * depth / max(float(ray @ self.camera.R[2]), 1e-6))
+        # the radius (hence depth) is known to ~15 %: allow that much of the ray's height change
+        dz = abs(ray[2]) * depth * 0.15 / max(float(ray @ self.camera.R[2]), 1e-6)
+        return z <= 0.5 + dz
+
+    def _split_at_bounce(self, tr: _Track) -> list[_Track]:
+        """Split tr where its up-down image motion reverses abruptly (a kink: the vertical velocity
+        just before and just after differ far beyond what one smooth curve through both sides
+        allows) and, with a camera, the ball is near the ground there. A path curved by lift bends
+        smoothly and stays one flight."""
+        ts, uv = tr.times(), tr.uv()
+        n = len(ts)
+        if n < 10:
+            return [tr]
+        best, best_score = None, 0.0
+        vel = np.convolve(np.gradient(uv[:, 1], ts), np.ones(5) / 5, mode="same")
+        for i in range(4, n - 4):
+            if not (vel[i - 2] > 0 and vel[min(n - 1, i + 2)] < 0):
+                continue  # only where the up-down motion turns from falling to rising
+            W = min(8, i, n - i - 1)
+            L, R_ = slice(i - W, i + 1), slice(i, i + W + 1)
+            if W < 4:
+                continue
+            tl, tr_ = ts[L] - ts[i], ts[R_] - ts[i]
+            cl, rl = np.polyfit(tl, uv[L, 1], 2, full=True)[:2]
+            cr, rr = np.polyfit(tr_, uv[R_, 1], 2, full=True)[:2]
+            v_before, v_after = cl[1], cr[1]
+            if not (v_before > 0 and v_after < 0):  # image v grows downwards: falling, then rising
+                continue
+            both = slice(i - W, i + W + 1)
+            tb = ts[both] - ts[i]
+            _, rb = np.polyfit(tb, uv[both, 1], 3, full=True)[:2]
+            split_rms = float(np.sqrt((float(np.sum(rl)) + float(np.sum(rr))) / (2 * W + 2)))
+            joint_rms = float(np.sqrt(float(np.sum(rb)) / (2 * W + 1)))
+            score = joint_rms / max(split_rms, 0.15)
+            dv = v_before - v_after
+            if score > 4.0 and joint_rms > 0.5 and dv > 0.1 * tr.speed_px_per_s() and score > best_score \
+                    and self._contact_height_ok(tr, i):
+                best, best_score = i, score
+        if best is None:
+            return [tr]
+        a, b = _Track(), _Track()
+        for p in tr.points[:best + 1]:
+            a.add(*p)
+        for p in tr.points[best + 1:]:
+            b.add(*p)
+        a.confirmed = b.confirmed = True
+        a.ended, a.bounce = "bounce", True
+        b.ended, b.bounce = tr.ended, tr.bounce
+        return [a] + self._split_at_bounce(b)
+
+    def apparent_fall(self, tr: _Track) -> float | None:
+        """Downward acceleration [m/s^2] of the track on the image's vertical, with the scale
+        (metres per pixel) from the ball's apparent size; None without a ball size or when the
+        track is short. A real flight gives about g; a time-stretched slow-motion file g / s^2."""
+        if not self.ball_radius_m or len(tr.points) < 8:
+            return None
+        ts, uv = tr.times(), tr.uv()
+        r = float(np.median([p[2].radius_px for p in tr.points]))
+        a_px = 2.0 * np.polyfit(ts - ts.mean(), uv[:, 1], 2)[0]
+        return float(a_px * self.ball_radius_m / max(r, 0.3))
+
+    def _trim(self, tr: _Track) -> _Track:
+        """Drop stray points at either end of a track (a track often starts on the thrower's hand or
+        ends on clutter before it locks on or after it loses the ball): an end point goes while the
+        next 8 points, extrapolated by a parabola in time, miss it by more than a few radii, or its
+        apparent radius is far from what theirs extrapolates to (at most a third of the points go)."""
+        pts = list(tr.points)
+        if len(pts) < 12:
+            return tr
+        r_med = float(np.median([p[2].radius_px for p in pts]))
+        limit, removed = len(pts) // 3, 0
+
+        def stray(p, nxt):
+            ts = np.array([q[1] for q in nxt])
+            uv = np.array([(q[2].u, q[2].v) for q in nxt])
+            t0 = ts[0]
+            pred = [np.polyval(np.polyfit(ts - t0, uv[:, j], 2), p[1] - t0) for j in range(2)]
+            step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1)))
+            miss = float(np.hypot(p[2].u - pred[0], p[2].v - pred[1]))
+            inv = 1.0 / np.maximum([q[2].radius_px for q in nxt], 0.3)  # radius ~ 1/distance, about linear in time
+            r_pred = 1.0 / max(float(np.polyval(np.polyfit(ts - t0, inv, 1), p[1] - t0)), 1e-3)
+            return miss > 3.0 + 2.0 * r_med + 0.3 * step or abs(p[2].radius_px - r_pred) > 0.4 * r_pred + 1.0
+
+        while removed < limit and len(pts) >= 10 and stray(pts[0], pts[1:9]):
+            pts.pop(0)
+            removed += 1
+        while removed < limit and len(pts) >= 10 and stray(pts[-1], pts[-9:-1]):
+            pts.pop()
+            removed += 1
+        if not removed:
+            return tr
+        out = _Track()
+        for p in pts:
+            out.add(*p)
+        out.confirmed, out.ended, out.bounce = tr.confirmed, tr.ended, tr.bounce
+        return out
 
     def finish(self) -> list[TrackedFlight]:
         for tr in self.active:
             tr.ended = tr.ended or "clip ended"
-        done = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
+        merged = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
+        done = [self._trim(part) for tr in merged for part in self._split_at_bounce(self._trim(tr))]
         self.active = []
         flights = []
+        self.fall_hints = []
         for tr in done:
-            if not tr.confirmed or len(tr.points) < self.min_points:
+            dt = float(np.median(np.diff(tr.times()))) if len(tr.points) > 1 else 0.0
+            min_points = self.min_points if dt < 1 / 40 else max(5, self.min_points - 2)  # 25-30 frames/s
+            if not tr.confirmed or len(tr.points) < min_points:
                 continue
             uv = tr.uv()
             if np.linalg.norm(uv[-1] - uv[0]) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
@@ -369,6 +388,9 @@ class Tracker:
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball
             if not self._looks_like_ball(tr):
+                a = self.apparent_fall(tr)
+                if a is not None:
+                    self.fall_hints.append(a)
                 continue
             flights.append(tr)
         flights.sort(key=lambda x: x.points[0][1])

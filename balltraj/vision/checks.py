@@ -1,0 +1,165 @@
+"""Tests that tell a ball's track from other moving things: a smooth path, a consistent size
+(following 1/distance), blur no longer than its own motion allows, and — with the ball's size and a
+camera — a plausible speed and a fall near g. Pure functions of a track's points."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from .detect import lens_magnification
+
+if TYPE_CHECKING:
+    from .trackpoints import _Track
+
+
+def _robust_line(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Theil-Sen straight line (slope the median of pairwise slopes, intercept the median offset):
+    a few wild radii where the ball passes in front of a person must not bend the depth trend.
+    Returns polyfit-style coefficients (slope, intercept)."""
+    n = len(x)
+    idx = np.arange(n)
+    if n > 60:  # pairs of points a fixed stride apart: enough for a median, linear in n
+        i = idx[: n - n // 3]
+        j = i + n // 3
+    else:
+        i, j = np.triu_indices(n, 1)
+    dx = x[j] - x[i]
+    ok = np.abs(dx) > 1e-12
+    if not ok.any():
+        return np.array([0.0, float(np.median(y))])
+    slope = float(np.median((y[j] - y[i])[ok] / dx[ok]))
+    return np.array([slope, float(np.median(y - slope * x))])
+
+
+def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) -> float:
+    """Typical speed [m/s] the track would have if it were the ball: depth from the apparent
+    radius (f R / r, fitted by a straight line in time), sideways speed from the image motion."""
+    ts, uv = tr.times(), tr.uv()
+    r = np.array([p[2].radius_px for p in tr.points])
+    tt = ts - ts.mean()
+    mag = lens_magnification(camera, uv) if camera is not None else np.ones(len(r))
+    depth = focal_px * mag * ball_radius_m / np.maximum(r, 0.3)
+    dc = _robust_line(tt, depth)  # a straight line: noisy radii must not invent radial speed
+    d_s = np.polyval(dc, tt)
+    radial = np.full(len(tt), dc[0])
+    uc = [np.polyfit(tt, uv[:, k], min(3, len(ts) - 1)) for k in range(2)]
+    du = np.hypot(np.polyval(np.polyder(uc[0]), tt), np.polyval(np.polyder(uc[1]), tt))
+    lateral = du * np.maximum(d_s, 0.1) / (focal_px * mag)
+    return float(np.median(np.hypot(lateral, radial)))
+
+
+def _blur_consistent(tr: _Track) -> bool:
+    """A ball's streak is at most the distance it moves in one frame interval (the exposure is
+    shorter than the interval), plus the blur of its edge."""
+    uv, ts = tr.uv(), tr.times()
+    step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.diff(ts))) * float(np.median(np.diff(ts)))
+    streak = float(np.median([p[2].streak_px for p in tr.points]))
+    r = float(np.median([p[2].radius_px for p in tr.points]))
+    return streak <= 1.2 * step + 2.0 + 0.5 * r
+
+
+def _radius_consistent(tr: _Track) -> bool:
+    """Median scatter of the apparent radius within 12 % (0.5 px floor) about a smooth law: a
+    quadratic in time, or the reciprocal of one (the radius goes as 1/distance, and the distance of
+    a ball thrown away from the camera grows about linearly: r = a / (1 + b t) is far from any
+    quadratic when the ball recedes from 1 m to 20 m)."""
+    r = np.array([p[2].radius_px for p in tr.points])
+    ts = tr.times()
+    tt = ts - ts.mean()
+    tol = max(0.12 * float(np.median(r)), 0.5)  # compressed small balls: their radius wobbles by half a pixel
+    rf = np.polyval(np.polyfit(tt, r, 2), tt)
+    if float(np.median(np.abs(r - rf))) <= tol:
+        return True
+    inv = 1.0 / np.maximum(r, 0.3)
+    rf = 1.0 / np.maximum(np.polyval(np.polyfit(tt, inv, 2, w=r), tt), 1e-6)
+    return float(np.median(np.abs(r - rf))) <= tol
+
+
+def downward_acceleration(tr: _Track, camera, ball_radius_m: float, with_sigma: bool = False):
+    """Acceleration along +z [m/s^2] of the track placed in 3D (rays through the camera, depth from
+    the apparent radius fitted by a robust straight line in time); None when the track is too
+    short to tell (under 0.2 s: over a shorter span a noisy depth-from-size trend says little about
+    the fall). A ball in free flight has about -g, give or take its lift."""
+    ts, uv = tr.times(), tr.uv()
+    if ts[-1] - ts[0] < 0.2 or len(ts) < 8:
+        return None
+    r = np.array([p[2].radius_px for p in tr.points])
+    tt = ts - ts.mean()
+    mag = lens_magnification(camera, uv)
+    depth = np.polyval(_robust_line(tt, camera.focal_px * mag * ball_radius_m / np.maximum(r, 0.3)), tt)
+    origin, rays = camera.rays(uv)
+    xyz = origin + rays * (np.maximum(depth, 0.3) / (rays @ camera.R[2]))[:, None]
+    # a parabola in time, refitted without the points far off it (a tail that strayed onto a person)
+    keep = np.ones(len(tt), bool)
+    for _ in range(3):
+        c = np.polyfit(tt[keep], xyz[keep, 2], 2)
+        res = np.abs(xyz[:, 2] - np.polyval(c, tt))
+        mad = float(np.median(res[keep])) * 1.4826 + 1e-6
+        new = res <= 4.0 * mad
+        if new.sum() < 8 or np.array_equal(new, keep):
+            break
+        keep = new
+    if not with_sigma:
+        return float(2.0 * c[0])
+    # one sigma from the scatter about the parabola: a short track of a tiny ball (its depth from a
+    # radius of a pixel or two) tells the fall only roughly
+    tk = tt[keep]
+    A = np.vander(tk, 3)
+    res = xyz[keep, 2] - A @ c
+    s2 = float(res @ res) / max(1, len(tk) - 3)
+    cov = np.linalg.pinv(A.T @ A) * s2
+    return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
+
+
+def _net_speed(tr: _Track) -> float:
+    ts, uv = tr.times(), tr.uv()
+    return float(np.linalg.norm(uv[-1] - uv[0]) / max(ts[-1] - ts[0], 1e-9))
+
+
+def _path_smoothness_px(uv: np.ndarray) -> float:
+    """Median distance of the points from a smooth path (the sideways coordinate a cubic of the
+    coordinate along the main direction, in windows of 24 points); inf where the path folds back.
+    Independent of the frame times, which frame-rate conversion (dropped exposures) makes uneven."""
+    res = []
+    for a in range(0, len(uv), 12):
+        seg = uv[a:a + 24]
+        if len(seg) < 5 or (a > 0 and len(seg) < 8):
+            continue
+        deg = 3 if len(seg) >= 8 else 2
+        d = seg[-1] - seg[0]
+        n = float(np.hypot(*d))
+        if n < 1e-9:
+            return np.inf
+        e = d / n
+        s_al = (seg - seg[0]) @ e
+        if np.any(np.diff(s_al) <= 0):
+            return np.inf
+        s_side = (seg - seg[0]) @ np.array([-e[1], e[0]])
+        x = (s_al - s_al.mean()) / max(n, 1.0)
+        res.extend(np.abs(s_side - np.polyval(np.polyfit(x, s_side, deg), x)) * np.sqrt(len(seg) / (len(seg) - deg - 1)))
+    return float(np.median(res)) if res else 0.0
+
+
+def _smoothness_px(tr: _Track) -> float:
+    """Median distance of the points from a smooth curve: a cubic in time in windows of 24 points,
+    or, where that fits worse, a smooth path regardless of time (uneven frame times)."""
+    return min(_time_smoothness_px(tr), _path_smoothness_px(tr.uv()))
+
+
+def _time_smoothness_px(tr: _Track) -> float:
+    ts, uv = tr.times(), tr.uv()
+    res = []
+    for a in range(0, len(ts), 12):
+        sl = slice(a, min(len(ts), a + 24))
+        m = sl.stop - sl.start
+        if m < 5 or (a > 0 and m < 8):
+            continue
+        deg = 3 if m >= 8 else 2  # short tracks (25-30 frames/s): a parabola through 5-7 points
+        tt = ts[sl] - ts[sl].mean()
+        A = np.vander(tt, deg + 1)
+        coef, *_ = np.linalg.lstsq(A, uv[sl], rcond=None)
+        # scaled for the degrees of freedom the fit used up (few points would look too smooth)
+        res.extend(np.linalg.norm(uv[sl] - A @ coef, axis=1) * np.sqrt(m / (m - deg - 1)))
+    return float(np.median(res)) if res else 0.0

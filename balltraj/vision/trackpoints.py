@@ -1,0 +1,94 @@
+"""One track's points (exposure index, time, candidate) with the fast constant-acceleration
+prediction the tracker asks of it every frame."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+@dataclass
+class _Track:
+    points: list = field(default_factory=list)  # (k, t, Candidate)
+    misses: int = 0
+    confirmed: bool = False
+    ended: str = ""
+    bounce: bool = False
+    _ts: list = field(default_factory=list)
+    _uvs: list = field(default_factory=list)
+    _steps: list = field(default_factory=list)
+    _speed: float | None = 0.0
+
+    def add(self, k, t, c):
+        if self.points:
+            t0, (u0, v0) = self._ts[-1], self._uvs[-1]
+            self._steps.append(((c.u - u0) ** 2 + (c.v - v0) ** 2) ** 0.5 / max(t - t0, 1e-9))
+            self._speed = None  # the median is taken when asked for (tracks are rebuilt point by point)
+        self.points.append((k, t, c))
+        self._ts.append(t)
+        self._uvs.append((c.u, c.v))
+
+    def times(self):
+        return np.asarray(self._ts)
+
+    def uv(self):
+        return np.asarray(self._uvs)
+
+    def predict(self, t):
+        """Position at t from a least-squares line (under 4 points) or parabola in time through the
+        last 8 points, and the rms scatter about it. Plain floats: numpy's per-call cost would
+        dominate these 8-point fits, done for every track in every frame."""
+        ts, uvs = self._ts[-8:], self._uvs[-8:]
+        n = len(ts)
+        if n == 1:
+            return np.asarray(uvs[-1]), 0.0
+        t_ref = ts[-1]
+        deg = 2 if n >= 4 else 1
+        s = [0.0] * (2 * deg + 1)
+        bu = [0.0] * (deg + 1)
+        bv = [0.0] * (deg + 1)
+        for ti, (u, v) in zip(ts, uvs):
+            x = ti - t_ref
+            p = 1.0
+            for k in range(2 * deg + 1):
+                s[k] += p
+                if k <= deg:
+                    bu[k] += p * u
+                    bv[k] += p * v
+                p *= x
+        if deg == 1:
+            det = s[0] * s[2] - s[1] * s[1]
+            if abs(det) < 1e-30:
+                return np.asarray(uvs[-1]), 0.0
+            cu = ((s[2] * bu[0] - s[1] * bu[1]) / det, (s[0] * bu[1] - s[1] * bu[0]) / det, 0.0)
+            cv = ((s[2] * bv[0] - s[1] * bv[1]) / det, (s[0] * bv[1] - s[1] * bv[0]) / det, 0.0)
+        else:  # symmetric 3x3 normal equations, solved by the adjugate
+            a, b, c, d, e = s
+            i00, i01, i02 = c * e - d * d, c * d - b * e, b * d - c * c
+            i11, i12, i22 = a * e - c * c, b * c - a * d, a * c - b * b
+            det = a * i00 + b * i01 + c * i02
+            if abs(det) < 1e-30:
+                return np.asarray(uvs[-1]), 0.0
+            cu = ((i00 * bu[0] + i01 * bu[1] + i02 * bu[2]) / det, (i01 * bu[0] + i11 * bu[1] + i12 * bu[2]) / det,
+                  (i02 * bu[0] + i12 * bu[1] + i22 * bu[2]) / det)
+            cv = ((i00 * bv[0] + i01 * bv[1] + i02 * bv[2]) / det, (i01 * bv[0] + i11 * bv[1] + i12 * bv[2]) / det,
+                  (i02 * bv[0] + i12 * bv[1] + i22 * bv[2]) / det)
+        spread = 0.0
+        if n > deg + 1:
+            acc = 0.0
+            for ti, (u, v) in zip(ts, uvs):
+                x = ti - t_ref
+                du = u - (cu[0] + x * cu[1] + x * x * cu[2])
+                dv = v - (cv[0] + x * cv[1] + x * x * cv[2])
+                acc += du * du + dv * dv
+            spread = (acc / n) ** 0.5
+        x = t - t_ref
+        return np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]]), spread
+
+    def speed_px_per_s(self):
+        if self._speed is None:
+            st = sorted(self._steps)
+            n = len(st)
+            self._speed = 0.5 * (st[(n - 1) // 2] + st[n // 2])
+        return self._speed
