@@ -119,9 +119,9 @@ def render_spin_clip(scene: SpinScene):
     w, h = scene.image_size
     n, r = scene.n_frames, scene.radius_px
     dur = n / scene.fps
-    start = np.array(scene.start_px if scene.start_px is not None else (1.6 * r, h / 2))
+    start = np.array(scene.start_px if scene.start_px is not None else (2.2 * r, h / 2))
     vel = np.array(scene.velocity_pxps if scene.velocity_pxps is not None
-                   else ((w - 3.2 * r) / dur, 0.15 * h / dur))
+                   else ((w - 4.4 * r) / dur, 0.15 * h / dur))
     omega = np.asarray(scene.spin, float)
     R0 = Rotation.random(random_state=rng.integers(2**31)).as_matrix()
     L = np.asarray(scene.light, float)
