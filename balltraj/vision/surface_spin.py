@@ -28,18 +28,15 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-import cv2
 import numpy as np
 
-from ..camera.model import Camera, rotation_vector
-from .surface_ball import BallDisc, fit_ball_disc, rough_ball, surface_patch, view_rotation
+from ..camera.model import Camera
+from .surface_ball import fit_ball_disc, rough_ball
+from .surface_register import (SurfaceFrame, joint_scores, local_grid, pair_scores, rotation_matrices, subsample,
+                               unwrap)
 
 RPM_PER_RADPS = 60 / (2 * math.pi)
-PATCH = 48  # patch size [patch px] over normals -1..1
-_FINE_NORMAL_SIGMA = 0.025  # smoothing of the fine patches [normal units]
-_COARSE_NORMAL_SIGMA = 0.08
-_LOWPASS_NORMAL_SIGMA = 0.3  # removes what the shading model left (slow, fixed in the camera frame)
-_RHO_MAX = 0.82  # points used: up to 55 degrees from the view direction
+_MAX_TURN = math.radians(75)  # longest baseline used: the surfaces of both frames still overlap
 
 
 @dataclass(frozen=True)
@@ -119,117 +116,6 @@ class SurfaceSpin:
 
 def _f(x):
     return None if x is None or not math.isfinite(x) else float(x)
-
-
-def rotation_matrices(rotvecs) -> np.ndarray:
-    """Rodrigues' formula for a batch of rotation vectors (B, 3) -> (B, 3, 3)."""
-    r = np.asarray(rotvecs, float).reshape(-1, 3)
-    th = np.linalg.norm(r, axis=1)
-    k = r / np.where(th > 1e-12, th, 1.0)[:, None]
-    K = np.zeros((len(r), 3, 3))
-    K[:, 0, 1], K[:, 0, 2], K[:, 1, 2] = -k[:, 2], k[:, 1], -k[:, 0]
-    K[:, 1, 0], K[:, 2, 0], K[:, 2, 1] = k[:, 2], -k[:, 1], k[:, 0]
-    s, c = np.sin(th)[:, None, None], (1 - np.cos(th))[:, None, None]
-    return np.eye(3) + s * K + c * (K @ K)
-
-
-def _smooth(T, valid, sigma):
-    m = valid.astype(np.float32)
-    num = cv2.GaussianBlur(T * m, (0, 0), sigma)
-    den = cv2.GaussianBlur(m, (0, 0), sigma)
-    return np.where(den > 1e-3, num / np.maximum(den, 1e-3), 0.0).astype(np.float32)
-
-
-class SurfaceFrame:
-    """One frame's band-passed surface at two scales, its sample points and its view rotation."""
-
-    def __init__(self, image, disc: BallDisc, camera, t):
-        self.t, self.disc = t, disc
-        T, valid = surface_patch(image, disc, PATCH, camera)
-        px = 2.0 / PATCH  # normal units per patch pixel
-        fine_sigma = max(_FINE_NORMAL_SIGMA / px, 0.5 / (disc.radius_px * px), 0.6)
-        low = _smooth(T, valid, _LOWPASS_NORMAL_SIGMA / px)
-        self.fine = _smooth(T, valid, fine_sigma) - low
-        self.coarse = _smooth(T, valid, _COARSE_NORMAL_SIGMA / px) - low
-        self.valid = cv2.erode(valid.astype(np.uint8), np.ones((3, 3), np.uint8)).astype(np.float32)
-        g = (np.arange(PATCH) + 0.5) / PATCH * 2 - 1
-        gx, gy = np.meshgrid(g, g)
-        use = (gx ** 2 + gy ** 2 < _RHO_MAX ** 2) & (self.valid > 0)
-        self.n_view = np.stack([gx[use], gy[use], -np.sqrt(1 - gx[use] ** 2 - gy[use] ** 2)], 1)
-        self.idx = np.nonzero(use)
-        self.V = view_rotation(disc, camera)
-        band = self.fine[use]
-        self.texture = float(np.std(band)) if band.size else 0.0
-        self.n_cam = self.n_view @ self.V  # V^T n
-
-    def values(self, level, sel):
-        img = self.fine if level == "fine" else self.coarse
-        return img[self.idx][sel]
-
-
-def _pair_scores(fa: SurfaceFrame, fb: SurfaceFrame, R, level: str, sel) -> np.ndarray:
-    """NCC (B,) of frame a's surface at points ``sel`` against frame b's at R n, for rotations R (B, 3, 3),
-    and the number of points seen in both (0 where too few to compare; the NCC is then -1)."""
-    n = fa.n_cam[sel]
-    m = np.matmul(fb.V @ R, n.T)  # (B, 3, M) in b's view frame
-    j = ((m[:, 0] + 1) * 0.5 * PATCH - 0.5).astype(np.float32)
-    i = ((m[:, 1] + 1) * 0.5 * PATCH - 0.5).astype(np.float32)
-    img = fb.fine if level == "fine" else fb.coarse
-    vb = cv2.remap(img, j, i, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=0)
-    ok = cv2.remap(fb.valid, j, i, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=0)
-    w = ((ok > 0.999) & (m[:, 2] < -0.45)).astype(np.float64)
-    va = fa.values(level, sel)[None, :].astype(np.float64)
-    nw = w.sum(1)
-    safe = np.maximum(nw, 1)
-    ma, mb = (w * va).sum(1) / safe, (w * vb).sum(1) / safe
-    da, db = (va - ma[:, None]) * w, (vb - mb[:, None]) * w
-    den = np.sqrt((da * da).sum(1) * (db * db).sum(1))
-    ncc = np.where(den > 0, (da * db).sum(1) / np.maximum(den, 1e-12), -1.0)
-    enough = nw >= max(25, 0.25 * len(n))
-    return np.where(enough, ncc, -1.0), np.where(enough, nw, 0.0)
-
-
-def _joint_scores(frames, pairs, omegas, level, sels, chunk=4000):
-    """NCC over ``pairs`` (weighted by the overlap; pairs that do not overlap left out) for constant spins
-    ``omegas`` (B, 3) [rad/s]."""
-    out = np.zeros(len(omegas))
-    for s in range(0, len(omegas), chunk):
-        om = omegas[s:s + chunk]
-        acc, wsum = np.zeros(len(om)), np.zeros(len(om))
-        for (a, b), sel in zip(pairs, sels):
-            R = rotation_matrices(om * (frames[b].t - frames[a].t))
-            ncc, nw = _pair_scores(frames[a], frames[b], R, level, sel)
-            acc += ncc * nw
-            wsum += nw
-        out[s:s + chunk] = np.where(wsum > 0, acc / np.maximum(wsum, 1e-9), -1.0)
-    return out
-
-
-def _local_grid(score, centre, steps):
-    """Shrinking 5x5x5 grid search around ``centre`` (3,); ``score`` maps (B, 3) -> (B,)."""
-    o = np.arange(-2, 3)
-    grid = np.stack(np.meshgrid(o, o, o, indexing="ij"), -1).reshape(-1, 3).astype(float)
-    best, val = np.asarray(centre, float), -np.inf
-    for h in steps:
-        cand = best + h * grid
-        sc = score(cand)
-        i = int(np.argmax(sc))
-        best, val = cand[i], float(sc[i])
-    return best, val
-
-
-def _sel(frame, n_max, rng):
-    n = len(frame.n_view)
-    return np.sort(rng.choice(n, n_max, replace=False)) if n > n_max else np.arange(n)
-
-
-def _unwrap(R, phi_pred):
-    """Rotation vector of R closest to the predicted one (R's angle plus whole turns)."""
-    v = rotation_vector(R)
-    th = np.linalg.norm(v)
-    a = v / th if th > 1e-12 else (phi_pred / max(np.linalg.norm(phi_pred), 1e-12))
-    opts = [a * (th + 2 * math.pi * k) for k in (-1, 0, 1)]
-    return min(opts, key=lambda x: np.linalg.norm(x - phi_pred))
 
 
 def _no(reason, **kw) -> SurfaceSpin:
@@ -319,12 +205,12 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
     # 1. coarse: every turn per frame up to phi_max, smoothed surfaces, a few gap-1 pairs
     g1 = [p for p in pairs if p[1] - p[0] == 1]
     g1c = [g1[i] for i in np.unique(np.linspace(0, len(g1) - 1, min(4, len(g1))).round().astype(int))]
-    sels_c = [_sel(fr[a], 160, rng) for a, _ in g1c]
+    sels_c = [subsample(fr[a], 160, rng) for a, _ in g1c]
     h = 0.14
     ax = np.arange(-phi_max, phi_max + 1e-9, h)
     grid = np.stack(np.meshgrid(ax, ax, ax, indexing="ij"), -1).reshape(-1, 3)
     grid = grid[np.linalg.norm(grid, axis=1) <= phi_max]
-    sc = _joint_scores(fr, g1c, grid / dt1, "coarse", sels_c)
+    sc = joint_scores(fr, g1c, grid / dt1, "coarse", sels_c)
     order = np.argsort(-sc)
     cands = []
     for i in order:
@@ -333,46 +219,62 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
         if len(cands) == 5:
             break
     # 2. refine the best candidates on all gaps at once
-    sels = [_sel(fr[a], 400, rng) for a, _ in pairs]
+    sels = [subsample(fr[a], 400, rng) for a, _ in pairs]
     best, best_val = None, -np.inf
     for i in cands:
-        w, v = _local_grid(lambda om: _joint_scores(fr, pairs, om, "coarse", sels), grid[i] / dt1,
+        w, v = local_grid(lambda om: joint_scores(fr, pairs, om, "coarse", sels), grid[i] / dt1,
                            np.array([h / 2.5, h / 6]) / dt1)
         if v > best_val:
             best, best_val = w, v
-    omega0, _ = _local_grid(lambda om: _joint_scores(fr, pairs, om, "fine", sels), best,
+    omega0, _ = local_grid(lambda om: joint_scores(fr, pairs, om, "fine", sels), best,
                             np.array([0.03, 0.012, 0.005, 0.002]) / dt1)
-    # 3. every pair that overlaps on its own, from the joint spin
-    est, gaps, nccs, mids = [], [], [], []
-    for (a, b), sel in zip(pairs, sels):
+    # 3. longer baselines (every pair turning less than _MAX_TURN): joint refinement, then each pair alone
+    rate0 = float(np.linalg.norm(omega0))
+    g_long = int(max(1, min(ok[-1] - ok[0], math.floor(_MAX_TURN / max(rate0 * dt1, 1e-9)))))
+    use_gaps = set(range(1, max_gap + 1)) | {g_long, (g_long + 1) // 2}
+    longp = [(a, b) for i, a in enumerate(ok) for b in ok[i + 1:] if b - a in use_gaps]
+    sels_l = [subsample(fr[a], 400, rng) for a, _ in longp]
+    dt_long = max(times[b] - times[a] for a, b in longp)
+    omega0, _ = local_grid(lambda om: joint_scores(fr, longp, om, "fine", sels_l), omega0,
+                           np.array([0.012, 0.005, 0.002, 0.0008]) / dt_long)
+    est, used, nccs = [], [], []
+    for (a, b), sel in zip(longp, sels_l):
         dt = fr[b].t - fr[a].t
         phi_pred = omega0 * dt
         R0 = rotation_matrices(phi_pred)[0]
-        if _pair_scores(fr[a], fr[b], R0[None], "fine", sel)[1][0] == 0:
+        if pair_scores(fr[a], fr[b], R0[None], "fine", sel)[1][0] == 0:
             continue
-        delta, v = _local_grid(lambda d: _pair_scores(fr[a], fr[b], rotation_matrices(d) @ R0, "fine", sel)[0],
-                               np.zeros(3), [0.02, 0.008, 0.003, 0.0012])
-        R = rotation_matrices(delta)[0] @ R0
-        est.append(_unwrap(R, phi_pred) / dt)
-        gaps.append(b - a)
+        delta, v = local_grid(lambda d: pair_scores(fr[a], fr[b], rotation_matrices(d) @ R0, "fine", sel)[0],
+                              np.zeros(3), [0.02, 0.008, 0.003, 0.0012])
+        est.append(unwrap(rotation_matrices(delta)[0] @ R0, phi_pred))
+        used.append((a, b))
         nccs.append(v)
-        mids.append(0.5 * (fr[a].t + fr[b].t))
-    est, gaps, nccs, mids = np.array(est), np.array(gaps), np.array(nccs), np.array(mids)
-    base.update(n_pairs=len(est), match=float(np.mean(nccs)) if len(nccs) else math.nan)
-    omega, wts = _robust_mean(est, gaps.astype(float) ** 2)
-    one = gaps == 1
-    if one.sum() < 3:
-        return _no("too few consecutive frames to judge the spin's uncertainty", **base)
-    e1 = est[one]
-    w1 = wts[one] / max(wts[one].mean(), 1e-12)
-    d1 = e1 - (w1[:, None] * e1).sum(0) / w1.sum()
-    cov = (w1[:, None, None] * d1[:, :, None] * d1[:, None, :]).sum(0) / w1.sum() / (len(e1) - 1)
+    base.update(n_pairs=len(est), match=float(np.mean(nccs)) if nccs else math.nan)
+    if sum(1 for a, b in used if b - a == 1) < 3:
+        return _no("the ball turns too far between frames to compare its surface (or the surface did not match): "
+                   "film at a higher frame rate", **base)
+    # 4. one constant spin: per-frame orientations from the pairs, a straight line through them
+    omega, cov, x, tk = _orientation_line(used, np.array(est), omega0, times)
+    # the apparent radius is the scale of every turn: its frame-to-frame scatter scales the rate
+    radius_rel = float(np.std([discs[k].radius_px for k in ok], ddof=1)) / r_med
+    cov = cov + radius_rel ** 2 * np.outer(omega, omega)
+    # a common offset of the centre tilts the axis by about offset / radius: take the centres' scatter
+    # about a smooth track as that offset's size
+    tc = times[ok] - times[ok].mean()
+    C = np.array([discs[k].centre_px for k in ok])
+    A = np.stack([np.ones_like(tc), tc, tc ** 2], 1)
+    cres = C - A @ np.linalg.lstsq(A, C, rcond=None)[0]
+    centre_sd = math.sqrt(float((cres ** 2).sum()) / max(2 * (len(ok) - 3), 1))
+    a_hat = omega / max(np.linalg.norm(omega), 1e-12)
+    cov = cov + (centre_sd / r_med) ** 2 * float(omega @ omega) * (np.eye(3) - np.outer(a_hat, a_hat))
+    gaps = np.array([b - a for a, b in used])
+    per_pair = np.array(est) / np.array([times[b] - times[a] for a, b in used])[:, None]
     gap_info, worst = {}, 0.0
     for g in range(1, max_gap + 1):
         m = gaps == g
         if m.sum() >= 2:
-            om_g = est[m].mean(0)
-            s_g = np.cov(est[m].T) / m.sum() + cov
+            om_g = per_pair[m].mean(0)
+            s_g = np.cov(per_pair[m].T) / m.sum() + cov
             z = float(np.sqrt(max(0.0, (om_g - omega) @ np.linalg.pinv(s_g) @ (om_g - omega)) / 3))
             gap_info[str(g)] = {"rate_rpm": float(np.linalg.norm(om_g)) * RPM_PER_RADPS, "sigmas": z}
             worst = max(worst, z if np.linalg.norm(om_g - omega) > 0.02 * np.linalg.norm(omega) + 2.0 else 0.0)
@@ -393,8 +295,8 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
     if sig_rate > max(0.1 * rate, 5.0):
         return _no(f"the spin is too uncertain ({sig_rate * RPM_PER_RADPS:.0f} rpm)", **base)
     decay = decay_sig = None
-    if fit_decay:
-        decay, decay_sig = _decay(mids[one], np.linalg.norm(est[one], axis=1))
+    if fit_decay and rate > 0:
+        decay, decay_sig = _decay(tk, x @ (omega / rate), rate)
     frame = "camera"
     if camera is not None:
         Rc = camera.R
@@ -403,28 +305,60 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
                        decay_sigma_s=decay_sig, **base)
 
 
-def _robust_mean(x, w, c=2.0, iterations=10):
-    """Huber-weighted mean of vectors x (N, 3) with prior weights w (N,); returns (mean, final weights)."""
-    m = (w[:, None] * x).sum(0) / w.sum()
-    wf = w
+def _orientation_line(pairs, phis, omega0, times, c=2.0, iterations=8):
+    """Constant spin from pairwise turns.
+
+    Each pair (a, b) measured a turn phi_ab (rotation vector [rad]); with small per-frame orientation
+    errors e_k, phi_ab - omega0 dt_ab = x_b - x_a where x_k = d_omega t_k + e_k. The x_k are solved by
+    weighted least squares over the pair graph (Huber weights on the pair residuals, x of the first
+    frame fixed), then a straight line x_k = x_0 + d_omega t_k gives the spin correction, and the
+    scatter of the x_k about it (one orientation error per frame) its covariance.
+
+    Returns omega (3,) [rad/s], covariance (3, 3), the orientations x (N, 3) [rad] and their times (N,) [s].
+    """
+    frames = sorted({k for p in pairs for k in p})
+    col = {k: i for i, k in enumerate(frames)}
+    dts = np.array([times[b] - times[a] for a, b in pairs])
+    rho = phis - omega0[None] * dts[:, None]
+    D = np.zeros((len(pairs), len(frames)))
+    for r, (a, b) in enumerate(pairs):
+        D[r, col[b]], D[r, col[a]] = 1.0, -1.0
+    D = D[:, 1:]
+    w = np.ones(len(pairs))
     for _ in range(iterations):
-        e = np.linalg.norm(x - m, axis=1) * np.sqrt(w)
-        s = max(1.4826 * float(np.median(e)), 1e-9)
-        wf = w / np.maximum(1.0, e / (c * s))
-        m = (wf[:, None] * x).sum(0) / wf.sum()
-    return m, wf
-
-
-def _decay(t, rate):
-    """Decay time (and sigma) [s] from a straight-line fit of the rate against time (short windows)."""
-    if len(t) < 4 or np.ptp(t) <= 0:
-        return None, None
+        sw = np.sqrt(w)[:, None]
+        x = np.vstack([np.zeros(3), np.linalg.lstsq(D * sw, rho * sw, rcond=None)[0]])
+        e = np.linalg.norm(rho - D @ x[1:], axis=1)
+        s = max(1.4826 * float(np.median(e)), 1e-6)
+        w = 1.0 / np.maximum(1.0, e / (c * s))
+    t = np.array([times[k] for k in frames])
     A = np.stack([np.ones_like(t), t - t.mean()], 1)
-    coef, res, *_ = np.linalg.lstsq(A, rate, rcond=None)
-    s2 = float(((rate - A @ coef) ** 2).sum()) / (len(t) - 2)
-    cov = s2 * np.linalg.inv(A.T @ A)
-    slope, sig = float(coef[1]), math.sqrt(cov[1, 1])
-    if slope >= 0 or abs(slope) < 2 * sig:
+    coef = np.linalg.lstsq(A, x, rcond=None)[0]
+    res = x - A @ coef
+    n = len(t)
+    cov = (res.T @ res) / max(n - 2, 1) / float(((t - t.mean()) ** 2).sum())
+    # orientation errors of neighbouring frames are alike when the surface hardly moves between them:
+    # inflate by the AR(1) factor (1 + r1) / (1 - r1) of the residuals' lag-1 correlation (Bartlett 1946)
+    if n > 4:
+        r1 = float((res[1:] * res[:-1]).sum() / max((res * res).sum(), 1e-300))
+        r1 = min(max(r1, 0.0), 0.9)
+        cov = cov * (1 + r1) / (1 - r1)
+    return omega0 + coef[1], cov, x + omega0[None] * t[:, None], t
+
+
+def _decay(t, angle, rate):
+    """Decay time (and sigma) [s] from a quadratic fit of the turned angle [rad] against time [s]:
+    angle = c + w (t - tm) + q (t - tm)^2, so rate = w - (t - tm) w / tau with tau = -w / (2 q)."""
+    if len(t) < 5:
         return None, None
-    tau = -float(coef[0]) / slope
-    return tau, tau * sig / abs(slope)
+    tm = t.mean()
+    A = np.stack([np.ones_like(t), t - tm, (t - tm) ** 2], 1)
+    coef = np.linalg.lstsq(A, angle, rcond=None)[0]
+    s2 = float(((angle - A @ coef) ** 2).sum()) / max(len(t) - 3, 1)
+    cov = s2 * np.linalg.inv(A.T @ A)
+    w, q = float(coef[1]), float(coef[2])
+    sq = math.sqrt(cov[2, 2])
+    if q >= 0 or abs(q) < 2 * sq:
+        return None, None
+    tau = -w / (2 * q)
+    return tau, tau * sq / abs(q)
