@@ -125,7 +125,8 @@ def rough_ball(image, noise=None):
     return cent[i].astype(float), math.sqrt(stats[i, cv2.CC_STAT_AREA] / math.pi)
 
 
-def fit_ball_disc(image, centre_guess, radius_guess, blur_guess=(0.0, 0.0), start: BallDisc | None = None) -> BallDisc:
+def fit_ball_disc(image, centre_guess, radius_guess, blur_guess=(0.0, 0.0), start: BallDisc | None = None,
+                  fix_blur: bool = False) -> BallDisc:
     """Fit the shaded, blurred sphere model to the ball near a guess.
 
     Parameters
@@ -138,6 +139,10 @@ def fit_ball_disc(image, centre_guess, radius_guess, blur_guess=(0.0, 0.0), star
         Expected blur vector (velocity times exposure), if known.
     start : BallDisc, optional
         A fit of a neighbouring frame: its radius, blur, edge width and light start this fit.
+    fix_blur : bool
+        Keep the blur vector and edge width at their start values (``start``, else ``blur_guess`` and
+        0.6 px): in a short window every frame has the same blur, and a fit with fewer free shapes is
+        not pulled by a seam at the limb.
 
     Returns
     -------
@@ -180,13 +185,24 @@ def fit_ball_disc(image, centre_guess, radius_guess, blur_guess=(0.0, 0.0), star
     hi = [c0[0] + r0, c0[1] + r0, 1.6 * r0, 3 * r0, 3 * r0, 3.0, 0.5 * math.pi * 1.2, 4 * math.pi]
     p = np.clip(p, lo, hi)
     steps = np.array([0.02, 0.02, 0.02, 0.05, 0.05, 0.01, 0.005, 0.005])
+    free = np.array([True, True, True, not fix_blur, not fix_blur, not fix_blur, True, True])
+    lo, hi = np.array(lo), np.array(hi)
+
+    def resid_free(q):
+        full = p.copy()
+        full[free] = q
+        return resid(full)[0]
+
     try:
-        for _ in range(3):  # iteratively reweighted (Huber) Levenberg-Marquardt
-            p = _levenberg_marquardt(lambda q: resid(q)[0], p, np.array(lo), np.array(hi), steps)
+        for it in range(3):  # iteratively reweighted Levenberg-Marquardt: Huber, then Tukey's biweight
+            p[free] = _levenberg_marquardt(resid_free, p[free], lo[free], hi[free], steps[free])
             res, coef = resid(p)
             raw = res / np.sqrt(wts)
             scale = max(0.5, 1.4826 * float(np.median(np.abs(raw))))
-            wts = 1.0 / np.maximum(1.0, np.abs(raw) / (2.0 * scale))
+            if it == 0:
+                wts = 1.0 / np.maximum(1.0, np.abs(raw) / (2.0 * scale))
+            else:
+                wts = np.clip(1 - (raw / (4.685 * scale)) ** 2, 0, None) ** 2 + 1e-6
     except np.linalg.LinAlgError as exc:
         return _failed(fail, f"disc fit failed ({exc})")
     A = _design(X, p)

@@ -31,7 +31,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..camera.model import Camera
-from .surface_ball import fit_ball_disc, rough_ball
+from .surface_ball import BallDisc, fit_ball_disc, rough_ball
 from .surface_register import (SurfaceFrame, joint_scores, local_grid, pair_scores, rotation_matrices, subsample,
                                unwrap)
 
@@ -183,6 +183,17 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
         discs.append(d if d.ok else None)
         if d.ok:
             prev, prev_rough = d, c
+    good = [d for d in discs if d is not None]
+    if len(good) >= 3:
+        # one blur and edge width for the window (median, signs aligned), then every frame again with them
+        b = np.array([d.blur_px for d in good])
+        b = b * np.where(b @ b[int(np.argmax(np.linalg.norm(b, axis=1)))] < 0, -1.0, 1.0)[:, None]
+        bm, em = np.median(b, axis=0), float(np.median([d.edge_px for d in good]))
+        for k, d in enumerate(discs):
+            if d is not None:
+                st = BallDisc(d.centre_px, d.radius_px, bm, em, d.shading, d.light, d.background, d.noise)
+                d2 = fit_ball_disc(frames[k], d.centre_px, d.radius_px, bm, start=st, fix_blur=True)
+                discs[k] = d2 if d2.ok else None
     ok = [k for k, d in enumerate(discs) if d is not None]
     kept = tuple(d for d in discs if d is not None)
     if len(ok) < 4:
