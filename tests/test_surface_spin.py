@@ -123,7 +123,8 @@ def test_fusion_invariants():
         ts = np.array(sharp["spin_vector_radps"])
         assert np.allclose(ts - (ts @ vhat) * vhat, wf, atol=1e-3)
         # a transverse spin far off in sigmas is a disagreement, and the surface vector stands alone
-        off = fuse_spin(ws, Cs, wf + 40 * np.cross(vhat, rng.normal(size=3)), Cf, v)
+        kick = np.cross(vhat, rng.normal(size=3))
+        off = fuse_spin(ws, Cs, wf + 300 * kick / np.linalg.norm(kick), Cf, v)
         assert not off["agreement"]["agrees"]
         assert np.allclose(off["spin_vector_radps"], ws)
         assert off["agreement"]["difference_sigmas"] > 3
