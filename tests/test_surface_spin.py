@@ -6,13 +6,12 @@ import numpy as np
 import pytest
 
 from surface_render import SpinScene, render_spin_clip
-from balltraj.vision.surface_ball import fit_ball_disc, rough_ball
 from balltraj.vision.surface_fusion import fuse_spin
 from balltraj.vision.surface_spin import RPM_PER_RADPS, estimate_surface_spin
 
 
 def _scene(**kw):
-    base = dict(radius_px=12.0, image_size=(120, 60), fps=240.0, n_frames=7, exposure_s=1 / 4000, noise=2.0,
+    base = dict(radius_px=12.0, image_size=(120, 60), fps=240.0, n_frames=7, exposure_s=1 / 8000, noise=2.0,
                 subframes=3, supersample=2, seed=3)
     base.update(kw)
     return SpinScene(**base)

@@ -36,6 +36,7 @@ from .surface_register import (SurfaceFrame, joint_scores, local_grid, pair_scor
                                unwrap)
 
 RPM_PER_RADPS = 60 / (2 * math.pi)
+_MAX_SMEAR = 0.3  # largest motion blur read, in radii (beyond it the smear biases the turn; bench_surface_spin)
 _MAX_TURN = math.radians(75)  # longest baseline used: the surfaces of both frames still overlap
 
 
@@ -203,6 +204,10 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
     if r_med < min_radius_px:
         return _no(f"the ball is too small in the image (radius {r_med:.1f} px, need {min_radius_px:g} px): "
                    "film closer or zoom in", **base)
+    smear = float(np.median([np.hypot(*discs[k].blur_px) for k in ok]))
+    if smear > _MAX_SMEAR * r_med:
+        return _no(f"the ball moves {smear:.1f} px ({100 * smear / r_med:.0f} % of its radius) during the exposure, "
+                   "which smears its markings: use a shorter shutter", **base)
     fr = {k: SurfaceFrame(frames[k], discs[k], camera, times[k]) for k in ok}
     noise_rel = float(np.median([discs[k].noise / max(discs[k].shading.sum(), 1.0) for k in ok]))
     texture = float(np.median([fr[k].texture for k in ok]))
@@ -238,16 +243,26 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
         if v > best_val:
             best, best_val = w, v
     omega0, _ = local_grid(lambda om: joint_scores(fr, pairs, om, "fine", sels), best,
-                            np.array([0.03, 0.012, 0.005, 0.002]) / dt1)
+                            np.array([0.06, 0.025, 0.01, 0.004, 0.0016]) / dt1)
     # 3. longer baselines (every pair turning less than _MAX_TURN): joint refinement, then each pair alone
     rate0 = float(np.linalg.norm(omega0))
+    if rate0 * (times[ok[-1]] - times[ok[0]]) > 1.5:
+        # what stays put in the camera frame while the ball turns (shading the model left, the smear of the
+        # motion blur, the limb) pulls matches towards no turn: remove the median over the frames
+        for f in fr.values():
+            f.fine = np.where(f.valid > 0, f.fine, np.nan)
+        stack = np.stack([f.fine for f in fr.values()])
+        stack[:, np.all(np.isnan(stack), axis=0)] = 0.0
+        static = np.nanmedian(stack, axis=0)
+        for f in fr.values():
+            f.fine = np.nan_to_num(f.fine - static).astype(np.float32)
     g_long = int(max(1, min(ok[-1] - ok[0], math.floor(_MAX_TURN / max(rate0 * dt1, 1e-9)))))
     use_gaps = set(range(1, max_gap + 1)) | {g_long, (g_long + 1) // 2}
     longp = [(a, b) for i, a in enumerate(ok) for b in ok[i + 1:] if b - a in use_gaps]
     sels_l = [subsample(fr[a], 400, rng) for a, _ in longp]
     dt_long = max(times[b] - times[a] for a, b in longp)
     omega0, _ = local_grid(lambda om: joint_scores(fr, longp, om, "fine", sels_l), omega0,
-                           np.array([0.012, 0.005, 0.002, 0.0008]) / dt_long)
+                           np.array([0.03, 0.012, 0.005, 0.002, 0.0008]) / dt_long)
     est, used, nccs = [], [], []
     for (a, b), sel in zip(longp, sels_l):
         dt = fr[b].t - fr[a].t
@@ -256,7 +271,7 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
         if pair_scores(fr[a], fr[b], R0[None], "fine", sel)[1][0] == 0:
             continue
         delta, v = local_grid(lambda d: pair_scores(fr[a], fr[b], rotation_matrices(d) @ R0, "fine", sel)[0],
-                              np.zeros(3), [0.02, 0.008, 0.003, 0.0012])
+                              np.zeros(3), [0.03, 0.012, 0.005, 0.002, 0.0008])
         est.append(unwrap(rotation_matrices(delta)[0] @ R0, phi_pred))
         used.append((a, b))
         nccs.append(v)
