@@ -23,7 +23,7 @@ def _axis_error_deg(a, b):
 
 def test_recovers_a_known_spin_from_a_rendered_clip():
     spin = np.array([40.0, -170.0, 70.0])  # about 1800 rpm; truth from the renderer
-    frames, truth = render_spin_clip(_scene(spin=tuple(spin)))
+    frames, truth = render_spin_clip(_scene(spin=tuple(spin), n_frames=10))  # a 40 ms window
     res = estimate_surface_spin(list(frames), truth["t"])
     assert res.readable, res.reason
     # targets of issue 18 at >= 240 fps and >= 10 px radius: rate within 3 %, axis within 5 degrees
