@@ -281,6 +281,13 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
                    "film at a higher frame rate", **base)
     # 4. one constant spin: per-frame orientations from the pairs, a straight line through them
     omega, cov, x, tk = _orientation_line(used, np.array(est), omega0, times)
+    # a second estimate of the same error: the scatter of the consecutive-frame spins over their number;
+    # the larger is kept (the line fit alone misses errors that neighbouring frames share)
+    dts_used = np.array([times[b] - times[a] for a, b in used])
+    p1 = (np.array(est) / dts_used[:, None])[np.array([b - a for a, b in used]) == 1]
+    cov_pairs = np.cov(p1.T) / len(p1)
+    if np.trace(cov_pairs) > np.trace(cov):
+        cov = cov_pairs
     # the apparent radius is the scale of every turn: its frame-to-frame scatter scales the rate
     radius_rel = float(np.std([discs[k].radius_px for k in ok], ddof=1)) / r_med
     cov = cov + radius_rel ** 2 * np.outer(omega, omega)
