@@ -18,7 +18,7 @@ from ..errors import InputError
 # Templates whose frame points against the usual direction of play would be turned half a turn
 # about the vertical through their origin, (x, y, z) -> (-x, -y, z), so the ball moves along +x as
 # the flight contract wants (the deflection is taken at a plane x = X ahead of the launch). Every
-# template's frame now has x toward the target (tests/test_templates.py), so none is turned by
+# template's frame now has x toward the target (tests/camera/test_templates.py), so none is turned by
 # default; the page's checkbox still turns a frame for play in the other direction.
 TOWARD_ORIGIN: set[str] = set()
 HALF_TURN = np.diag([-1.0, -1.0, 1.0])

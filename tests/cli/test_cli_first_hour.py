@@ -19,7 +19,7 @@ from balltraj.record.words import transverse_share
 
 from synth import make_track, write_track
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 runner = CliRunner()
 SIM = ["simulate", "--ball", "baseball", "--position", "0,0,1.8", "--elevation", "-1", "--spin-rpm", "2300",
        "--spin-axis", "0,-1,0", "--target-x", "60.5ft"]

@@ -10,7 +10,7 @@ import pytest
 
 from synth import make_track, write_track
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def run(*args, cwd=None):

@@ -14,7 +14,7 @@ from balltraj.cli import app
 from balltraj.errors import InputError
 from balltraj.library.store import SCHEMA_VERSION, open_library
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 CLIP = ROOT / "sample_clips" / "pitch-side.mp4"
 CAM = ROOT / "calibration" / "pitch-side.json"
 runner = CliRunner()

@@ -9,7 +9,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 CLIP = ROOT / "sample_clips" / "pitch-side.mp4"
 CAM = ROOT / "calibration" / "pitch-side.json"
 

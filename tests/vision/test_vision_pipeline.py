@@ -18,7 +18,7 @@ from balltraj.vision.clip import read_frames
 from balltraj.vision.pipeline import track_clip
 from balltraj.vision.render import Scene, render_clip
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 runner = CliRunner()
 CAM = look_at_camera("side", [9.0, -12.0, 1.4], [9.0, 0.0, 1.3], 520, (640, 360))
 

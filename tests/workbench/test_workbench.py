@@ -22,7 +22,7 @@ from starlette.testclient import TestClient  # noqa: E402
 
 from balltraj.workbench import create_app  # noqa: E402
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 CLIP = "free-kick-behind.mp4"
 TRUTH = json.loads((ROOT / "sample_clips" / "free-kick-behind.truth.json").read_text())
 TRUE_CAM = read_cameras(ROOT / TRUTH["camera"])[0]
