@@ -11,8 +11,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..physics.aero import lift_coefficient
-from .ladder import RUNG_SOURCES, RUNGS, information_criteria, rung_names
+from .ladder import RUNG_PARENT, RUNG_SOURCES, RUNGS, information_criteria, rung_chain, rung_names
 from .misfit import hac_covariance, misfit_summary
+
+
+CONTINUATION_NFEV = 60
 
 
 @dataclass
@@ -65,31 +68,47 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
     is :func:`.flight_fit.solve`; cols = residual columns per point, data_cols = how many of them
     are the measured coordinates (metres or pixels); noise_sigma = the model-free noise (same unit).
     """
+
+
+    crit_name = options.criterion if options.criterion in ("bic", "aicc") else "bic"
     target = options.aero_model
     if options.legacy:
         ladder: tuple = ("catalogue",)
     elif target == "auto":
         ladder = RUNGS
     else:
-        ladder = ("catalogue",) if target == "catalogue" else ("catalogue", target)
+        ladder = rung_chain(target)
     done = []  # (rung, prob, res, crit, misfit)
+    by_rung = {}
+    # a rung continued from its parent starts near its optimum: a far smaller budget suffices, and a
+    # rung that needs more is nearly degenerate (it is recorded, but not chosen)
+    from dataclasses import replace as _replace
+
+    cont = _replace(options, max_nfev=min(options.max_nfev, CONTINUATION_NFEV))
     nfev = 0
+    screened = {}
     for rung in ladder:
+        if target == "auto" and RUNG_PARENT[rung] == SIBLING_PARENT:
+            if not screened:
+                screened = _screen(new_problem, by_rung[SIBLING_PARENT], ladder, crit_name)
+            if not screened.get(rung, True):
+                continue  # the score test says this freedom cannot lower the criterion
         prob = new_problem(() if options.legacy else rung_names(rung))
         if not done:
             res = solve(prob, p0, options, estimate_sigma, **solve_kw)
         else:
-            _, prev, prev_res = done[-1][:3]
+            _, prev, prev_res = by_rung[RUNG_PARENT[rung]][:3]
             prob.sigma, prob.mask = prev.sigma.copy(), prev.mask.copy()
             prob.back_s = prev.back_s
-            res = solve(prob, _extend(prev_res.p, prev, prob), options, False, robust=False, **solve_kw)
+            res = solve(prob, _extend(prev_res.p, prev, prob), cont, False, robust=False, **solve_kw)
             prev_rss = float(prev_res.residuals @ prev_res.residuals)
-            if not res.success or float(res.residuals @ res.residuals) > prev_rss * (1 + 1e-6):
-                # a second start: the simpler rung's solution with the new unknowns at typical values
+            budget = res.message.startswith("stopped") and "maximum number" in res.message
+            if not budget and (not res.success or float(res.residuals @ res.residuals) > prev_rss * (1 + 1e-6)):
+                # a second start: the parent's solution with the new unknowns at typical values
                 p_alt = _extend(prev_res.p, prev, prob)
                 k0 = prev.n_phys
                 p_alt[k0:prob.n_phys] += 0.5 * prob.typical[k0:prob.n_phys]
-                alt = solve(prob, p_alt, options, False, robust=False, **solve_kw)
+                alt = solve(prob, p_alt, cont, False, robust=False, **solve_kw)
                 nfev += alt.nfev
                 if alt.success and float(alt.residuals @ alt.residuals) < float(res.residuals @ res.residuals):
                     res = alt
@@ -99,11 +118,12 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
         data_r, _, _ = _data_residuals(prob, res, cols, data_cols)
         mis = misfit_summary(data_r, noise_sigma, len(res.p), noise_source)
         done.append((rung, prob, res, crit, mis))
-        if target == "auto" and res.success and not mis["structured"] and not mis["too_large"]:
-            break  # consistent with the noise: no richer rung is needed
-    crit_name = options.criterion if options.criterion in ("bic", "aicc") else "bic"
+        by_rung[rung] = done[-1]
     ok = [d for d in done if d[2].success] or done
     best = min(ok, key=lambda d: d[3][crit_name])
+    if target != "auto" and by_rung.get(target, (None, None, None))[2] is not None:
+        best = by_rung[target]  # pinned: the user's rung (the simpler ones only gave it a start)
+        ok = [best]
     rung, prob, res, crit, mis = best
     # --- covariance: Jacobian x residual variance, widened by the HAC sandwich and the rungs' spread
     cov = res.covariance
@@ -114,11 +134,11 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
         hac, lag = hac_covariance(J_pts, r_pts, res.jacobian[n_pts:], res.residuals[n_pts:])
         d_std = np.diag(cov)
         ratio = np.diag(hac) / np.where(d_std > 0, d_std, np.inf)
-        f = float(np.median(ratio[np.isfinite(ratio)])) if np.isfinite(ratio).any() else 1.0
-        if f > 1.0:
-            cov = cov * f
-            method += (f"; widened x{f:.2f} in variance by the autocorrelation-consistent (Newey-West, "
-                       f"Bartlett lag {lag}) sandwich")
+        f = np.sqrt(np.where(np.isfinite(ratio), np.maximum(ratio, 1.0), 1.0))
+        if np.any(f > 1.0):
+            cov = cov * np.outer(f, f)
+            method += (f"; widened (up to x{f.max() ** 2:.2f} in variance) where the autocorrelation-consistent "
+                       f"(Newey-West, Bartlett lag {lag}) sandwich is larger")
         cov = cov + _rung_spread(best, ok, crit_name)
         if len(ok) > 1:
             method += f"; plus the spread between rungs weighted by {crit_name.upper()}"
@@ -139,6 +159,37 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
     }
     choice["reason"] = _reason(choice, done, target, crit_name)
     return Climbed(prob, res, rung, cov, method, choice, mis, warnings, nfev)
+
+
+SIBLING_PARENT = "drag_speed"
+
+
+def _screen(new_problem, parent, ladder, crit_name) -> dict:
+    """Which sibling rungs are worth solving: a Rao score test. At the parent's solution, one
+    Gauss-Newton step with each rung's added columns predicts its residual sum of squares; a rung
+    whose predicted criterion is not below the parent's is skipped. All added columns come from
+    one batched Jacobian."""
+    _, prev, prev_res = parent[:3]
+    sibs = [r for r in ladder if RUNG_PARENT.get(r) == SIBLING_PARENT]
+    names = list(prev.rung)
+    for r in sibs:
+        names += [n for n in rung_names(r) if n not in names]
+    prob = new_problem(tuple(names))
+    prob.sigma, prob.mask, prob.back_s = prev.sigma.copy(), prev.mask.copy(), prev.back_s
+    p = _extend(prev_res.p, prev, prob)
+    r = prob.fun(p)
+    J = prob.jacobian(p)
+    base = list(range(prev.n_phys)) + list(range(prob.n_phys, len(p)))
+    n = r.size
+    out = {}
+    for rung in sibs:
+        cols = base + [prob.names.index(x) for x in rung_names(rung) if x not in prev.rung]
+        Js = J[:, cols]
+        step, *_ = np.linalg.lstsq(Js, -r, rcond=None)
+        rss = float(np.sum((r + Js @ step) ** 2))
+        crit = information_criteria(rss, n, len(cols))[crit_name]
+        out[rung] = bool(crit < parent[3][crit_name])
+    return out
 
 
 def _rung_spread(best, ok, crit_name) -> np.ndarray:

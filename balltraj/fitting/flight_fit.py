@@ -260,7 +260,8 @@ class SolveResult:
 
 
 def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_points: int = 5,
-          sigma_floor: float = 0.0, tight: bool = False, robust: bool | None = None) -> SolveResult:
+          sigma_floor: float = 0.0, tight: bool = False, robust: bool | None = None,
+          restarts: int = 3) -> SolveResult:
     """Robust pass, outlier flags, final least-squares pass and scaled covariance.
 
     ``robust`` False skips the robust pass and keeps the problem's current outlier mask (a rung
@@ -289,7 +290,7 @@ def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_poi
         prob.mask = ~outliers
     # image fits have long flat valleys (depth against lift): there the default tolerances stop early
     tol = dict(ftol=1e-11, xtol=1e-10, gtol=1e-11) if tight else {}
-    for _ in range(3):  # a budget stop on a still-improving fit continues from where it stopped
+    for _ in range(restarts if robust is None else 1):  # a budget stop on a still-improving fit continues from where it stopped
         sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
                             max_nfev=options.max_nfev, **tol)
         nfev += sol.nfev

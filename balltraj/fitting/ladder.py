@@ -3,7 +3,8 @@
 Real balls are not the catalogue's ball (seams, wear, panels; coefficients that change with speed
 and spin), so the fit starts from the ball's catalogue laws and adds, one rung at a time, the
 freedoms published trajectory studies use. Every rung keeps the unknowns of the rungs below it
-(nested models), so each continues from the simpler rung's solution.
+(nested models), so each continues from the simpler rung's solution; the last four are siblings,
+each one freedom on top of drag_speed (see RUNG_PARENT).
 
 =============  ======================  ==========================================================
 rung           adds unknown(s)         form (source)
@@ -69,10 +70,26 @@ def check_rung(name: str) -> str:
     raise InputError(f"unknown aerodynamic model {name!r}", hint=f"choose auto or one of: {', '.join(RUNGS)}")
 
 
+# Each rung continues from its parent. The first three form a chain; the last four each add one
+# freedom to "drag_speed" (siblings): added on top of each other they are nearly degenerate along
+# one flight (spin-dependent drag, lift shape and spin decay all change the force as the ball slows),
+# which makes the fits slow and the choice arbitrary.
+RUNG_PARENT = {"catalogue": None, "drag_scale": "catalogue", "drag_speed": "drag_scale", "drag_spin": "drag_speed",
+               "lift_shape": "drag_speed", "spin_decay": "drag_speed", "wind": "drag_speed"}
+
+
+def rung_chain(rung: str) -> tuple[str, ...]:
+    """The rungs from the catalogue up to ``rung``, parent first."""
+    out = [rung]
+    while RUNG_PARENT[out[-1]] is not None:
+        out.append(RUNG_PARENT[out[-1]])
+    return tuple(reversed(out))
+
+
 def rung_names(rung: str) -> tuple[str, ...]:
-    """Unknowns added by ``rung`` and every rung below it, in ladder order."""
+    """Unknowns added by ``rung`` and by the rungs it continues from, in ladder order."""
     out: list[str] = []
-    for r in RUNGS[:RUNGS.index(rung) + 1]:
+    for r in rung_chain(rung):
         out += RUNG_ADDS[r]
     return tuple(out)
 

@@ -130,4 +130,5 @@ def lift_power_about(spin_parameter, reynolds=None, *, base="sawicki2003", base_
     S = np.abs(np.asarray(spin_parameter, dtype=float))
     s_ref = np.maximum(np.asarray(reference_s, dtype=float), 1e-9)
     c_ref = lift_coefficient(s_ref, reynolds, model=base, **dict(base_params or {}))
-    return c_ref * (S / s_ref) ** exponent
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(S > 0, c_ref * (S / s_ref) ** exponent, 0.0)
