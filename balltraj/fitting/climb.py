@@ -16,6 +16,7 @@ from .misfit import hac_covariance, misfit_summary
 
 
 CONTINUATION_NFEV = 60
+PARSIMONY = 2.0
 
 
 @dataclass
@@ -120,7 +121,10 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
         done.append((rung, prob, res, crit, mis))
         by_rung[rung] = done[-1]
     ok = [d for d in done if d[2].success] or done
-    best = min(ok, key=lambda d: d[3][crit_name])
+    low = min(d[3][crit_name] for d in ok)
+    # parsimony: the rung with the fewest unknowns among those within PARSIMONY of the lowest
+    # criterion (such models have "substantial support", Burnham & Anderson 2002, sec. 2.6)
+    best = min((d for d in ok if d[3][crit_name] <= low + PARSIMONY), key=lambda d: (len(d[2].p), d[3][crit_name]))
     if target != "auto" and by_rung.get(target, (None, None, None))[2] is not None:
         best = by_rung[target]  # pinned: the user's rung (the simpler ones only gave it a start)
         ok = [best]
@@ -154,7 +158,8 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
         "source": RUNG_SOURCES.get(rung, ""), "noise_sigma": noise_sigma, "noise_source": noise_source,
         "rungs": [{"rung": d[0], "unknowns": list(d[1].rung), "n_unknowns": len(d[2].p), "bic": d[3]["bic"],
                    "aicc": d[3]["aicc"], "rms_residual": d[4]["rms_residual"], "misfit_ratio": d[4]["misfit_ratio"],
-                   "runs_z": d[4]["runs_z"], "converged": bool(d[2].success), "message": d[2].message}
+                   "runs_z": d[4]["runs_z"], "converged": bool(d[2].success), "message": d[2].message,
+                   "launch_speed_mps": float(np.linalg.norm(d[2].p[3:6]))}
                   for d in done],
     }
     choice["reason"] = _reason(choice, done, target, crit_name)
@@ -215,13 +220,14 @@ def _reason(choice, done, target, crit_name) -> str:
     if choice["pinned"]:
         return "pinned by the user"
     rows = choice["rungs"]
-    best = min((r for r in rows if r["converged"]), key=lambda r: r[crit_name], default=rows[0])
+    best = next(r for r in rows if r["rung"] == choice["chosen"])
     last = rows[-1]
     if len(rows) < len(RUNGS) and last["rung"] == best["rung"]:
         return (f"{best['rung']}: the first rung whose residuals are consistent with the noise "
                 f"({last['misfit_ratio']:.2f}x, runs z {last['runs_z']:.1f}); richer rungs not needed")
-    return (f"{best['rung']}: lowest {crit_name.upper()} of the {len(rows)} rungs tried "
-            f"(residuals {best['misfit_ratio']:.2f}x the noise)")
+    low = min(r[crit_name] for r in rows if r["converged"]) if any(r["converged"] for r in rows) else math.nan
+    return (f"{best['rung']}: the simplest of the {len(rows)} rungs tried within {PARSIMONY:g} of the lowest "
+            f"{crit_name.upper()} ({best[crit_name] - low:+.1f}); residuals {best['misfit_ratio']:.2f}x the noise")
 
 
 def misfit_noise(sigma_user, noise_model_free: float) -> tuple[float, str]:

@@ -291,8 +291,9 @@ def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_poi
     # image fits have long flat valleys (depth against lift): there the default tolerances stop early
     tol = dict(ftol=1e-11, xtol=1e-10, gtol=1e-11) if tight else {}
     for _ in range(restarts if robust is None else 1):  # a budget stop on a still-improving fit continues from where it stopped
-        sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
-                            max_nfev=options.max_nfev, **tol)
+        with np.errstate(all="ignore"):  # wild trial steps of a rung's shape unknowns may overflow
+            sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
+                                max_nfev=options.max_nfev, **tol)
         nfev += sol.nfev
         p = sol.x
         if sol.status != 0:

@@ -26,8 +26,10 @@ spin_decay     spin_decay_rate         omega(t) = omega_0 exp(-t/tau), rate 1/ta
 wind           wind_x, wind_y          a constant horizontal wind (common practice)
 =============  ======================  ==========================================================
 
-The rung is chosen by the Bayesian information criterion (Schwarz 1978) on the Gaussian
-likelihood with the noise level profiled out: BIC = n ln(RSS / n) + k ln n. Pure computation.
+The rung is chosen by an information criterion on the Gaussian likelihood with the noise level
+profiled out: AICc = n ln(RSS / n) + 2k + 2k(k + 1)/(n - k - 1) by default (Hurvich & Tsai 1989),
+which suits a set of models none of which is exactly true (Burnham & Anderson 2002), or
+BIC = n ln(RSS / n) + k ln n (Schwarz 1978). Pure computation.
 """
 
 from __future__ import annotations

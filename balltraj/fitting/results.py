@@ -40,7 +40,7 @@ class FitOptions:
     max_nfev: int = 400
     aero_model: str = "auto"
     wind_mps: tuple[float, float, float] | None = None
-    criterion: str = "bic"
+    criterion: str = "aicc"  # or "bic"; AICc suits a model set that never holds the true law (Burnham & Anderson 2002)
 
     @property
     def legacy(self) -> bool:
