@@ -175,3 +175,25 @@ def test_a_soccer_kick_fitted_as_a_baseball_names_the_wrong_ball():
     assert issues and any("wrong ball" in m for _, m in issues)
     right = flight_plausibility(fit_flight(truth["model"], t, xyz), truth["ball"])
     assert not any(s in ("impossible", "warning") for s, _ in right)
+
+
+def test_a_wrong_camera_file_is_named():
+    from balltraj.camera.model import look_at_camera
+    from balltraj.fitting.image_fit import fit_flight_image
+    from balltraj.fitting.results import ImageFit
+
+    side = look_at_camera("side", [9, -12, 1.5], [9, 0, 1.4], 1400, (1280, 720))
+    behind = look_at_camera("behind", [-3, 0.8, 2.6], [18, 0, 1.0], 1400, (1280, 720))
+    # the behind camera's file says it stands 1.5 m further left and has a longer lens than it does
+    wrong = look_at_camera("behind", [-3, 2.3, 2.6], [18, 0, 1.0], 1700, (1280, 720))
+    t, xyz, truth = make_track("baseball", noise_m=0.0, seed=2)
+    rng = np.random.default_rng(2)
+    uv = np.concatenate([cam.project(xyz) + rng.normal(0, 0.5, (len(t), 2)) for cam in (side, behind)])
+    names = ["side"] * len(t) + ["behind"] * len(t)
+    tt = np.concatenate([t, t])
+    good = fit_flight_image(truth["model"], tt, names, uv, [side, behind], fit_offsets=False)
+    bad = fit_flight_image(truth["model"], tt, names, uv, [side, wrong], fit_offsets=False)
+    assert isinstance(bad, ImageFit) and bad.residuals.shape == (2 * len(t), 2) and bad.residual_unit == "px"
+    assert good.misfit["fits"]
+    issues = flight_plausibility(bad, truth["ball"])
+    assert not bad.misfit["fits"] and any("camera file" in m for _, m in issues)

@@ -74,6 +74,7 @@ class FlightFit:
     undetermined: tuple[str, ...] = ()
     fitted_xyz: np.ndarray | None = None  # (N, 3) fitted positions at the observation times [m]
     model: FlightModel | None = None  # the chosen rung's model with its fitted values
+    base_model: FlightModel | None = None  # the catalogue model the ladder started from (with the wind)
     rung: str = "catalogue"
     spin_decay_s: float = math.inf
     model_choice: dict = field(default_factory=dict)
