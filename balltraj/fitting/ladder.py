@@ -3,7 +3,7 @@
 Real balls are not the catalogue's ball (seams, wear, panels; coefficients that change with speed
 and spin), so the fit starts from the ball's catalogue laws and adds, one rung at a time, the
 freedoms published trajectory studies use. Every rung keeps the unknowns of the rungs below it
-(nested models), so each continues from the simpler rung's solution; the last four are siblings,
+(nested models), so each continues from the simpler rung's solution; the last five are siblings,
 each one freedom on top of drag_speed (see RUNG_PARENT).
 
 =============  ======================  ==========================================================
@@ -15,6 +15,8 @@ drag_scale     log_drag_scale          C_D = k C_D,cat: one fitted drag coeffici
 drag_speed     drag_re_exponent        C_D = k C_D,cat (Re/Re_0)^a: a local power law in Re, the
                                        usual description of speed-dependent drag (common practice;
                                        cf. the speed-dependent baseball drag of Giordano & Nakanishi)
+drag_crisis    log_re_shift            C_D,cat(e^c Re): the catalogue curve slid along Re, as
+                                       roughness moves a drag crisis (Achenbach 1974, from memory)
 drag_spin      drag_spin_slope         + b S: drag rising with spin (Stepanek 1988; the linear spin
                                        term of baseball trajectory models, from memory)
 lift_shape     lift_exponent           C_L = C_L,cat(S_0) (S/S_0)^p: a free-shape lift curve with two
@@ -42,22 +44,24 @@ import numpy as np
 from ..errors import InputError
 from ..physics.flight import FlightModel
 
-RUNGS = ("catalogue", "drag_scale", "drag_speed", "drag_spin", "lift_shape", "spin_decay", "wind")
+RUNGS = ("catalogue", "drag_scale", "drag_speed", "drag_crisis", "drag_spin", "lift_shape", "spin_decay", "wind")
 RUNG_ADDS = {
     "catalogue": (),
     "drag_scale": ("log_drag_scale",),
     "drag_speed": ("drag_re_exponent",),
+    "drag_crisis": ("log_re_shift",),
     "drag_spin": ("drag_spin_slope",),
     "lift_shape": ("lift_exponent",),
     "spin_decay": ("spin_decay_rate",),
     "wind": ("wind_x", "wind_y"),
 }
-TYPICAL = {"log_drag_scale": 0.1, "drag_re_exponent": 0.1, "drag_spin_slope": 0.1, "lift_exponent": 0.3,
+TYPICAL = {"log_re_shift": 0.1, "log_drag_scale": 0.1, "drag_re_exponent": 0.1, "drag_spin_slope": 0.1, "lift_exponent": 0.3,
            "spin_decay_rate": 0.05, "wind_x": 1.0, "wind_y": 1.0}
 RUNG_SOURCES = {
     "catalogue": "the ball's catalogue laws",
     "drag_scale": "fitted drag scale (Nathan 2008; Kagan & Nathan 2014)",
     "drag_speed": "drag as a power law in Re (common practice; Giordano & Nakanishi 2006 speed-dependent drag)",
+    "drag_crisis": "the catalogue drag curve slid along Re (roughness moves the crisis; Achenbach 1974)",
     "drag_spin": "drag rising linearly with the spin parameter (Stepanek 1988; baseball trajectory models)",
     "lift_shape": "free-shape lift C_L(S0)(S/S0)^p: linear, saturating or power law (Nathan 2008; Stepanek 1988)",
     "spin_decay": "exponential spin decay (Smits & Smith 1994; Nathan 2008 spin-down note)",
@@ -72,11 +76,12 @@ def check_rung(name: str) -> str:
     raise InputError(f"unknown aerodynamic model {name!r}", hint=f"choose auto or one of: {', '.join(RUNGS)}")
 
 
-# Each rung continues from its parent. The first three form a chain; the last four each add one
+# Each rung continues from its parent. The first three form a chain; the last five each add one
 # freedom to "drag_speed" (siblings): added on top of each other they are nearly degenerate along
 # one flight (spin-dependent drag, lift shape and spin decay all change the force as the ball slows),
 # which makes the fits slow and the choice arbitrary.
-RUNG_PARENT = {"catalogue": None, "drag_scale": "catalogue", "drag_speed": "drag_scale", "drag_spin": "drag_speed",
+RUNG_PARENT = {"catalogue": None, "drag_scale": "catalogue", "drag_speed": "drag_scale", "drag_crisis": "drag_speed",
+               "drag_spin": "drag_speed",
                "lift_shape": "drag_speed", "spin_decay": "drag_speed", "wind": "drag_speed"}
 
 
@@ -114,12 +119,13 @@ def batch_model(base: FlightModel, names, values, launch_speed, spin_magnitude) 
     if not col:
         return base
     changes = {}
-    if "drag_re_exponent" in col or "drag_spin_slope" in col:
+    if "drag_re_exponent" in col or "drag_spin_slope" in col or "log_re_shift" in col:
         re0 = base.air_density * base.diameter_m / base.air_viscosity * np.asarray(launch_speed, float)
         changes["drag_model"] = "modified"
         changes["drag_params"] = {"base": base.drag_model, "base_params": dict(base.drag_params), "scale": 1.0,
                                   "re_exponent": col.get("drag_re_exponent", 0.0), "reference_re": re0,
-                                  "spin_slope": col.get("drag_spin_slope", 0.0)}
+                                  "spin_slope": col.get("drag_spin_slope", 0.0),
+                                  "re_shift": np.exp(col["log_re_shift"]) if "log_re_shift" in col else 1.0}
     if "lift_exponent" in col:
         s0 = base.radius_m * np.asarray(spin_magnitude, float) / np.maximum(np.asarray(launch_speed, float), 1e-6)
         changes["lift_model"] = "power_about"

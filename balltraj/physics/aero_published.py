@@ -97,10 +97,14 @@ def drag_spin_linear(reynolds, spin_parameter=0.0, *, value=0.30, spin_slope=0.3
 
 
 def drag_modified(reynolds, spin_parameter=0.0, *, base="constant", base_params=None, scale=1.0,
-                  re_exponent=0.0, reference_re=1.5e5, spin_slope=0.0):
+                  re_exponent=0.0, reference_re=1.5e5, spin_slope=0.0, re_shift=1.0):
     """A base drag law modified the way the fit's ladder does (common modelling forms):
 
-    C_D = scale * C_D,base(Re, S) * (Re / Re_ref)^re_exponent + spin_slope * S.
+    C_D = scale * C_D,base(re_shift Re, S) * (Re / Re_ref)^re_exponent + spin_slope * S.
+
+    ``re_shift`` slides the base curve along Re: surface roughness moves the drag crisis to other
+    Reynolds numbers without changing its shape much (Achenbach 1974, J. Fluid Mech. 65:113; from
+    memory).
 
     A power law in Re is the usual local description of drag that varies with speed; the linear
     spin term is that of :func:`drag_spin_linear`. ``scale``, ``re_exponent`` and ``spin_slope``
@@ -109,7 +113,7 @@ def drag_modified(reynolds, spin_parameter=0.0, *, base="constant", base_params=
     from .aero import drag_coefficient
 
     Re = np.asarray(reynolds, dtype=float)
-    cd = drag_coefficient(Re, spin_parameter, model=base, **dict(base_params or {}))
+    cd = drag_coefficient(Re * re_shift, spin_parameter, model=base, **dict(base_params or {}))
     ratio = np.maximum(Re, 1.0) / reference_re
     return scale * cd * ratio**re_exponent + spin_slope * np.abs(np.asarray(spin_parameter, dtype=float))
 
