@@ -38,6 +38,8 @@ def plain_fit(model, t, xyz, p0, rung):
         m = batch_model(model, names, vals, np.array([np.linalg.norm(p[3:6])]), np.array([np.hypot(p[6], p[7])]))
         sol = solve_ivp(lambda tt, y: np.concatenate([y[3:], acceleration(m, prm, 0.0, tt, y[None])[0]]),
                         (t[0], t[-1]), p[:6], method="DOP853", rtol=1e-8, atol=1e-10, t_eval=t)
+        if sol.y.shape[1] != len(t):  # a wild trial step the solver could not integrate
+            return np.full(xyz.size, 1e3)
         return (sol.y[:3].T - xyz).ravel()
 
     start = np.concatenate([p0, np.zeros(len(names))])
