@@ -221,13 +221,11 @@ def _reason(choice, done, target, crit_name) -> str:
         return "pinned by the user"
     rows = choice["rungs"]
     best = next(r for r in rows if r["rung"] == choice["chosen"])
-    last = rows[-1]
-    if len(rows) < len(RUNGS) and last["rung"] == best["rung"]:
-        return (f"{best['rung']}: the first rung whose residuals are consistent with the noise "
-                f"({last['misfit_ratio']:.2f}x, runs z {last['runs_z']:.1f}); richer rungs not needed")
     low = min(r[crit_name] for r in rows if r["converged"]) if any(r["converged"] for r in rows) else math.nan
-    return (f"{best['rung']}: the simplest of the {len(rows)} rungs tried within {PARSIMONY:g} of the lowest "
-            f"{crit_name.upper()} ({best[crit_name] - low:+.1f}); residuals {best['misfit_ratio']:.2f}x the noise")
+    skipped = len(RUNGS) - len(rows)
+    return (f"{best['rung']}: the simplest of the {len(rows)} rungs solved within {PARSIMONY:g} of the lowest "
+            f"{crit_name.upper()} ({best[crit_name] - low:+.1f}); residuals {best['misfit_ratio']:.2f}x the noise"
+            + (f"; {skipped} rung(s) skipped: the score test predicted no gain" if skipped else ""))
 
 
 def misfit_noise(sigma_user, noise_model_free: float) -> tuple[float, str]:

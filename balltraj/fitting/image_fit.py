@@ -12,6 +12,7 @@ perfectly, so every honest constraint is used: the ``start_near`` hint (three re
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
@@ -256,9 +257,17 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
                 return res0
             return solve(prob, p0, opts, estimate, **kw)
 
-    c = climb(new_problem, res0.p, options, solve=_Done(), estimate_sigma=False, noise_sigma=noise_sigma,
+    climb_opts = options
+    if options.aero_model == "auto" and not options.image_ladder:
+        climb_opts = replace(options, aero_model="catalogue")
+    c = climb(new_problem, res0.p, climb_opts, solve=_Done(), estimate_sigma=False, noise_sigma=noise_sigma,
               noise_source=noise_source, cols=ncol, data_cols=2,
               solve_kw=dict(min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR, tight=True))
+    if climb_opts is not options:
+        c.model_choice["pinned"] = False
+        c.model_choice["reason"] = ("image fit: the catalogue rung; in pixels the ladder is climbed only when asked "
+                                    "(FitOptions.image_ladder or a pinned rung), as depth trades off against the "
+                                    "aerodynamics")
     prob, res = c.prob, c.res
     p = res.p
     tr = prob.trajectories(p[None])

@@ -28,6 +28,9 @@ class FitOptions:
     fit_drag, free_lift : the older single-model options (a fitted drag scale; a free constant
         lift coefficient); either one pins the fit to that model and skips the ladder
     max_nfev : evaluation budget of each least-squares pass (far above what converging fits use)
+    image_ladder : let "auto" climb the ladder in image fits too (off by default: from one camera
+        the depth trades off against the aerodynamics, and richer rungs soak up depth error; the
+        image fit then stays on the catalogue rung unless a rung is pinned)
     """
 
     fit_drag: bool = False
@@ -40,6 +43,7 @@ class FitOptions:
     max_nfev: int = 400
     aero_model: str = "auto"
     wind_mps: tuple[float, float, float] | None = None
+    image_ladder: bool = False
     criterion: str = "aicc"  # or "bic"; AICc suits a model set that never holds the true law (Burnham & Anderson 2002)
 
     @property

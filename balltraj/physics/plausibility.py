@@ -104,12 +104,13 @@ def plausibility_issues(ball: Ball, *, speed_mps: float, spin_rpm: float | None 
     r = play_range(ball)
     title = ball.title.lower()
     # the units of the file: a track in feet shows gravity 3.28x too large
-    feet = free_fall_mps2 is not None and abs(free_fall_mps2 / (gravity / FOOT_M) - 1) < 0.25
+    # (lift and drag move a flight's mean downward acceleration away from g, so a wide band: 2.2-4.5 g)
+    feet = free_fall_mps2 is not None and 2.2 < free_fall_mps2 / gravity < 4.5
     if feet:
         issues.append(("impossible", f"the track falls at {free_fall_mps2:.1f} m/s^2, {free_fall_mps2 / gravity:.2f}x "
                        "gravity, as a track written in feet would: the file is likely in feet, not metres "
                        f"(speed would be {speed_mps * FOOT_M:.1f} m/s)"))
-    elif free_fall_mps2 is not None and not 0.5 * gravity < free_fall_mps2 < 2.0 * gravity:
+    elif free_fall_mps2 is not None and not 0.25 * gravity < free_fall_mps2 < 2.2 * gravity:
         issues.append(("warning", f"the track falls at {free_fall_mps2:.2f} m/s^2, far from gravity: check the units of "
                        "the file and the time column (a slow-motion export stretches time)"))
     if r is not None:
