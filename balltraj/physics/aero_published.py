@@ -100,7 +100,9 @@ def drag_modified(reynolds, spin_parameter=0.0, *, base="constant", base_params=
                   re_exponent=0.0, reference_re=1.5e5, spin_slope=0.0, re_shift=1.0):
     """A base drag law modified the way the fit's ladder does (common modelling forms):
 
-    C_D = scale * C_D,base(re_shift Re, S) * (Re / Re_ref)^re_exponent + spin_slope * S.
+    C_D = scale * C_D,base(re_shift Re, S) * (Re / Re_ref)^re_exponent + spin_slope * S,
+
+    with Re / Re_ref held within 0.5-2 (a local law; beyond it the factor stays constant).
 
     ``re_shift`` slides the base curve along Re: surface roughness moves the drag crisis to other
     Reynolds numbers without changing its shape much (Achenbach 1974, J. Fluid Mech. 65:113; from
@@ -114,7 +116,9 @@ def drag_modified(reynolds, spin_parameter=0.0, *, base="constant", base_params=
 
     Re = np.asarray(reynolds, dtype=float)
     cd = drag_coefficient(Re * re_shift, spin_parameter, model=base, **dict(base_params or {}))
-    ratio = np.maximum(Re, 1.0) / reference_re
+    # the power law is a local description: held constant beyond a factor 2 from Re_ref, so that a fitted
+    # exponent cannot make the drag blow up on a slower (e.g. no-spin reference) path
+    ratio = np.clip(np.maximum(Re, 1.0) / reference_re, 0.5, 2.0)
     return scale * cd * ratio**re_exponent + spin_slope * np.abs(np.asarray(spin_parameter, dtype=float))
 
 
