@@ -26,7 +26,7 @@ residual variance.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy.optimize import least_squares
@@ -34,67 +34,12 @@ from scipy.optimize import least_squares
 from ..errors import FitError
 from ..physics.flight import FlightModel, FlightParameters, Trajectory, integrate
 from .baseline import fit_constant_acceleration
+from .ladder import TYPICAL as RUNG_TYPICAL
+from .ladder import batch_model, decay_and_scale
+from .results import OUTLIER_THRESHOLD, FitOptions, FlightFit, TrackFit  # noqa: F401
 
-OUTLIER_THRESHOLD = 4.6  # sqrt(chi2_3 quantile 0.9999): residual norm in sigmas
 TYPICAL = np.array([1.0, 1.0, 1.0, 10.0, 10.0, 10.0, 10.0, 10.0])
-
-
-@dataclass(frozen=True)
-class FitOptions:
-    fit_drag: bool = False
-    free_lift: bool = False
-    robust: bool = True
-    outlier_threshold: float = OUTLIER_THRESHOLD
-    start_near: tuple[float, float, float] | None = None
-    start_sigma: float = 0.3
-    max_step: float = 0.04  # RK4 + Hermite sampling error stays below 1e-8 m on ball flights
-    max_nfev: int = 60
-
-
-@dataclass(frozen=True)
-class FlightFit:
-    """Result of a flight fit. ``success`` False carries the reason in ``message``."""
-
-    success: bool
-    message: str
-    names: tuple[str, ...]
-    params: np.ndarray
-    covariance: np.ndarray
-    t0: float
-    state0: np.ndarray  # (6,)
-    spin: np.ndarray  # (3,) transverse spin vector [rad/s] (model mode) or lift direction (free lift)
-    drag_scale: float
-    lift_override: float  # NaN unless free_lift
-    basis: np.ndarray  # (2, 3): e1, e2
-    t: np.ndarray
-    observed: np.ndarray  # (N, 3)
-    fitted: np.ndarray  # (N, 3)
-    residuals: np.ndarray  # (N, 3) observed - fitted [m]
-    sigma: np.ndarray  # (N,) per-point sigma used [m]
-    outliers: np.ndarray  # (N,) bool
-    residual_scale: float  # sqrt(chi2 / dof) of the final pass
-    nfev: int
-    options: FitOptions = field(default_factory=FitOptions)
-    undetermined: tuple[str, ...] = ()
-    fitted_xyz: np.ndarray | None = None  # (N, 3) fitted positions at the observation times [m]
-    residual_unit: str = "m"
-    extra: dict = field(default_factory=dict)  # e.g. time offsets, depth notes (image fits)
-
-    @property
-    def n_points(self) -> int:
-        return len(self.t)
-
-    @property
-    def n_outliers(self) -> int:
-        return int(self.outliers.sum())
-
-    @property
-    def rms_residual(self) -> float:
-        r = self.residuals[~self.outliers]
-        return float(np.sqrt(np.mean(np.sum(r**2, axis=1)))) if len(r) else math.nan
-
-    def sigmas(self) -> np.ndarray:
-        return np.sqrt(np.clip(np.diag(self.covariance), 0, None))
+FitOptions, FlightFit = FitOptions, FlightFit  # re-exported: callers import them from here
 
 
 def typical_scales(options: FitOptions) -> np.ndarray:
@@ -159,14 +104,19 @@ class _Problem:
     extra_names: tuple[str, ...] = ()
     extra_typical: tuple[float, ...] = ()
 
-    def __init__(self, model: FlightModel, t0: float, sigma, basis, options: FitOptions):
+    def __init__(self, model: FlightModel, t0: float, sigma, basis, options: FitOptions, rung: tuple = ()):
+        if options.wind_mps is not None:
+            model = replace(model, wind_mps=tuple(float(w) for w in options.wind_mps))
         self.model = model
         self.t0 = float(t0)
         self.sigma = np.asarray(sigma, dtype=float)
         self.basis = basis
         self.opt = options
-        self.names = tuple(physics_names(options)) + tuple(self.extra_names)
-        self.typical = np.concatenate([typical_scales(options), np.asarray(self.extra_typical, float)])
+        self.rung = tuple(rung)
+        self.n_base = len(physics_names(options))
+        self.names = tuple(physics_names(options)) + self.rung + tuple(self.extra_names)
+        self.typical = np.concatenate([typical_scales(options), [RUNG_TYPICAL[n] for n in self.rung],
+                                       np.asarray(self.extra_typical, float)])
         self.n_phys = len(self.names) - len(self.extra_names)
         self._mask = np.ones(len(self.sigma), bool)
         self._cache: dict = {}
@@ -204,12 +154,28 @@ class _Problem:
             self.back_s = min(2.0, 1.5 * dist / max(speed, 1.0) + 0.05)
 
     def unpack(self, P):
-        return unpack_params(P, self.basis, self.opt)
+        """States (B, 6) and FlightParameters of parameter sets P (B, k)."""
+        return self.unpack_full(P)[1:]
+
+    def unpack_full(self, P):
+        """(model, states, params) of parameter sets P (B, k): the model carries the rung's
+        per-set values as arrays."""
+        P = np.atleast_2d(P)
+        states, params = unpack_params(P, self.basis, self.opt)
+        if not self.rung:
+            return self.model, states, params
+        vals = P[:, self.n_base:self.n_phys]
+        tau, scale = decay_and_scale(self.rung, vals)
+        params = FlightParameters.make(P.shape[0], spin=params.spin, drag_scale=scale, spin_decay_s=tau)
+        w = np.asarray(self.model.wind_mps, float)
+        speed = np.linalg.norm(P[:, 3:6] - w, axis=1)
+        model = batch_model(self.model, self.rung, vals, speed, np.linalg.norm(P[:, 6:8], axis=1))
+        return model, states, params
 
     def trajectories(self, P) -> Trajectory:
-        states, params = self.unpack(P)
+        model, states, params = self.unpack_full(P)
         lo, hi = self.span(np.atleast_2d(P))
-        return integrate(self.model, self.t0, states, params, (min(lo, self.t0 - self.back_s), max(hi, self.t0)),
+        return integrate(model, self.t0, states, params, (min(lo, self.t0 - self.back_s), max(hi, self.t0)),
                          max_step=self.opt.max_step)
 
     def residuals(self, P) -> np.ndarray:
@@ -264,10 +230,10 @@ class _Problem:
 class _TrackProblem(_Problem):
     """Observed: 3D positions [m]."""
 
-    def __init__(self, model, t, xyz, sigma, basis, options):
+    def __init__(self, model, t, xyz, sigma, basis, options, rung=()):
         self.t = np.asarray(t, dtype=float)
         self.xyz = np.asarray(xyz, dtype=float)
-        super().__init__(model, self.t[0], sigma, basis, options)
+        super().__init__(model, self.t[0], sigma, basis, options, rung)
 
     def span(self, P):
         return float(self.t[0]), float(self.t[-1])
@@ -289,16 +255,22 @@ class SolveResult:
     message: str
     undetermined: tuple[str, ...]
     success: bool
+    jacobian: np.ndarray | None = None  # (M, k) at p (central differences), residuals in sigma units
+    residuals: np.ndarray | None = None  # (M,)
 
 
 def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_points: int = 5,
-          sigma_floor: float = 0.0, tight: bool = False) -> SolveResult:
-    """Robust pass, outlier flags, final least-squares pass and scaled covariance."""
+          sigma_floor: float = 0.0, tight: bool = False, robust: bool | None = None,
+          restarts: int = 3) -> SolveResult:
+    """Robust pass, outlier flags, final least-squares pass and scaled covariance.
+
+    ``robust`` False skips the robust pass and keeps the problem's current outlier mask (a rung
+    continued from a simpler rung's solution)."""
     n = len(prob.sigma)
     nfev = 0
     p = np.asarray(p0, dtype=float)
-    outliers = np.zeros(n, bool)
-    if options.robust:
+    outliers = ~prob.mask.copy()
+    if options.robust if robust is None else robust:
         sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="soft_l1", f_scale=2.0,
                             x_scale="jac", max_nfev=options.max_nfev)
         nfev += sol.nfev
@@ -318,10 +290,14 @@ def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_poi
         prob.mask = ~outliers
     # image fits have long flat valleys (depth against lift): there the default tolerances stop early
     tol = dict(ftol=1e-11, xtol=1e-10, gtol=1e-11) if tight else {}
-    sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
-                        max_nfev=options.max_nfev, **tol)
-    nfev += sol.nfev
-    p = sol.x
+    for _ in range(restarts if robust is None else 1):  # a budget stop on a still-improving fit continues from where it stopped
+        with np.errstate(all="ignore"):  # wild trial steps of a rung's shape unknowns may overflow
+            sol = least_squares(prob.fun, p, jac=prob.jacobian, method="trf", loss="linear", x_scale="jac",
+                                max_nfev=options.max_nfev, **tol)
+        nfev += sol.nfev
+        p = sol.x
+        if sol.status != 0:
+            break
     J = prob.jacobian(p, central=True)
     r = prob.fun(p)
     dof = max(1, r.size - len(p))
@@ -340,7 +316,7 @@ def solve(prob: _Problem, p0, options: FitOptions, estimate_sigma: bool, min_poi
         cov = np.full((len(p), len(p)), np.nan)
         message = "ill-conditioned: " + ", ".join(undetermined) + " is not determined by the data"
     success = bool(sol.success) and not undetermined and bool(np.all(np.isfinite(p)))
-    return SolveResult(p, cov, s2, outliers, nfev, message, tuple(undetermined), success)
+    return SolveResult(p, cov, s2, outliers, nfev, message, tuple(undetermined), success, J, r)
 
 
 def _start(t, xyz, sigma, model: FlightModel, options: FitOptions):
@@ -384,8 +360,23 @@ def _robust_sigma(res_norm_over_sigma) -> float:
     return float(np.median(res_norm_over_sigma) / 1.5382)
 
 
-def fit_flight(model: FlightModel, t, xyz, sigma=None, options: FitOptions = FitOptions()) -> FlightFit:
-    """Fit the flight model to a 3D track. Raises FitError when the data cannot support a fit."""
+def fit_flight(model: FlightModel, t, xyz, sigma=None, options: FitOptions = FitOptions()) -> TrackFit:
+    """Fit the flight model to a 3D track, climbing the aerodynamic ladder (see :mod:`.ladder`).
+
+    Parameters
+    ----------
+    model : the ball's catalogue flight model (air, ball, wind)
+    t : ndarray, shape (N,) [s]
+    xyz : ndarray, shape (N, 3) [m]
+    sigma : ndarray, shape (N,) [m] or None (estimated)
+
+    Raises FitError when the data cannot support a fit.
+    """
+    from .climb import climb, misfit_noise
+    from .ladder import check_rung
+    from .misfit import noise_estimate
+
+    check_rung(options.aero_model)
     t = np.asarray(t, dtype=float)
     xyz = np.asarray(xyz, dtype=float)
     n = len(t)
@@ -400,26 +391,58 @@ def fit_flight(model: FlightModel, t, xyz, sigma=None, options: FitOptions = Fit
     p0, basis, ca = _start(t, xyz, sig, model, options)
     if not np.all(np.isfinite(p0)):
         raise FitError("the track does not determine a start (are the positions all the same?)")
+    noise = noise_estimate(t, xyz)
     if not given_sigma:
-        # noise scale from the robust residuals of the start fit over its window (refined below)
+        # noise scale from the model-free estimate (or the start fit's residuals); refined below
         r = np.linalg.norm(ca.residuals[ca.inliers], axis=1)
-        sig = np.full(n, max(_robust_sigma(r), 1e-4))
-    prob = _TrackProblem(model, t, xyz, sig, basis, options)
-    prob.set_hint_span(float(np.linalg.norm(p0[3:6])))
-    res = solve(prob, p0, options, estimate_sigma=not given_sigma)
+        guess = noise if math.isfinite(noise) and noise > 0 else _robust_sigma(r)
+        sig = np.full(n, max(guess, 1e-4))
+    noise_sigma, noise_source = misfit_noise(sigma if given_sigma else None, noise)
+    speed0 = float(np.linalg.norm(p0[3:6]))
+
+    def new_problem(rung):
+        prob = _TrackProblem(model, t, xyz, sig, basis, options, rung)
+        prob.set_hint_span(speed0)
+        return prob
+
+    c = climb(new_problem, p0, options, solve=solve, estimate_sigma=not given_sigma, noise_sigma=noise_sigma,
+              noise_source=noise_source, cols=3, data_cols=3, solve_kw={})
+    prob, res = c.prob, c.res
     p = res.p
     fitted = prob.trajectories(p[None]).positions(t)[0]
-    states, params = prob.unpack(p[None])
-    return FlightFit(
-        success=res.success, message=res.message, names=prob.names, params=p, covariance=res.covariance,
+    return TrackFit(
+        observed=xyz, fitted=fitted, residuals=xyz - fitted, fitted_xyz=fitted,
+        **common_fields(prob, res, c, basis, t, options))
+
+
+def common_fields(prob, res, c, basis, t, options) -> dict:
+    """Result fields shared by track and image fits, from the chosen rung's solution."""
+    from .ladder import scalar_model
+
+    p = res.p
+    bmodel, states, params = prob.unpack_full(p[None])
+    tau = float(params.spin_decay_s[0])
+    fmodel = replace(scalar_model(bmodel), spin_decay_s=tau)
+    return dict(
+        success=res.success, message=res.message, names=prob.names, params=p, covariance=c.covariance,
         t0=prob.t0, state0=states[0], spin=params.spin[0], drag_scale=float(params.drag_scale[0]),
-        lift_override=float(params.lift_override[0]), basis=basis, t=t, observed=xyz, fitted=fitted,
-        residuals=xyz - fitted, sigma=prob.sigma.copy(), outliers=res.outliers,
-        residual_scale=math.sqrt(res.s2), nfev=res.nfev, options=options, undetermined=res.undetermined,
-        fitted_xyz=fitted,
-    )
+        lift_override=float(params.lift_override[0]), basis=basis, t=t, sigma=prob.sigma.copy(),
+        outliers=~prob.mask.copy(), residual_scale=math.sqrt(res.s2), nfev=c.nfev, options=options,
+        undetermined=res.undetermined, model=fmodel, base_model=prob.model, rung=c.rung, spin_decay_s=tau, model_choice=c.model_choice,
+        misfit=c.misfit, warnings=tuple(c.warnings), covariance_method=c.covariance_method)
 
 
 def batch_unpack(fit: FlightFit, model: FlightModel, P):
     """States and flight parameters for parameter sets P (B, k) in the layout of ``fit``."""
-    return unpack_params(P, fit.basis, fit.options)
+    return batch_flights(fit, model, P)[1:]
+
+
+def batch_flights(fit: FlightFit, model: FlightModel, P):
+    """(model, states, params) for parameter sets P (B, k) in the layout of ``fit``: the model
+    carries each set's rung values (drag and lift shape, wind) as arrays. ``model`` is the
+    catalogue model the fit started from (``fit.base_model`` is used when the fit carries it, so
+    passing ``fit.model`` is safe too)."""
+    rung = () if fit.options.legacy else tuple(n for n in fit.names if n in RUNG_TYPICAL)
+    base = fit.base_model if fit.base_model is not None else model
+    prob = _Problem(base, fit.t0, np.ones(1), fit.basis, replace(fit.options, wind_mps=None), rung)
+    return prob.unpack_full(np.atleast_2d(P))

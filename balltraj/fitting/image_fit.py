@@ -12,6 +12,7 @@ perfectly, so every honest constraint is used: the ``start_near`` hint (three re
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
@@ -19,7 +20,8 @@ from ..camera.model import Camera
 from ..camera.triangulate import triangulate_observations
 from ..errors import BallTrajError, FitError
 from ..physics.flight import FlightModel
-from .flight_fit import FitOptions, FlightFit, _Problem, _start, solve
+from .flight_fit import FitOptions, _Problem, _start, common_fields, solve
+from .results import ImageFit
 
 RADIUS_SIGMA_PX = 0.5  # floor of the apparent-radius noise [px] (common practice: sub-pixel edges)
 RADIUS_SIGMA_REL = 0.05  # and 5 % of the radius, per point
@@ -30,7 +32,7 @@ RADIUS_SCALE_SIGMA = 0.06  # a common scale error of all measured radii (blur, e
 
 class _ImageProblem(_Problem):
     def __init__(self, model, t, cam_idx, uv, radius, cameras: list[Camera], sigma_px, basis, options,
-                 fit_offsets: bool):
+                 fit_offsets: bool, rung=()):
         self.t_obs = np.asarray(t, float)
         self.cam_idx = np.asarray(cam_idx, int)
         self.uv = np.asarray(uv, float)
@@ -52,7 +54,7 @@ class _ImageProblem(_Problem):
         self.radius = np.asarray(radius, float) if self.use_radius else None
         self.R_ball = model.radius_m
         rig_t = self.t_obs + self.base_offset[self.cam_idx] + self.shutter
-        super().__init__(model, float(rig_t.min()), sigma_px, basis, options)
+        super().__init__(model, float(rig_t.min()), sigma_px, basis, options, rung)
         if self.radius is not None:
             r = np.where(np.isfinite(self.radius), self.radius, 0.0)
             self.radius_sigma = np.maximum(RADIUS_SIGMA_PX, RADIUS_SIGMA_REL * r)
@@ -165,8 +167,17 @@ def _pseudo_point_sets(t, cam_idx, uv, radius, cameras, model, hint):
 
 def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Camera], radius_px=None,
                      options: FitOptions = FitOptions(), sigma_px: float | None = None,
-                     fit_offsets: bool = True) -> FlightFit:
-    """Fit the flight model to pixel observations of one or more cameras."""
+                     fit_offsets: bool = True) -> ImageFit:
+    """Fit the flight model to pixel observations of one or more cameras.
+
+    Parameters
+    ----------
+    t : ndarray, shape (N,) [s]; camera_names : N names; uv : ndarray, shape (N, 2) [px]
+    cameras : the rig; radius_px : ndarray, shape (N,) [px] or None; sigma_px : pixel noise or None
+
+    The best start's catalogue solution climbs the aerodynamic ladder as in
+    :func:`.flight_fit.fit_flight` (``options.aero_model``).
+    """
     t = np.asarray(t, float)
     uv = np.asarray(uv, float)
     names = [c.name for c in cameras]
@@ -217,38 +228,73 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
             best = (score, prob, res, how)
     if best is None:
         raise FitError("no start could be found for the fit", hint="check the camera file, or give --start-near")
-    _, prob, res, how = best
+    _, prob0, res0, how = best
+    from .climb import climb, misfit_noise
+    from .misfit import noise_estimate
+
+    noise = float(np.nanmedian([noise_estimate(t[cam_idx == c], uv[cam_idx == c]) for c in range(len(cams))]))
+    noise_sigma, noise_source = misfit_noise([sigma_px] if given else None, noise)
+    if noise_source.startswith("local"):
+        noise_source = "local-cubic noise estimate of the pixel track"
+        noise_sigma = max(noise_sigma, PIXEL_SIGMA_FLOOR)
+    ncol = 3 if prob0.use_radius else 2
+
+    def new_problem(rung):
+        if not rung:
+            return prob0
+        prob = _ImageProblem(model, t, cam_idx, uv, radius, cams, prob0.sigma, prob0.basis, options, fit_offsets, rung)
+        prob._first_xyz = prob0._first_xyz
+        prob.back_s = prob0.back_s
+        return prob
+
+    class _Done:  # the catalogue rung is already solved: hand its result to the climb
+        def __init__(self):
+            self.first = True
+
+        def __call__(self, prob, p0, opts, estimate, **kw):
+            if self.first and prob is prob0:
+                self.first = False
+                return res0
+            return solve(prob, p0, opts, estimate, **kw)
+
+    climb_opts = options
+    if options.aero_model == "auto" and not options.image_ladder:
+        climb_opts = replace(options, aero_model="catalogue")
+    c = climb(new_problem, res0.p, climb_opts, solve=_Done(), estimate_sigma=False, noise_sigma=noise_sigma,
+              noise_source=noise_source, cols=ncol, data_cols=2,
+              solve_kw=dict(min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR, tight=True))
+    if climb_opts is not options:
+        c.model_choice["pinned"] = False
+        c.model_choice["reason"] = ("image fit: the catalogue rung; in pixels the ladder is climbed only when asked "
+                                    "(FitOptions.image_ladder or a pinned rung), as depth trades off against the "
+                                    "aerodynamics")
+    prob, res = c.prob, c.res
     p = res.p
     tr = prob.trajectories(p[None])
     pos = prob.positions(tr, p[None])[0]
     pred = np.zeros_like(uv)
-    for c, cam in enumerate(cams):
-        m = cam_idx == c
+    for c_, cam in enumerate(cams):
+        m = cam_idx == c_
         pred[m] = cam.project(pos[m])
-    states, params = prob.unpack(p[None])
-    extra = {"cameras": [c.name for c in cams], "start_from": how, "camera_index": cam_idx.tolist(),
-             "camera_objects": cams, "radius_px": radius}
+    states = prob.unpack(p[None])[0]
+    sig_p = np.sqrt(np.clip(np.diag(c.covariance), 0, None))
+    offsets = offset_sigma = None
     if prob.fit_offsets:
-        sig_p = np.sqrt(np.clip(np.diag(res.covariance), 0, None))
-        extra["time_offsets_s"] = {c.name: float(c.time_offset_s + (p[prob.n_phys + k - 1] if k else 0.0))
-                                   for k, c in enumerate(cams)}
-        extra["time_offset_sigma_s"] = {c.name: float(sig_p[prob.n_phys + k - 1]) if k else 0.0
-                                        for k, c in enumerate(cams)}
-    cov_pos = res.covariance[:3, :3]
+        offsets = {cm.name: float(cm.time_offset_s + (p[prob.n_phys + k - 1] if k else 0.0))
+                   for k, cm in enumerate(cams)}
+        offset_sigma = {cm.name: float(sig_p[prob.n_phys + k - 1]) if k else 0.0 for k, cm in enumerate(cams)}
+    cov_pos = c.covariance[:3, :3]
     depth_sigma = {}
     for cam in cams:
         d = states[0, :3] - cam.centre
         d /= np.linalg.norm(d)
         depth_sigma[cam.name] = float(math.sqrt(max(d @ cov_pos @ d, 0.0))) if np.all(np.isfinite(cov_pos)) else math.nan
-    extra["launch_depth_sigma_m"] = depth_sigma
-    return FlightFit(
-        success=res.success, message=res.message, names=prob.names, params=p, covariance=res.covariance,
-        t0=prob.t0, state0=states[0], spin=params.spin[0], drag_scale=float(params.drag_scale[0]),
-        lift_override=float(params.lift_override[0]), basis=prob.basis, t=t, observed=uv, fitted=pred,
-        residuals=uv - pred, sigma=prob.sigma.copy(), outliers=res.outliers,
-        residual_scale=math.sqrt(res.s2), nfev=res.nfev, options=options, undetermined=res.undetermined,
-        fitted_xyz=pos, residual_unit="px", extra=extra,
-    )
+    return ImageFit(
+        observed=uv, fitted=pred, residuals=uv - pred, fitted_xyz=pos,
+        cameras=tuple(cams), camera_index=cam_idx, start_from=how, time_offsets_s=offsets,
+        time_offset_sigma_s=offset_sigma, launch_depth_sigma_m=depth_sigma, radius_px=radius,
+        radius_scale=float(prob.radius_scale(p[None])[0]), radius_bias_px=float(prob.radius_bias(p[None])[0]),
+        **common_fields(prob, res, c, prob.basis, t, options))
 
 
 def _robust_cost(prob: "_ImageProblem", p) -> float:
@@ -262,7 +308,7 @@ def _robust_cost(prob: "_ImageProblem", p) -> float:
     return float(np.sum(2.0 * (np.sqrt(1.0 + r * r) - 1.0)))
 
 
-def constant_acceleration_image_fit(fit: FlightFit, cameras: list[Camera], model: FlightModel, radius_px=None):
+def constant_acceleration_image_fit(fit: ImageFit, cameras: list[Camera], model: FlightModel, radius_px=None):
     """The nine-parameter (constant-acceleration) baseline fitted in image space to the same
     inlier observations: r(t) = r0 + v0 dt + a dt^2 / 2 projected through the cameras, with the
     apparent radius and the start hint as in the full fit. Returns a ConstantAccelerationFit."""

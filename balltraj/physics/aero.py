@@ -15,6 +15,8 @@ from typing import Callable, Mapping
 import numpy as np
 
 from ..errors import InputError
+from .aero_published import (drag_giordano_baseball, drag_modified, drag_spin_linear, drag_stepanek1988,
+                             lift_power_about, lift_rational, lift_stepanek1988)
 
 
 @dataclass(frozen=True)
@@ -122,6 +124,16 @@ _DRAG: dict[str, AeroModel] = {
         AeroModel("crisis", "drag", drag_crisis, (1e3, 1e6), (0, np.inf),
                   ("subcritical", "supercritical", "critical_re", "width_re"),
                   "logistic drag crisis between stated coefficients (own interpolation of ranges)"),
+        AeroModel("giordano_baseball", "drag", drag_giordano_baseball, (1e4, 4e5), (0, np.inf),
+                  ("diameter_m", "mass_kg", "kinematic_viscosity", "air_density"),
+                  "Giordano & Nakanishi 2006 eq. 2.26 after Adair: speed-dependent baseball drag (from memory)"),
+        AeroModel("stepanek1988", "drag", drag_stepanek1988, (8e4, 3e5), (0, 1.0), (),
+                  "Stepanek 1988, Am. J. Phys. 56:138: tennis drag vs spin parameter (coefficients from memory)"),
+        AeroModel("spin_linear", "drag", drag_spin_linear, (0, np.inf), (0, 1.0), ("value", "spin_slope"),
+                  "C_D = C_D0 + slope*S, the linear spin term of baseball trajectory models (from memory)"),
+        AeroModel("modified", "drag", drag_modified, (0, np.inf), (0, np.inf),
+                  ("base", "base_params", "scale", "re_exponent", "reference_re", "spin_slope", "re_shift"),
+                  "a base law times a scale and a power of Re, plus a linear spin term (the fit's ladder)"),
     ]
 }
 _LIFT: dict[str, AeroModel] = {
@@ -135,6 +147,13 @@ _LIFT: dict[str, AeroModel] = {
                   "constant coefficient (common practice)"),
         AeroModel("ideal_cylinder", "lift", lift_ideal_cylinder, (0, np.inf), (0, 2.0), (),
                   "Kutta-Joukowski rotating cylinder, C_l = 2 pi S up to 4 pi (bound only)"),
+        AeroModel("stepanek1988", "lift", lift_stepanek1988, (8e4, 3e5), (0, 1.0), (),
+                  "Stepanek 1988, Am. J. Phys. 56:138: tennis lift, saturating (coefficients from memory)"),
+        AeroModel("rational", "lift", lift_rational, (0, np.inf), (0, np.inf), ("a", "b"),
+                  "C_L = S/(a + b S), the saturating form of Stepanek 1988"),
+        AeroModel("power_about", "lift", lift_power_about, (0, np.inf), (0, np.inf),
+                  ("base", "base_params", "reference_s", "exponent"),
+                  "a base law's C_L at S_ref times (S/S_ref)^exponent (the fit's ladder)"),
     ]
 }
 
@@ -159,6 +178,8 @@ def _check(kind: str, name: str, params: Mapping[str, float]) -> AeroModel:
         raise InputError(f"{kind} model {name!r} has no parameter(s) {', '.join(sorted(unknown))}",
                          hint=f"its parameters are: {', '.join(info.params) or 'none'}")
     for k, v in params.items():
+        if k in ("base", "base_params"):
+            continue
         if isinstance(v, bool) or not isinstance(v, (int, float)) or not np.isfinite(v):
             raise InputError(f"{kind} model parameter {k!r} must be a finite number")
     return info

@@ -15,7 +15,7 @@ stored derivatives), and plane crossings are refined on those polynomials.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Mapping
 
 import numpy as np
@@ -42,6 +42,7 @@ class FlightModel:
     drag_params: Mapping[str, float] = field(default_factory=lambda: {"value": 0.35})
     lift_model: str = "sawicki2003"
     lift_params: Mapping[str, float] = field(default_factory=dict)
+    spin_decay_s: float = math.inf  # used for flights whose FlightParameters give no decay [s]
 
     @classmethod
     def for_ball(
@@ -89,6 +90,22 @@ class FlightModel:
         const = self.drag_params.get("value") if self.drag_model == "constant" else None
         object.__setattr__(self, "_cd_const", None if const is None else float(const))
         object.__setattr__(self, "_k", self.air_density * math.pi * (0.5 * self.diameter_m) ** 2 / (2 * self.mass_kg))
+
+    def tiled(self, reps: int) -> "FlightModel":
+        """The same model for a batch repeated ``reps`` times: per-flight (array) parameters and
+        wind components are tiled to match."""
+        def tile(v):
+            if isinstance(v, np.ndarray) and v.ndim:
+                return np.tile(v, reps)
+            if isinstance(v, dict):
+                return {k: tile(x) for k, x in v.items()}
+            return v
+
+        if not any(isinstance(w, np.ndarray) for w in self.wind_mps) and not any(
+                isinstance(v, np.ndarray) for v in list(self.drag_params.values()) + list(self.lift_params.values())):
+            return self
+        return replace(self, wind_mps=tuple(tile(w) for w in self.wind_mps), drag_params=tile(dict(self.drag_params)),
+                       lift_params=tile(dict(self.lift_params)))
 
     def drag(self, reynolds, spin_parameter):
         if self._cd_const is not None:
@@ -152,8 +169,9 @@ def acceleration(model: FlightModel, params: FlightParameters, t0: float, t: flo
     speed = np.sqrt(vx * vx + vy * vy + vz * vz)
     inv = 1.0 / np.where(speed > 0, speed, 1.0)
     ux, uy, uz = vx * inv, vy * inv, vz * inv
-    if params.decays:
-        f = np.exp(-(t - t0) / params.spin_decay_s)
+    tau = params.spin_decay_s if params.decays else model.spin_decay_s
+    if params.decays or math.isfinite(model.spin_decay_s):
+        f = np.exp(-(t - t0) / tau)
         ox, oy, oz = params.spin[:, 0] * f, params.spin[:, 1] * f, params.spin[:, 2] * f
     else:
         ox, oy, oz = params.spin[:, 0], params.spin[:, 1], params.spin[:, 2]

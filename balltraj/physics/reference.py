@@ -60,7 +60,7 @@ def spin_and_reference(model: FlightModel, t0: float, state0, params: FlightPara
         lift_override=np.concatenate([params.lift_override, np.full(n, np.nan)]),
         spin_decay_s=np.concatenate([params.spin_decay_s, params.spin_decay_s]),
     )
-    tr = fly(model, t0, np.concatenate([s0, s0]), both, stop_x=target_x, ground_z=None,
+    tr = fly(model.tiled(2), t0, np.concatenate([s0, s0]), both, stop_x=target_x, ground_z=None,
              t_max=t_max, max_step=max_step)
     a = Trajectory(tr.t, tr.state[:n], tr.accel[:n])
     b = Trajectory(tr.t, tr.state[n:], tr.accel[n:])

@@ -32,7 +32,7 @@ def main():
             t, xyz, tr = make_track(ball, rate_hz=rate, noise_m=noise, seed=5000 + 1000 * case + s)
             X = tr["extent"]
             fit = fit_flight(tr["model"], t, xyz)
-            rec, _ = fit_record(fit, tr["ball"], tr["air"], tr["model"], target_x=X)
+            rec, _ = fit_record(fit, tr["ball"], tr["air"], fit.model, target_x=X)  # the chosen rung's model
             U = rec["uncertainty"]
             truth = plane_deflection(tr["model"], 0.0, tr["state0"], tr["params"], X, ground_z=None)
             sp, el, az = velocity_angles(tr["state0"][3:])

@@ -40,7 +40,7 @@ def one_case(ball, rate, noise, outl, gap, seed):
     t, xyz, tr = make_track(ball, rate_hz=rate, noise_m=noise, outlier_fraction=outl, gap=gap, seed=seed)
     X = tr["extent"]
     fit = fit_flight(tr["model"], t, xyz)
-    rec, _ = fit_record(fit, tr["ball"], tr["air"], tr["model"], target_x=X)
+    rec, _ = fit_record(fit, tr["ball"], tr["air"], fit.model, target_x=X)  # the chosen rung's model
     truth = plane_deflection(tr["model"], 0.0, tr["state0"], tr["params"], X, ground_z=None)
     s0 = tr["state0"]
     wp, _ = transverse_spin(tr["spin"], s0[3:])

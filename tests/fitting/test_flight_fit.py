@@ -25,7 +25,7 @@ def test_round_trip_every_ball(ball):
     t, xyz, truth = make_track(ball, noise_m=0.005, seed=3)
     fit = fit_flight(truth["model"], t, xyz)
     assert fit.success, fit.message
-    rec, d = fit_record(fit, truth["ball"], truth["air"], truth["model"], target_x=truth["extent"])
+    rec, d = fit_record(fit, truth["ball"], truth["air"], fit.model, target_x=truth["extent"])
     s0 = truth["state0"]
     sp_true = np.linalg.norm(s0[3:])
     assert rec["launch"]["speed_mps"] == pytest.approx(sp_true, rel=5e-3)
