@@ -27,6 +27,7 @@ from .camera.model import Camera
 from .errors import BallTrajError, InputError
 from .fitting.flight_fit import FitOptions, fit_flight
 from .fitting.image_fit import fit_flight_image
+from .fitting.ladder import check_rung
 from .formats import CameraObservations, Track
 from .physics.air import AirConditions
 from .physics.balls import Ball
@@ -59,6 +60,13 @@ class FitSettings:
         Also fit a scale on the ball's drag law.
     free_lift : bool
         Fit a free constant lift coefficient instead of the ball's lift law.
+    aero_model : str
+        "auto" (the data choose a rung of the aerodynamic ladder) or a rung name to pin it.
+    wind_mps : tuple of 3 floats or None
+        Constant wind [m/s] for the fit and the no-spin reference; None: still air.
+    force : bool
+        Keep a fit whose numbers are physically impossible for the ball (a warning instead of
+        an error).
     """
 
     ball: Ball
@@ -68,8 +76,12 @@ class FitSettings:
     start_sigma_m: float = 0.3
     fit_drag: bool = False
     free_lift: bool = False
+    aero_model: str = "auto"
+    wind_mps: tuple[float, float, float] | None = None
+    force: bool = False
 
     def __post_init__(self):
+        check_rung(self.aero_model)
         if not (math.isfinite(self.start_sigma_m) and self.start_sigma_m > 0):
             raise InputError(f"the start point's uncertainty must be a positive number of metres, "
                              f"got {self.start_sigma_m}")
@@ -83,7 +95,8 @@ class FitSettings:
     def options(self) -> FitOptions:
         return FitOptions(fit_drag=self.fit_drag, free_lift=self.free_lift,
                           start_near=None if self.start_near_m is None else tuple(map(float, self.start_near_m)),
-                          start_sigma=self.start_sigma_m)
+                          start_sigma=self.start_sigma_m, aero_model=self.aero_model,
+                          wind_mps=None if self.wind_mps is None else tuple(map(float, self.wind_mps)))
 
 
 @dataclass(frozen=True)
@@ -161,6 +174,7 @@ def fit_track(track: Track, settings: FitSettings) -> FlightResult:
                             source=track.path)
     except BallTrajError as e:
         raise e.with_path(track.path) from None
+    _refuse_impossible(rec, settings, track.path)
     rec["air_note"] = settings.air.source
     return FlightResult(rec, d)
 
@@ -190,8 +204,18 @@ def fit_observations(data: CameraObservations, settings: FitSettings) -> FlightR
                             source=obs.path)
     except BallTrajError as e:
         raise e.with_path(obs.path) from None
+    _refuse_impossible(rec, settings, obs.path)
     rec["air_note"] = settings.air.source
     return FlightResult(rec, d)
+
+
+def _refuse_impossible(rec: dict, settings: FitSettings, path: str) -> None:
+    """A fit whose numbers no ball of this kind can have (feet read as metres, the wrong ball) is
+    refused unless forced; a merely unusual one keeps its warning in the record."""
+    bad = [i["message"] for i in rec.get("plausibility", []) if i["severity"] == "impossible"]
+    if bad and not settings.force:
+        raise InputError(f"the fitted flight is impossible for a {settings.ball.title.lower()}: {bad[0]}", path=path,
+                         hint="check the units of the file, the ball and the camera; force to keep it", about="force")
 
 
 def fit_input(data: Track | CameraObservations, settings: FitSettings) -> FlightResult:

@@ -64,7 +64,8 @@ def vector(text: Optional[str], option: str, kind: str = "length"):
     return None if text is None else parse_vector(text, option)
 
 
-def fit_settings(ball, air, target_x, start_near, start_sigma, fit_drag=False, free_lift=False):
+def fit_settings(ball, air, target_x, start_near, start_sigma, fit_drag=False, free_lift=False, aero_model="auto",
+                 wind=None, force=False):
     """The fit settings from the options, every unit in SI."""
     from ..pipeline import FitSettings
 
@@ -72,7 +73,8 @@ def fit_settings(ball, air, target_x, start_near, start_sigma, fit_drag=False, f
         raise InputError(f"--start-sigma must be a positive number of metres, got {start_sigma}")
     return FitSettings(ball=ball, air=air, target_x_m=si(target_x, "length", "--target-x"),
                        start_near_m=vector(start_near, "--start-near"), start_sigma_m=start_sigma,
-                       fit_drag=fit_drag, free_lift=free_lift)
+                       fit_drag=fit_drag, free_lift=free_lift, aero_model=str(aero_model).strip().lower(),
+                       wind_mps=vector(wind, "--wind", kind="speed"), force=force)
 
 
 # options shared by several commands, declared once
@@ -88,3 +90,9 @@ StartSigmaOpt = Annotated[float, typer.Option("--start-sigma", help="How rough -
 CaptureFpsOpt = Annotated[Optional[float], typer.Option("--capture-fps", help="True capture rate of a slow-motion file stored time-stretched.")]
 UnitsOpt = Annotated[str, typer.Option("--units", help="metric or imperial (any case): the units numbers are "
                                         "printed in.")]
+AeroModelOpt = Annotated[str, typer.Option("--aero-model", metavar="RUNG", help="Aerodynamic model: auto (the data "
+                                           "choose a rung of the ladder, see docs/method.md) or a rung name to pin it.")]
+WindOpt = Annotated[Optional[str], typer.Option("--wind", metavar="VX,VY,VZ", help="Constant wind [m/s] (or 5mph,0,0) "
+                                                 "for the fit and the no-spin reference; default still air.")]
+ForceOpt = Annotated[bool, typer.Option("--force", help="Keep a fit whose numbers are impossible for the ball "
+                                        "(a warning instead of an error).")]

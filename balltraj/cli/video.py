@@ -8,7 +8,7 @@ from typing import List, Optional
 import typer
 
 from .app import _command, app
-from .options import (AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
+from .options import (AeroModelOpt, ForceOpt, WindOpt, AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
                       StartSigmaOpt, TemperatureOpt, UnitsOpt, air_options, ball_option, fit_settings,
                       units_option)
 
@@ -49,6 +49,9 @@ def analyze(
     altitude: AltitudeOpt = None,
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name, kept in the flight files."),
     session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight files."),
+    aero_model: AeroModelOpt = "auto",
+    wind: WindOpt = None,
+    force: ForceOpt = False,
     ball_file: BallFileOpt = None,
     units: UnitsOpt = "metric",
     out: Path = typer.Option(..., "-o", "--out", help="Folder for observations.csv, flight.json and report.html."),
@@ -57,7 +60,7 @@ def analyze(
     from ..commands.video import run_analyze
 
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),
-                         target_x, start_near, start_sigma)
+                         target_x, start_near, start_sigma, aero_model=aero_model, wind=wind, force=force)
     return run_analyze(clip=clip, camera=camera, settings=settings, capture_fps=capture_fps, out=out,
                        labels={"athlete": athlete, "session": session}, show_progress=True, units=units_option(units))
 

@@ -37,7 +37,8 @@ def run_batch_cmd(*, folder: Path, camera: Path, settings: FitSettings, library:
     ball, air = settings.ball, settings.air
     options = {"ball": ball.name, "ball_properties": ball.to_dict(), "air_density": air.density,
                "camera": cams[0].to_dict(), "target_x": settings.target_x_m, "start_near": settings.start_near_m,
-               "start_sigma": settings.start_sigma_m, "capture_fps": capture_fps}
+               "start_sigma": settings.start_sigma_m, "aero_model": settings.aero_model,
+               "wind_mps": settings.wind_mps, "capture_fps": capture_fps}
     opt_hash = options_hash({**options, "tool_version": __version__})
     camera_hash = file_hash(camera)
     lib = open_library(library)

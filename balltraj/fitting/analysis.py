@@ -16,7 +16,8 @@ from ..physics.flight import FlightModel, FlightParameters, integrate, velocity_
 from ..physics.reference import batch_deflections
 from ..units import RPM
 from .baseline import fit_constant_acceleration
-from .flight_fit import FlightFit, batch_unpack, typical_scales
+from .deflection import spin_drag_effect
+from .flight_fit import FlightFit, batch_flights, typical_scales
 
 DERIVED = ["speed_mps", "elevation_deg", "azimuth_deg", "transverse_rate_rpm", "axis_angle_deg",
            "drag_coefficient", "lift_coefficient", "spin_parameter"]
@@ -103,7 +104,8 @@ def launch_time(fit: FlightFit, model: FlightModel) -> float:
     hx = float(fit.options.start_near[0])
     if hx >= fit.state0[0] or fit.state0[3] <= 0:
         return fit.t0
-    params = FlightParameters.make(1, spin=fit.spin, drag_scale=fit.drag_scale, lift_override=fit.lift_override)
+    params = fit.flight_parameters()
+    model = fit.model if fit.model is not None else model  # the chosen rung's model
     back = min(3.0, 2.0 * (fit.state0[0] - hx) / fit.state0[3] + 0.05)
     tr = integrate(model, fit.t0, fit.state0[None], params, (fit.t0 - back, fit.t0), max_step=0.01)
     tc, _ = tr.first_crossing(0, hx, +1)
@@ -114,23 +116,30 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
                           t_launch: float | None = None) -> tuple[dict, np.ndarray]:
     """One-sigma uncertainties [the quantities' own units] of the derived quantities and of the
     deflection at ``target_x`` [m], and the 2 x 2 deflection covariance [m^2] (delta method,
-    central differences, one batched integration for all deflections)."""
+    central differences, one batched integration for all deflections). Each perturbed flight is
+    flown with its own values of the chosen rung's unknowns (drag and lift shape, spin decay,
+    wind); the part of the drag that only a spinning ball has, which one flight cannot show, adds
+    a prior to the deflection (:func:`.deflection.spin_drag_effect`)."""
     p = fit.params
     k = len(p)
     typ = typical_scales(fit.options)
     typ = np.concatenate([typ, np.full(k - len(typ), 0.01)])  # extra unknowns: time offsets [s]
     h = 1e-5 * np.maximum(np.abs(p), typ)
     P = np.vstack([p + np.diag(h), p - np.diag(h)])
-    states, params = batch_unpack(fit, model, P)
+    bm, states, params = batch_flights(fit, model, P)
     tl = fit.t0 if t_launch is None else t_launch
-    states = states_at(model, fit.t0, states, params, tl)
-    D = derived_values(states, params, fit.basis, model)
-    dfl = batch_deflections(model, tl, states, params, target_x)
+    states = states_at(bm, fit.t0, states, params, tl)
+    D = derived_values(states, params, fit.basis, fit.model if fit.model is not None else model)
+    dfl = batch_deflections(bm, tl, states, params, target_x)
     vals = np.concatenate([D, dfl], axis=1)
     diff = vals[:k] - vals[k:]
     diff[:, 4] = _wrap_deg(diff[:, 4])
     G = (diff / (2 * h[:, None])).T
     cov = G @ fit.covariance @ G.T
+    if "drag_spin_slope" not in fit.names:
+        dd = spin_drag_effect(fit, target_x)
+        if dd is not None:
+            cov[-2:, -2:] += np.outer(dd, dd)
     sig = np.sqrt(np.clip(np.diag(cov), 0, None))
     names = DERIVED + ["deflection_horizontal_m", "deflection_vertical_m"]
     out = dict(zip(names, sig))

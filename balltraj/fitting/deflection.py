@@ -50,13 +50,13 @@ def fit_deflection(fit: FlightFit, model: FlightModel, target_x: float, step: fl
     G = ((d[1:k + 1] - d[k + 1:]) / (2 * h[:, None])).T
     cov = G @ fit.covariance @ G.T
     if "drag_spin_slope" not in fit.names:
-        dd = _spin_drag_effect(fit, target_x)
+        dd = spin_drag_effect(fit, target_x)
         if dd is not None:
             cov = cov + np.outer(dd, dd)
     return d[0], cov
 
 
-def _spin_drag_effect(fit: FlightFit, target_x: float):
+def spin_drag_effect(fit: FlightFit, target_x: float):
     """Change (2,) of the deflection [m] if the no-spin reference had SPIN_DRAG_SLOPE_SIGMA * S0
     less drag coefficient than the fitted (spinning) flight (None when it cannot be evaluated)."""
     m = fit.model

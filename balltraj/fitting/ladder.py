@@ -73,7 +73,8 @@ def check_rung(name: str) -> str:
     """The rung name, or "auto"; raises InputError naming the valid ones."""
     if name == "auto" or name in RUNGS:
         return name
-    raise InputError(f"unknown aerodynamic model {name!r}", hint=f"choose auto or one of: {', '.join(RUNGS)}")
+    raise InputError(f"unknown aerodynamic model {name!r}", hint=f"choose auto or one of: {', '.join(RUNGS)}",
+                     about="aero_model")
 
 
 # Each rung continues from its parent. The first three form a chain; the last five each add one

@@ -15,6 +15,7 @@ from ..fitting.analysis import (aero_at, derived_uncertainties, derived_values, 
                                 launch_time, spin_axis_words, states_at)
 from ..fitting.baseline import baseline_summary, fit_constant_acceleration
 from ..fitting.flight_fit import FlightFit
+from ..fitting.quality import fit_quality_record
 from ..physics.air import AirConditions
 from ..physics.balls import Ball
 from ..physics.flight import FlightModel, FlightParameters, fly, velocity_angles
@@ -158,7 +159,9 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
     xyz_fit = fit.fitted_xyz if fit.fitted_xyz is not None else fit.observed
     if target_x is None:
         target_x = float(xyz_fit[inl][-1, 0])
-    params = FlightParameters.make(1, spin=fit.spin, drag_scale=fit.drag_scale, lift_override=fit.lift_override)
+    if fit.model is not None:  # the aerodynamic rung the data chose (drag and lift shape, wind)
+        model = fit.model
+    params = fit.flight_parameters()
     t_launch = launch_time(fit, model)
     state_l = states_at(model, fit.t0, fit.state0[None], params, t_launch)[0]
     d = plane_deflection(model, t_launch, state_l, params, target_x, ground_z=None)
@@ -186,7 +189,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "schema": SCHEMA, "source": source or "fit", "tool_version": __version__, "ball": ball.name,
         "ball_properties": ball_dict(ball, model), "air": air.to_dict(),
         "model": model_dict(model, drag_scale=fit.drag_scale, lift_override=fit.lift_override,
-                            spin_vector=fit.spin),
+                            spin_decay_s=fit.spin_decay_s, spin_vector=fit.spin),
         "launch": {**launch_dict(t_launch, state_l),
                    "at": "the start hint's plane" if t_launch != fit.t0 else "the first used observation",
                    "first_observation_t_s": fit.t0},
@@ -196,6 +199,12 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "baseline": baseline,
         "warnings": warnings + notes,
     }
+    quality = fit_quality_record(fit, ball)  # the rung chosen and why, misfit, wind, plausibility
+    rec["warnings"] += [w for w in quality.pop("warnings") if w not in rec["warnings"]]
+    rec["warnings"] += [i["message"] if i["severity"] == "warning" else f"{i['severity']}: {i['message']}"
+                        for i in quality.get("plausibility", [])]
+    rec.update(quality)
+    rec["uncertainty"]["method"] = fit.covariance_method
     return rec, d
 
 

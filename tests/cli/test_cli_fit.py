@@ -112,3 +112,29 @@ def test_output_equal_to_input_is_refused(track):
     r = runner.invoke(app, ["fit", str(p), "--ball", "baseball", "-o", str(p)])
     assert r.exit_code == 2
     assert p.read_text() == before
+
+
+def test_a_track_in_feet_is_refused_and_can_be_forced(tmp_path):
+    # a 40 m/s pitch written in feet reads as 131 m/s: beyond any baseball (docs/references.md §1 ball rules;
+    # pitch speeds up to about 50 m/s (common practice))
+    t, xyz, _ = make_track("baseball", seed=3)
+    p = tmp_path / "feet.csv"
+    write_track(p, t, xyz / 0.3048)
+    r = subprocess.run([sys.executable, "-m", "balltraj", "fit", str(p), "--ball", "baseball", "-o",
+                        str(tmp_path / "f.json")], capture_output=True, text=True)
+    assert r.returncode == 2 and "in feet it would be 40.0 m/s" in r.stderr and "(see --force)" in r.stderr
+    assert not (tmp_path / "f.json").exists()
+    r = runner.invoke(app, ["fit", str(p), "--ball", "baseball", "--force", "-o", str(tmp_path / "f.json")])
+    assert r.exit_code == 0 and "warning: impossible: launch speed" in r.output
+
+
+def test_aero_model_can_be_pinned_and_wind_is_kept(track, tmp_path):
+    out = tmp_path / "f.json"
+    r = runner.invoke(app, ["fit", str(track[0]), "--ball", "baseball", "--aero-model", "drag_scale",
+                            "--wind", "0,2,0", "-o", str(out)])
+    assert r.exit_code == 0, r.output
+    rec = json.loads(out.read_text())
+    assert rec["aero_model"]["chosen"] == "drag_scale"
+    assert rec["wind_mps"] == [0.0, 2.0, 0.0] and rec["model"]["wind_mps"] == [0.0, 2.0, 0.0]
+    r = runner.invoke(app, ["fit", str(track[0]), "--ball", "baseball", "--aero-model", "nope", "-o", str(out)])
+    assert r.exit_code == 2 and "(see --aero-model)" in r.output
