@@ -18,7 +18,7 @@ from balltraj.physics.reference import plane_deflection
 from synth import make_track
 
 RPM = 2 * math.pi / 60
-NU = 1.5054e-5  # REFERENCES.md 2.4
+NU = 1.5054e-5  # docs/references.md 2.4
 
 
 # ------------------------------------------------------------------------------------ laws

@@ -68,3 +68,17 @@ def test_cited_documents_are_in_the_repository():
             if not (REPO / "docs" / name).exists():
                 missing.add(f"{f.name}: docs/{name}")
     assert not missing, sorted(missing)
+
+
+@pytest.mark.parametrize("layer", ["physics", "fitting", "camera", "record"])
+def test_low_layers_do_not_name_command_line_options(layer):
+    # errors say which input they are about (BallTrajError.about); the CLI names the option
+    bad = []
+    for f in (ROOT / layer).rglob("*.py"):
+        tree = ast.parse(f.read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            if isinstance(node, ast.Raise) and node.exc is not None:
+                for s in ast.walk(node.exc):
+                    if isinstance(s, ast.Constant) and isinstance(s.value, str) and re.search(r"--[a-z]", s.value):
+                        bad.append(f"{f.name}:{node.lineno}")
+    assert not bad, bad

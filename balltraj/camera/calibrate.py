@@ -227,7 +227,7 @@ def calibrate_lens(views: list[tuple[str, np.ndarray]], cols: int, rows: int, sq
         img_pts.append(c.astype(np.float32))
     if not img_pts:
         raise InputError(f"no board of {cols}x{rows} inner corners was found in any of the {len(views)} views",
-                         hint="check --cols/--rows (inner corners, not squares), focus and lighting")
+                         hint="check the board size (inner corners, not squares), focus and lighting", about="board_size")
     if len(img_pts) < 3:
         raise InputError(f"only {len(img_pts)} usable board view(s); at least 3 tilted views are needed",
                          hint="film the board at several strong tilts, filling different parts of the frame")
@@ -267,7 +267,7 @@ def board_figure(cols: int, rows: int, square_mm: float, margin_mm: float = 10.0
     if not fits:
         best = max(min(room_w / a, room_h / b) for a, b in ((nx, ny), (ny, nx)))
         raise InputError(f"a {cols} x {rows} board with {square_mm:g} mm squares does not fit on A4 or Letter",
-                         hint=f"use --square-mm {math.floor(best):g} or less, or fewer corners")
+                         hint=f"use squares of {math.floor(best):g} mm or less, or fewer corners", about="square_mm")
     ax_n, ay_n = fits[0]
     fig = plt.figure(figsize=(page_w / 25.4, page_h / 25.4))
     ax = fig.add_axes([0, 0, 1, 1])
@@ -347,7 +347,7 @@ def calibrate_scene(world, pixels, names, lens: Camera | None, image_size, name:
                 K[0, 0] = K[1, 1] = f
         else:
             raise InputError("without a lens file the focal length is estimated from the landmarks: give at least "
-                             "4 coplanar or 6 non-coplanar landmarks", hint="or give --lens LENS.json")
+                             "4 coplanar or 6 non-coplanar landmarks", hint="or give a lens file from the lens calibration", about="lens")
     ok, rvec, tvec = _solve_pnp(world, pix, K, dist)
     if not ok:
         raise InputError("the camera pose could not be found from these landmarks",

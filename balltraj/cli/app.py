@@ -119,7 +119,7 @@ def _echo(text: str = "") -> None:
 #: the option that sets each input a low layer can complain about (BallTrajError.about)
 OPTION_FOR = {"target_x": "--target-x", "start_near": "--start-near", "ball": "--ball", "ball_file": "--ball-file",
               "capture_fps": "--capture-fps", "flight": "--flight", "camera": "--camera", "lens": "--lens",
-              "board_size": "--cols/--rows", "force": "--force", "aero_model": "--aero-model"}
+              "board_size": "--cols/--rows", "force": "--force", "square_mm": "--square-mm", "units": "--units", "aero_model": "--aero-model"}
 
 
 def error_line(err: BallTrajError) -> str:

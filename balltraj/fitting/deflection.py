@@ -1,7 +1,7 @@
 """Launch speed and deflection of a fitted flight with one-sigma uncertainties, through the chosen
 rung's model (drag and lift shape, spin decay, wind) and the fit's covariance. Pure computation.
 
-The deflection follows DESIGN section 3: the fitted path at the plane x = X minus the no-spin
+The deflection follows docs/architecture.md (conventions): the fitted path at the plane x = X minus the no-spin
 reference (same launch, same drag law at zero spin, same wind).
 """
 

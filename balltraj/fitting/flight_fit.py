@@ -15,7 +15,7 @@ log_drag_scale        (with ``fit_drag``) natural log of a multiplier on the dra
 ====================  =============================================================
 
 The gyro part of the spin (along the velocity) makes no force and is not an unknown: it cannot
-be recovered from a trajectory (DESIGN section 3).
+be recovered from a trajectory (docs/architecture.md, conventions).
 
 The fit runs in three passes: a robust pass (soft-L1 loss) from the constant-acceleration start,
 outlier flagging on the robust residuals, and a plain least-squares pass on the inliers whose

@@ -161,7 +161,7 @@ def _pseudo_point_sets(t, cam_idx, uv, radius, cameras, model, hint):
             out.append((tm, origin + rays * (depth / (rays @ axis))[:, None], "start hint depth"))
     if not out:
         raise FitError("one camera cannot place the ball in depth without help",
-                       hint="give --start-near X,Y,Z (where the flight starts) or observations with radius_px")
+                       hint="give the start point X,Y,Z (where the flight starts) or observations with radius_px", about="start_near")
     return out
 
 
@@ -227,7 +227,7 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
         if best is None or score < best[0]:
             best = (score, prob, res, how)
     if best is None:
-        raise FitError("no start could be found for the fit", hint="check the camera file, or give --start-near")
+        raise FitError("no start could be found for the fit", hint="check the camera file, or give the start point", about="start_near")
     _, prob0, res0, how = best
     from .climb import climb, misfit_noise
     from .misfit import noise_estimate

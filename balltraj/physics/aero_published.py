@@ -12,10 +12,10 @@ import math
 
 import numpy as np
 
-# dry air at 20 degC, 101325 Pa (REFERENCES.md 2.4): used only to turn the speed-based laws into
+# dry air at 20 degC, 101325 Pa (docs/references.md 2.4): used only to turn the speed-based laws into
 # functions of the Reynolds number
 KINEMATIC_VISCOSITY_20C = 1.5054e-5  # [m^2/s]
-STANDARD_AIR_DENSITY = 1.2041  # [kg/m^3] (REFERENCES.md: dry air, 20 degC, 101325 Pa)
+STANDARD_AIR_DENSITY = 1.2041  # [kg/m^3] (docs/references.md: dry air, 20 degC, 101325 Pa)
 
 
 def drag_giordano_baseball(reynolds, spin_parameter=0.0, *, diameter_m=0.0737, mass_kg=0.1453,

@@ -224,7 +224,7 @@ def get_ball(name: str, extra: Mapping[str, Ball] | None = None) -> Ball:
     key = _ALIASES.get(key, key)
     if key not in pool:
         raise InputError(f"unknown ball {name!r}",
-                         hint=f"choose one of: {', '.join(sorted(pool))}, or add one with --ball-file")
+                         hint=f"choose one of: {', '.join(sorted(pool))}, or define one in a ball file", about="ball_file")
     return pool[key]
 
 

@@ -3,7 +3,7 @@
 m dv/dt = m g - 1/2 rho A C_D |v| v + 1/2 rho A C_L |v|^2 (omega_perp_hat x v_hat)
 
 with v the air-relative velocity, omega_perp the spin component perpendicular to it (only that
-part makes lift; DESIGN section 3), S = r |omega_perp| / |v|, and optional spin decay
+part makes lift; docs/architecture.md (conventions)), S = r |omega_perp| / |v|, and optional spin decay
 omega(t) = omega0 exp(-(t - t0)/tau).
 
 The integrator is classical fourth-order Runge-Kutta on a fixed grid, advancing every flight of a

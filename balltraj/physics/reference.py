@@ -1,4 +1,4 @@
-"""The no-spin reference path and the deflection at a target plane (DESIGN section 3).
+"""The no-spin reference path and the deflection at a target plane (docs/architecture.md, conventions).
 
 Deflection = where the spinning (measured or predicted) path crosses x = X minus where the no-spin
 reference crosses it; the reference starts from the same launch position and velocity at the same
@@ -77,7 +77,7 @@ def plane_deflection(model: FlightModel, t0: float, state0, params: FlightParame
                            hint="check the launch azimuth, or set up the world frame with x toward the target")
     if target_x <= s0[0]:
         raise PhysicsError(f"the target plane x = {target_x:g} m is not ahead of the launch point "
-                           f"(x = {s0[0]:.3f} m)", hint="choose a --target-x beyond the launch point")
+                           f"(x = {s0[0]:.3f} m)", hint="choose a target plane beyond the launch point", about="target_x")
     sp, rf = spin_and_reference(model, t0, s0[None], params, target_x=target_x, max_step=max_step)
     tc, sc = sp.first_crossing(0, target_x, +1)
     tr, srf = rf.first_crossing(0, target_x, +1)
@@ -87,13 +87,13 @@ def plane_deflection(model: FlightModel, t0: float, state0, params: FlightParame
         which = "flight" if path is sp else "no-spin reference"
         raise PhysicsError(
             f"the {which} never reaches the target plane x = {target_x:g} m; it was at x = {end[0]:.2f} m, "
-            f"y = {end[1]:.2f} m, z = {end[2]:.2f} m when it stopped", hint="choose a nearer --target-x")
+            f"y = {end[1]:.2f} m, z = {end[2]:.2f} m when it stopped", hint="choose a nearer target plane", about="target_x")
     if ground_z is not None:
         tg, sg = sp.first_crossing(2, ground_z, -1)
         if np.isfinite(tg[0]) and tg[0] < tc[0]:
             raise PhysicsError(
                 f"the flight comes down at x = {sg[0, 0]:.2f} m, y = {sg[0, 1]:.2f} m before reaching the "
-                f"target plane x = {target_x:g} m", hint="choose a --target-x before the landing point")
+                f"target plane x = {target_x:g} m", hint="choose a target plane before the landing point", about="target_x")
     line = s0[:3] + s0[3:] * (target_x - s0[0]) / s0[3]
     return Deflection(
         target_x_m=float(target_x), horizontal_m=float(sc[0, 1] - srf[0, 1]),

@@ -53,7 +53,7 @@ def unit_system(text: str | None) -> str:
     """``--units`` read case-insensitively: 'metric' or 'imperial'."""
     u = str(text or "metric").strip().lower()
     if u not in UNIT_SYSTEMS:
-        raise InputError(f"--units must be metric or imperial, got {text!r}")
+        raise InputError(f"the unit system must be metric or imperial, got {text!r}", about="units")
     return u
 
 

@@ -3,7 +3,7 @@
 Truth: the equations of motion written here, with the published laws re-implemented here (not
 balltraj's), integrated by scipy solve_ivp (DOP853, rtol 1e-10). Deflection truth: that path minus
 a no-spin solve_ivp path from the same launch with the same (true) drag law at zero spin and the same
-wind, at the plane x = X (DESIGN section 3). Noise, rates and durations of practice footage.
+wind, at the plane x = X (docs/architecture.md, conventions). Noise, rates and durations of practice footage.
 
 Targets: median launch-speed error <= 0.3 %, p95 <= 1 %; deflection error <= max(2 cm, 5 %) for
 >= 90 % of flights; one-sigma coverage of speed and deflection 60-80 %; >= 95 % within 3 sigma.

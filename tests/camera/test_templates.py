@@ -9,7 +9,7 @@ from balltraj.errors import InputError
 
 @pytest.mark.parametrize("name", list(TEMPLATES))
 def test_x_points_from_every_launch_zone_to_the_target(name):
-    # Source: DESIGN.md sec. 3 - x horizontal toward the target, y to the left looking along x, z up
+    # Source: docs/architecture.md (conventions) - x horizontal toward the target, y to the left looking along x, z up
     target = np.array(TARGETS[name])
     for zone in LAUNCH_ZONES[name]:
         centre, sigma, _ = launch_zone(name, zone, ball_radius_m=0.11)
@@ -19,7 +19,7 @@ def test_x_points_from_every_launch_zone_to_the_target(name):
 
 @pytest.mark.parametrize("name", list(TEMPLATES))
 def test_left_landmarks_have_positive_y_and_frame_is_right_handed(name):
-    # Source: DESIGN.md sec. 3 - right-handed, y to the left of x; the template's own frame text says so
+    # Source: docs/architecture.md (conventions) - right-handed, y to the left of x; the template's own frame text says so
     pts = TEMPLATES[name]["points"]
     lefts = [k for k in pts if "left" in k]
     assert lefts and all(pts[k][1] > 0 and pts[k.replace("left", "right")][1] == -pts[k][1] for k in lefts)

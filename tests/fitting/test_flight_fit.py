@@ -77,7 +77,7 @@ def test_gaps_and_uneven_timestamps():
 
 
 def test_baseline_exact_on_constant_acceleration_data():
-    # Source: r(t) = r0 + v0 t + a t^2/2 is exact for constant force (REFERENCES.md 6.1)
+    # Source: r(t) = r0 + v0 t + a t^2/2 is exact for constant force (docs/references.md 6.1)
     t = np.linspace(0, 0.4, 97)
     r0, v0, a = np.array([0.1, -0.2, 1.7]), np.array([38.0, 1.0, -0.5]), np.array([-8.0, 1.5, -6.0])
     xyz = r0 + v0 * t[:, None] + 0.5 * a * t[:, None] ** 2
@@ -88,7 +88,7 @@ def test_baseline_exact_on_constant_acceleration_data():
 
 
 def test_nine_parameter_demonstration_values():
-    # Source: REFERENCES.md 8.3 (method of Nathan 2008; Goff & Carre 2009): baseball 40 m/s, 2200 rpm
+    # Source: docs/references.md 8.3 (method of Nathan 2008; Goff & Carre 2009): baseball 40 m/s, 2200 rpm
     # backspin, C_D 0.35, Sawicki C_L, K = 0.018062 1/m, release 1.8 m, window to x = 16.8 m, 60 samples
     # -> a = (-8.966, 0, -3.784), C_D 0.3505, C_L 0.2247
     import dataclasses

@@ -15,7 +15,7 @@ def test_morrison_against_fluids():
 
 
 def test_morrison_check_values_and_crisis():
-    # Source: REFERENCES.md 2.2 (fluids 1.3.1): Morrison(1e5) = 0.42468, minimum 0.0848 at Re 4.40e5
+    # Source: docs/references.md 2.2 (fluids 1.3.1): Morrison(1e5) = 0.42468, minimum 0.0848 at Re 4.40e5
     assert drag_morrison2013(1e5) == pytest.approx(0.42468, abs=5e-6)
     Re = np.geomspace(1e5, 1e6, 20001)
     cd = drag_morrison2013(Re)
@@ -24,7 +24,7 @@ def test_morrison_check_values_and_crisis():
 
 
 def test_subcritical_ball_drag_in_smooth_sphere_envelope():
-    # Source: fluids drag_sphere correlations, subcritical 1e4-2e5 (REFERENCES.md 2.2): smooth-sphere
+    # Source: fluids drag_sphere correlations, subcritical 1e4-2e5 (docs/references.md 2.2): smooth-sphere
     # C_D 0.39-0.50; sports-ball subcritical defaults must sit in a band around that envelope
     from fluids.drag import drag_sphere
 
@@ -35,13 +35,13 @@ def test_subcritical_ball_drag_in_smooth_sphere_envelope():
 
 
 def test_sawicki_check_values():
-    # Source: Sawicki, Hubbard & Stronge 2003, Am. J. Phys. 71:1152 (REFERENCES.md 10.5)
+    # Source: Sawicki, Hubbard & Stronge 2003, Am. J. Phys. 71:1152 (docs/references.md 10.5)
     assert lift_coefficient(0.05, model="sawicki2003") == pytest.approx(0.075)
     assert lift_coefficient(0.1 - 1e-12, model="sawicki2003") == pytest.approx(0.15)
     assert lift_coefficient(0.1, model="sawicki2003") == pytest.approx(0.15)
     assert lift_coefficient(0.2, model="sawicki2003") == pytest.approx(0.21)
     assert lift_coefficient(0.3, model="sawicki2003") == pytest.approx(0.27)
-    # REFERENCES.md 2.4: baseball 40 m/s, 2200 rpm, S = 0.2125 -> C_L = 0.2175
+    # docs/references.md 2.4: baseball 40 m/s, 2200 rpm, S = 0.2125 -> C_L = 0.2175
     assert lift_coefficient(0.2125, model="sawicki2003") == pytest.approx(0.2175)
 
 

@@ -6,7 +6,7 @@ from balltraj.physics.air import (air_conditions, air_viscosity, moist_air_densi
 
 
 def test_cipm2007_check_values():
-    # Source: Picard et al. 2008 (CIPM-2007), values computed in REFERENCES.md section 5.5
+    # Source: Picard et al. 2008 (CIPM-2007), values computed in docs/references.md section 5.5
     assert moist_air_density(20, 101325, 50) == pytest.approx(1.199314, abs=2e-6)
     assert moist_air_density(30, 89876.29, 50) == pytest.approx(1.023880, abs=2e-6)
     assert moist_air_density(15, 101325, 0) == pytest.approx(1.225521, abs=2e-6)
@@ -29,7 +29,7 @@ def test_density_against_coolprop_and_psychrolib(t, p, rh):
 
 
 def test_saturation_pressure_against_coolprop():
-    # Source: CoolProp PropsSI saturated water (IAPWS-95); REFERENCES.md 5.3: 2339.16 Pa at 20 degC
+    # Source: CoolProp PropsSI saturated water (IAPWS-95); docs/references.md 5.3: 2339.16 Pa at 20 degC
     from CoolProp.CoolProp import PropsSI
 
     for t in (20.0, 30.0):
@@ -49,7 +49,7 @@ def test_standard_pressure_against_ambiance_and_fluids(h):
 
 
 def test_isa_sea_level_density():
-    # Source: ISO 2533 sea level rho0 = 1.225 kg/m^3 (REFERENCES.md 10.1); CIPM sits +0.04 % above
+    # Source: ISO 2533 sea level rho0 = 1.225 kg/m^3 (docs/references.md 10.1); CIPM sits +0.04 % above
     # the ideal-gas ISA value at 15 degC dry
     assert moist_air_density(15, 101325, 0) == pytest.approx(1.225, rel=6e-4)
 
@@ -64,7 +64,7 @@ def test_sutherland_viscosity():
 
 
 def test_reynolds_against_fluids():
-    # Source: fluids.core.Reynolds; REFERENCES.md 2.4 baseball 40 m/s -> Re 1.96e5 at nu 1.5054e-5
+    # Source: fluids.core.Reynolds; docs/references.md 2.4 baseball 40 m/s -> Re 1.96e5 at nu 1.5054e-5
     from fluids.core import Reynolds
 
     rho, mu = 1.204557, 1.81341e-5

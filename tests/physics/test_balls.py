@@ -10,7 +10,7 @@ from balltraj.physics.balls import ball_names, get_ball
 IN = 0.0254
 OZ = 0.028349523125
 
-# Source: each game's rules, as collected in shared REFERENCES.md section 1 (mass, circumference
+# Source: each game's rules, as collected in docs/references.md section 1 (mass, circumference
 # or diameter); diameters from circumference by d = C / pi.
 RULES = {
     "baseball": ((5 * OZ, 5.25 * OZ), (9 * IN / math.pi, 9.25 * IN / math.pi)),  # OBR 3.01
@@ -35,7 +35,7 @@ def test_default_mass_and_size_within_rule(name):
 
 
 def test_baseball_diameter_range_matches_rulebook_numbers():
-    # Source: OBR 3.01, 9 to 9 1/4 in circumference -> 72.77-74.79 mm (REFERENCES.md section 1)
+    # Source: OBR 3.01, 9 to 9 1/4 in circumference -> 72.77-74.79 mm (docs/references.md section 1)
     b = get_ball("baseball")
     assert b.diameter_range_m[0] * 1000 == pytest.approx(72.77, abs=0.01)
     assert b.diameter_range_m[1] * 1000 == pytest.approx(74.79, abs=0.01)

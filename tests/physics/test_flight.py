@@ -22,7 +22,7 @@ def vacuum_model():
 
 
 def baseball_reference_model():
-    # REFERENCES.md 6.3: m = 0.145 kg, d = 73.78 mm, C_D = 0.35, rho = 1.225; its tables were computed
+    # docs/references.md 6.3: m = 0.145 kg, d = 73.78 mm, C_D = 0.35, rho = 1.225; its tables were computed
     # with the rounded v_t = 39.387 m/s (k = g / v_t^2), so the area is set from that v_t here
     area = (G / 39.387**2) * 2 * 0.145 / (1.225 * 0.35)
     return FlightModel(mass_kg=0.145, diameter_m=math.sqrt(4 * area / math.pi), air_density=1.225, air_viscosity=1.8e-5,
@@ -31,7 +31,7 @@ def baseball_reference_model():
 
 
 def test_vacuum_projectile():
-    # Source: textbook closed form; REFERENCES.md 6.2: v0 30 m/s, 45 deg -> R 91.7745, H 22.9436, T 4.3263
+    # Source: textbook closed form; docs/references.md 6.2: v0 30 m/s, 45 deg -> R 91.7745, H 22.9436, T 4.3263
     m = vacuum_model()
     s0 = launch_state([0, 0, 0], 30.0, math.radians(45), 0.0)
     tr = fly(m, 0.0, s0, FlightParameters.make(1), ground_z=0.0, max_step=0.01)
@@ -43,7 +43,7 @@ def test_vacuum_projectile():
 
 
 def test_vertical_fall_with_quadratic_drag():
-    # Source: v(t) = v_t tanh(g t / v_t), y = (v_t^2/g) ln cosh(g t / v_t); REFERENCES.md 6.3 table
+    # Source: v(t) = v_t tanh(g t / v_t), y = (v_t^2/g) ln cosh(g t / v_t); docs/references.md 6.3 table
     m = baseball_reference_model()
     k = m.k_factor * 0.35
     vt = math.sqrt(G / k)
@@ -60,7 +60,7 @@ def test_vertical_fall_with_quadratic_drag():
 
 
 def test_up_throw_with_quadratic_drag():
-    # Source: t_apex = (v_t/g) atan(v0/v_t); H = (v_t^2/2g) ln(1 + v0^2/v_t^2); REFERENCES.md 6.3
+    # Source: t_apex = (v_t/g) atan(v0/v_t); H = (v_t^2/2g) ln(1 + v0^2/v_t^2); docs/references.md 6.3
     m = baseball_reference_model()
     tr = integrate(m, 0.0, np.array([[0, 0, 0, 0, 0, 30.0]]), FlightParameters.make(1), (0, 4.0), max_step=0.01)
     t_apex, s = tr.first_crossing(5, 0.0, -1)
@@ -69,7 +69,7 @@ def test_up_throw_with_quadratic_drag():
 
 
 def test_horizontal_drag_only_decay():
-    # Source: v(t) = v0/(1 + k v0 t), x = ln(1 + k v0 t)/k; REFERENCES.md 6.3 (k = 6.322e-3 1/m)
+    # Source: v(t) = v0/(1 + k v0 t), x = ln(1 + k v0 t)/k; docs/references.md 6.3 (k = 6.322e-3 1/m)
     m = replace(baseball_reference_model(), gravity=0.0)
     k = m.k_factor * 0.35
     assert k == pytest.approx(6.322e-3, rel=1e-3)
@@ -83,7 +83,7 @@ def test_horizontal_drag_only_decay():
 
 def test_magnus_only_circle():
     # Source: constant C_L, no gravity or drag: uniform circle of radius R = 2m/(rho A C_L)
-    # (REFERENCES.md 6.1)
+    # (docs/references.md 6.1)
     m = FlightModel(mass_kg=0.43, diameter_m=0.22, air_density=1.2, air_viscosity=1.8e-5, gravity=0.0,
                     drag_model="constant", drag_params={"value": 0.0}, lift_model="constant",
                     lift_params={"value": 0.25})
@@ -179,7 +179,7 @@ def test_batched_equals_one_by_one():
 
 
 def test_deflection_of_section_8_3_pitch():
-    # Source: REFERENCES.md 8.3 (Sawicki lift, C_D 0.35, K = 0.018062 1/m, 40 m/s, 2200 rpm backspin):
+    # Source: docs/references.md 8.3 (Sawicki lift, C_D 0.35, K = 0.018062 1/m, 40 m/s, 2200 rpm backspin):
     # upward deflection against the no-spin path 0.566 m at x = 16.8 m, flight time 0.4429 s
     m = FlightModel(mass_kg=0.145, diameter_m=0.07378, air_density=0.0, air_viscosity=1.8e-5,
                     drag_model="constant", drag_params={"value": 0.35}, lift_model="sawicki2003")
@@ -190,7 +190,7 @@ def test_deflection_of_section_8_3_pitch():
     d = plane_deflection(m, 0.0, s0, p, 16.8)
     assert d.time_s == pytest.approx(0.4429, abs=2e-4)
     assert d.reference_time_s == pytest.approx(0.4431, abs=2e-4)
-    # REFERENCES compares at the same time; at the plane the difference is within a few mm of it
+    # docs/references.md compares at the same time; at the plane the difference is within a few mm of it
     assert d.vertical_m == pytest.approx(0.566, abs=0.01)
     assert d.speed_at_plane_mps == pytest.approx(36.06, abs=0.02)
     assert abs(d.horizontal_m) < 1e-12

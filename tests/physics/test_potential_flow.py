@@ -6,7 +6,7 @@ from balltraj.physics.potential_flow import (MAX_IDEAL_LIFT_COEFFICIENT, circula
                                              kutta_joukowski_lift_per_span, sectional_lift_coefficient,
                                              stagnation_angles)
 
-# Check values: REFERENCES.md section 7 (U = 10 m/s, a = 0.1 m, omega = 50 rad/s, rho = 1.225)
+# Check values: docs/references.md section 7 (U = 10 m/s, a = 0.1 m, omega = 50 rad/s, rho = 1.225)
 U, A, OMEGA, RHO = 10.0, 0.1, 50.0, 1.225
 
 
@@ -30,7 +30,7 @@ def _forces_by_pressure_integral(gamma, n=200_000):
 
 
 def test_kutta_joukowski_by_surface_pressure_integration():
-    # Source: Kutta-Joukowski theorem; REFERENCES.md 7: L' = 38.4845 N/m, zero drag
+    # Source: Kutta-Joukowski theorem; docs/references.md 7: L' = 38.4845 N/m, zero drag
     gamma = circulation_from_spin(A, OMEGA)
     assert gamma == pytest.approx(np.pi)
     fx, fy = _forces_by_pressure_integral(gamma)
@@ -49,7 +49,7 @@ def test_sectional_lift_is_two_pi_s_by_integration(spin_parameter):
 
 
 def test_stagnation_points_by_root_finding():
-    # Source: sin(theta_s) = Gamma/(4 pi U a); REFERENCES.md 7: 14.4775 and 165.5225 degrees
+    # Source: sin(theta_s) = Gamma/(4 pi U a); docs/references.md 7: 14.4775 and 165.5225 degrees
     gamma = circulation_from_spin(A, OMEGA)
 
     def speed(th):
