@@ -23,3 +23,6 @@ def rng():
 def _no_color(monkeypatch):
     monkeypatch.setenv("NO_COLOR", "1")
     monkeypatch.setenv("TERM", "dumb")
+
+# benchmarks run by hand (python tests/benchmarks/bench_*.py); the doctest collector must not import them
+collect_ignore = ["benchmarks"]
