@@ -14,6 +14,7 @@ from surface_render import SpinScene, render_spin_clip
 from synth import make_track
 from balltraj import pipeline
 from balltraj.camera.model import look_at_camera
+from balltraj.commands.text import flight_summary
 from balltraj.fitting.flight_fit import FitOptions
 from balltraj.fitting.image_fit import fit_flight_image
 from balltraj.formats import read_cameras
@@ -109,6 +110,11 @@ def test_gyro_spin_is_read_from_the_surface_and_fused_with_the_flight(tmp_path):
     assert U["axis_deg"] > 0 and U["transverse_share"] > 0
     assert S["surface"]["readable"] and S["surface"]["frame"] == "world"
     json.dumps(rec)  # the record stays JSON
+    # the console summary shows the whole spin with its sigmas and the check
+    text = flight_summary(rec)
+    assert f"full spin       {S['rate_rpm']:.0f} ± {U['rate_rpm']:.0f} rpm" in text
+    assert f"gyro {S['gyro_rate_rpm']:.0f} ± {U['gyro_rate_rpm']:.0f} rpm along the flight" in text
+    assert "spin check" in text and "they agree, combined" in text
 
 
 def test_slow_clip_keeps_the_transverse_spin_and_says_why(tmp_path):
@@ -123,6 +129,7 @@ def test_slow_clip_keeps_the_transverse_spin_and_says_why(tmp_path):
     # the old behaviour exactly, apart from the added reason
     assert {k: v for k, v in rec["spin"].items() if k != "surface"} == before[0]
     assert rec["uncertainty"]["spin"] == before[1]
+    assert "full spin" not in flight_summary(rec) and "gyro spin not observable" in flight_summary(rec)
 
 
 def test_sample_clip_is_too_far_for_the_surface():
