@@ -22,6 +22,7 @@ from balltraj.physics.air import air_conditions
 from balltraj.physics.balls import get_ball
 from balltraj.pipeline_spin import apply_surface_spin, read_flight_surface
 from balltraj.record.build import fit_record
+from balltraj.report.html import headline
 from balltraj.units import RPM
 from balltraj.vision.track import TrackedFlight
 
@@ -115,6 +116,9 @@ def test_gyro_spin_is_read_from_the_surface_and_fused_with_the_flight(tmp_path):
     assert f"full spin       {S['rate_rpm']:.0f} ± {U['rate_rpm']:.0f} rpm" in text
     assert f"gyro {S['gyro_rate_rpm']:.0f} ± {U['gyro_rate_rpm']:.0f} rpm along the flight" in text
     assert "spin check" in text and "they agree, combined" in text
+    # and the report's spin card in plain words
+    card = dict((k, n) for k, _, n in headline(rec, "metric"))["Transverse spin"]
+    assert f"whole spin {S['rate_rpm']:.0f} rpm" in card and "agrees with the curve" in card
 
 
 def test_slow_clip_keeps_the_transverse_spin_and_says_why(tmp_path):
