@@ -67,14 +67,18 @@ def read_flight_surface(path, flight, camera: Camera, *, capture_fps: float | No
     frame_idx = np.asarray(flight.frame, int)[win]
     try:
         frames, times, index = read_window(path, float(t[win][0]) - 0.5 / fps, float(t[win][-1]) + 0.5 / fps,
-                                           capture_fps=capture_fps, indices=frame_idx)
+                                           capture_fps=capture_fps)
     except BallTrajError as e:
         return SurfaceSpin(readable=False, reason=f"the frames could not be read again: {e.one_line()}")
-    pos = {int(k): i for i, k in enumerate(frame_idx)}
-    keep = [j for j, k in enumerate(index) if int(k) in pos]
-    rows = [pos[int(index[j])] for j in keep]
-    uv = np.asarray(flight.uv, float)[win][rows]
-    return estimate_surface_spin([frames[j] for j in keep], times[keep], uv, radius[rows], camera=camera)
+    # every frame of the window (a frame the tracker missed keeps the frame gaps honest): the centre and
+    # radius of the tracked neighbours, interpolated
+    keep = (index >= frame_idx[0]) & (index <= frame_idx[-1])
+    uv = np.asarray(flight.uv, float)[win]
+    k = index[keep]
+    centres = np.stack([np.interp(k, frame_idx, uv[:, 0]), np.interp(k, frame_idx, uv[:, 1])], 1)
+    good = np.isfinite(radius)
+    radii = np.interp(k, frame_idx[good], radius[good])
+    return estimate_surface_spin([f for f, m in zip(frames, keep) if m], times[keep], centres, radii, camera=camera)
 
 
 def flight_spin_covariance(fit: FlightFit, v0, model=None) -> tuple[np.ndarray, np.ndarray]:

@@ -26,6 +26,7 @@ from balltraj.pipeline_spin import apply_surface_spin, read_flight_surface
 from balltraj.record.build import fit_record
 from balltraj.report.html import headline
 from balltraj.units import RPM
+from balltraj.vision.surface_window import read_window
 from balltraj.vision.track import TrackedFlight
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -187,3 +188,18 @@ def test_sample_clip_is_too_far_for_the_surface():
         assert rec["spin"]["axis"] is None
         assert not rec["spin"]["surface"]["readable"]
         assert "px in radius" in rec["spin"]["surface"]["reason"]  # the ball is a couple of pixels across
+
+
+def test_window_reader_round_trip(tmp_path):
+    # frames written losslessly (FFV1) come back bit-exact, timed by the container at k / fps, only
+    # those inside the window
+    rng = np.random.default_rng(1)
+    frames = rng.integers(0, 255, (30, 32, 48), dtype=np.uint8)
+    path = tmp_path / "w.avi"
+    _write_clip(path, frames, 240.0)
+    got, times, index = read_window(path, 10 / 240 - 1e-4, 17 / 240 + 1e-4)
+    assert index.tolist() == list(range(10, 18))
+    assert np.allclose(times, index / 240.0, atol=1e-6)
+    assert all(np.array_equal(g, frames[k]) for g, k in zip(got, index))
+    sub, _, idx = read_window(path, 0.0, 1.0, indices=[3, 5, 8])
+    assert idx.tolist() == [3, 5, 8] and np.array_equal(sub[1], frames[5])
