@@ -106,7 +106,7 @@ def test_gyro_spin_is_read_from_the_surface_and_fused_with_the_flight(tmp_path):
     for k in ("rate_rpm", "transverse_rate_rpm", "transverse_axis", "axis", "gyro_observed"):
         assert k in S
     assert S["gyro_observed"] is True
-    rate_true = np.linalg.norm(world_spin) / RPM
+    rate_true = np.linalg.norm(world_spin) / RPM  # Source: the spin the independent renderer turned the ball by
     # targets of issue 18 at >= 240 fps and >= 10 px: rate within 3 %, axis within 5 degrees
     assert S["rate_rpm"] == pytest.approx(rate_true, rel=0.03)
     axis_err = math.degrees(math.acos(min(1.0, float(np.dot(S["axis"], world_spin / np.linalg.norm(world_spin))))))
@@ -168,6 +168,7 @@ def test_analyze_reads_the_whole_spin_from_a_rendered_high_speed_clip(tmp_path):
     S = rec["spin"]
     assert S["gyro_observed"] is True, S.get("surface")
     # rate and axis of the whole spin against the renderer's truth (targets of issue 18: 3 %, 5 degrees)
+    # Source: tests/surface_render.py, written apart from the estimator
     assert S["rate_rpm"] == pytest.approx(np.linalg.norm(world_spin) / RPM, rel=0.03)
     axis_err = math.degrees(math.acos(min(1.0, float(np.dot(S["axis"], world_spin / np.linalg.norm(world_spin))))))
     assert axis_err < 5.0
