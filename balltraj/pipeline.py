@@ -33,6 +33,7 @@ from .physics.air import AirConditions
 from .physics.balls import Ball
 from .physics.flight import FlightModel, check_launch, launch_state
 from .physics.reference import Deflection
+from .pipeline_spin import apply_surface_spin, read_flight_surface
 from .record.build import fit_record, simulate_record
 from .vision.pipeline import TrackResult, no_ball_error, track_clip
 from .vision.resting import clear_of_rest_spot, depth_anchor
@@ -106,6 +107,8 @@ class FlightResult:
 
     record: dict
     deflection: Deflection
+    #: the FlightFit the record was built from (None for a prediction)
+    fit: object = None
 
 
 @dataclass(frozen=True)
@@ -176,7 +179,7 @@ def fit_track(track: Track, settings: FitSettings) -> FlightResult:
         raise e.with_path(track.path) from None
     _refuse_impossible(rec, settings, track.path)
     rec["air_note"] = settings.air.source
-    return FlightResult(rec, d)
+    return FlightResult(rec, d, fit)
 
 
 def fit_observations(data: CameraObservations, settings: FitSettings) -> FlightResult:
@@ -206,7 +209,7 @@ def fit_observations(data: CameraObservations, settings: FitSettings) -> FlightR
         raise e.with_path(obs.path) from None
     _refuse_impossible(rec, settings, obs.path)
     rec["air_note"] = settings.air.source
-    return FlightResult(rec, d)
+    return FlightResult(rec, d, fit)
 
 
 def _refuse_impossible(rec: dict, settings: FitSettings, path: str) -> None:
@@ -269,10 +272,14 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
         keep = None if search.ball is None else clear_of_rest_spot(search.ball, f.uv, f.radius_px, f.streak_px)
         data = CameraObservations(_flight_observations(clip.path, f, cam.name, keep), [cam])
         try:
-            rec = fit_observations(data, apply_anchor(settings, anchor)).record
+            fitted = fit_observations(data, apply_anchor(settings, anchor))
         except BallTrajError as e:
             failures.append(f"flight {f.flight}: {e.one_line()}")
             continue
+        # the full spin, gyro part included, from the ball's surface where the clip shows it
+        rec = apply_surface_spin(fitted.record, fitted.fit,
+                                 read_flight_surface(clip.path, f, cam, capture_fps=clip.capture_fps),
+                                 model=settings.model())
         rec["source"] = f"{clip.path}#flight-{f.flight}"
         rec["clip"] = {"path": str(clip.path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
                        "end_reason": f.end_reason}

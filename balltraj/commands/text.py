@@ -58,6 +58,14 @@ def flight_summary(rec: dict, units: str = "metric") -> str:
         f"{_len(abs(D['vertical_m']), units, u('deflection', 'vertical_m'))} "
         f"{'up' if D['vertical_m'] >= 0 else 'down'} from spin, at x = {_far(D['target_x_m'], units)}",
     ]
+    if S.get("gyro_observed") and S.get("axis"):
+        lines.insert(5, _full_spin_line(S, U.get("spin") or {}))
+        ag = S.get("agreement")
+        if ag:
+            lines.insert(6, f"spin check      across the flight: surface {ag['surface_transverse_rpm']:.0f} rpm, "
+                            f"flight's curve {ag['flight_transverse_rpm']:.0f} rpm, "
+                            f"{ag['difference_sigmas']:.1f} sigma apart: "
+                            + ("they agree, combined" if ag["agrees"] else "they disagree, the surface is used alone"))
     if D.get("target_plane"):
         lines.append(f"target plane    {D['target_plane']}")
     if rec.get("air"):
@@ -72,6 +80,25 @@ def flight_summary(rec: dict, units: str = "metric") -> str:
     for w in rec.get("warnings", []):
         lines.append(f"warning: {w}")
     return "\n".join(lines)
+
+
+def _full_spin_line(S: dict, U: dict) -> str:
+    """The whole spin (gyro part included) with its sigmas, in one line."""
+    def pm(key, digits=0, scale=1.0, unit=""):
+        x, e = S.get(key), U.get(key)
+        if not isinstance(x, (int, float)):
+            return "—"
+        return f"{x * scale:.{digits}f}" + (f" ± {e * scale:.{digits}f}" if isinstance(e, (int, float)) else "") + unit
+
+    axis = f"axis ({', '.join(f'{a:+.2f}' for a in S['axis'])})"
+    if isinstance(U.get("axis_deg"), (int, float)):
+        axis += f" ± {U['axis_deg']:.1f} deg"
+    text = f"full spin       {pm('rate_rpm', unit=' rpm')}, {axis}"
+    if isinstance(S.get("gyro_rate_rpm"), (int, float)):
+        text += f"; gyro {pm('gyro_rate_rpm', unit=' rpm')} along the flight"
+    if isinstance(S.get("transverse_share"), (int, float)):
+        text += f", {pm('transverse_share', scale=100, unit=' %')} across it"
+    return text
 
 
 def flight_line(rec: dict, units: str = "metric") -> str:

@@ -78,6 +78,9 @@ def headline(rec: dict, units: str) -> list[tuple[str, str, str]]:
     L, S, D = rec["launch"], rec["spin"], rec["deflection"]
     words = (S.get("axis_in_words") or {}).get("text", "")
     gyro = "" if S["gyro_observed"] else "gyro spin (along the flight) cannot be seen from the path"
+    if S.get("agreement"):  # the whole spin read from the ball's surface
+        gyro = (f"whole spin {S['rate_rpm']:.0f} rpm, {S['gyro_rate_rpm']:+.0f} rpm of it along the flight, read from "
+                f"the ball's surface; {'agrees with' if S['agreement']['agrees'] else 'disagrees with'} the curve")
     az = L["azimuth_deg"]
     cards = [
         ("Launch speed", speed_text(L["speed_mps"], units, _sig(rec, "launch", "speed_mps")), ""),
