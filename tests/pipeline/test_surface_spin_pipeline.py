@@ -29,7 +29,7 @@ from balltraj.units import RPM
 from balltraj.vision.surface_window import read_window
 from balltraj.vision.track import TrackedFlight
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 SIDE = look_at_camera("side", [9, -12, 1.5], [9, 0, 1.4], 1400, (1280, 720))
 
 
