@@ -37,6 +37,7 @@ from .pipeline_spin import apply_surface_spin, read_flight_surface
 from .record.build import fit_record, simulate_record
 from .vision.pipeline import TrackResult, no_ball_error, track_clip
 from .vision.resting import clear_of_rest_spot, depth_anchor
+from .pipeline_rig import concatenate_observations as _concatenate, matching_flight as _matching_flight
 
 Progress = Optional[Callable[[int, Optional[int]], None]]
 
@@ -215,7 +216,9 @@ def fit_observations(data: CameraObservations, settings: FitSettings) -> FlightR
 def _refuse_impossible(rec: dict, settings: FitSettings, path: str) -> None:
     """A fit whose numbers no ball of this kind can have (feet read as metres, the wrong ball) is
     refused unless forced; a merely unusual one keeps its warning in the record."""
-    bad = [i["message"] for i in rec.get("plausibility", []) if i["severity"] == "impossible"]
+    spin_known = rec.get("spin", {}).get("observable", True)  # a spin lost in noise is not measured
+    bad = [i["message"] for i in rec.get("plausibility", [])
+           if i["severity"] == "impossible" and (spin_known or not i["message"].startswith("spin "))]
     if bad and not settings.force:
         raise InputError(f"the fitted flight is impossible for a {settings.ball.title.lower()}: {bad[0]}", path=path,
                          hint="check the units of the file, the ball and the camera; force to keep it", about="force")
@@ -342,33 +345,6 @@ def analyze_rig(clips: Sequence[ClipInput], settings: FitSettings, *, progress: 
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures),
                          path=str(clips[0].path), hint="check the rig file and that every camera saw the flight")
     return ClipResult(records, results[0], failures, results[1:])
-
-
-#: an offset is accepted when the two cameras' tracks triangulate to within this [px] (median)
-MATCH_REPROJECTION_PX = 6.0
-
-
-def _matching_flight(cam_a: Camera, f, cam_b: Camera, flights) -> tuple | None:
-    """The flight of camera b that is flight ``f`` of camera a (whose clock is the rig's), and b's
-    clock offset [s] (b's time + offset = a's time)."""
-    from .camera.triangulate import estimate_time_offset
-
-    best = None
-    for g in flights:
-        # coarse guess: the rig file's offset, or the two tracks starting together
-        for guess in {cam_b.time_offset_s, float(f.t[0] - g.t[0])}:
-            off, err = estimate_time_offset(cam_a, f.t, f.uv, cam_b, g.t, g.uv, guess_s=guess, search_s=0.3)
-            if err < MATCH_REPROJECTION_PX and (best is None or err < best[2]):
-                best = (g, off, err)
-    return None if best is None else best[:2]
-
-
-def _concatenate(parts, path: str):
-    from .formats import Observations
-
-    return Observations(path, np.concatenate([p.t for p in parts]), [c for p in parts for c in p.camera],
-                        np.concatenate([p.uv for p in parts]), np.concatenate([p.radius_px for p in parts]),
-                        np.concatenate([p.quality for p in parts]), None)
 
 
 def _flight_observations(path, f, camera_name: str, keep=None):

@@ -31,10 +31,12 @@ def test_round_trip_every_ball(ball):
     assert rec["launch"]["speed_mps"] == pytest.approx(sp_true, rel=5e-3)
     dt = _truth_deflection(truth, truth["extent"])
     sig = rec["uncertainty"]["deflection"]
-    # within 4 sigma (and the sigma itself is small: a few cm at most)
+    # within 4 sigma, and the sigma itself bounded: a few cm, or up to 30 % of the deflection for kicks
+    # and serves at high spin parameter (the drag only a spinning ball has is not seen by one flight,
+    # so the no-spin reference carries a prior on it, docs/method.md)
     for key, true in (("horizontal_m", dt.horizontal_m), ("vertical_m", dt.vertical_m)):
         assert abs(rec["deflection"][key] - true) < 4 * sig[key] + 2e-3, (key, rec["deflection"][key], true)
-        assert sig[key] < 0.05
+        assert sig[key] < max(0.05, 0.3 * abs(true))
     w_perp, _ = transverse_spin(truth["spin"], s0[3:])
     if rec["spin"]["observable"]:
         est = rec["spin"]["transverse_rate_rpm"]
