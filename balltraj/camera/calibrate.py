@@ -74,6 +74,34 @@ TEMPLATES: dict[str, dict] = {
             "bowler-stumps-middle": (0.0, 0.0, 0.0), "batter-stumps-middle": (20.12, 0.0, 0.0),
         },
     },
+    "basketball-hoop": {
+        "rule": "FIBA Official Basketball Rules, court and equipment (from memory): free-throw line 3.60 m long, "
+                "its far edge 5.80 m from the inner edge of the end line; restricted area 4.90 m wide; backboard "
+                "1.80 x 1.05 m, lower edge 2.90 m above the floor, front face 1.20 m inside the end line; ring "
+                "3.05 m high, 0.45 m inside diameter, its inner edge 0.15 m from the backboard",
+        "frame": "origin on the floor at the middle of the free-throw line; x toward the basket (the end line at "
+                 "x = 5.80 m); y to the left looking along x; z up",
+        "points": {
+            "free-throw-left": (0.0, 1.80, 0.0), "free-throw-right": (0.0, -1.80, 0.0),
+            "key-end-left": (5.80, 2.45, 0.0), "key-end-right": (5.80, -2.45, 0.0),
+            "board-bottom-left": (4.60, 0.90, 2.90), "board-bottom-right": (4.60, -0.90, 2.90),
+            "board-top-left": (4.60, 0.90, 3.95), "board-top-right": (4.60, -0.90, 3.95),
+            "ring-front": (4.60 - 0.15 - 0.45, 0.0, 3.05),
+        },
+    },
+    "volleyball-court": {
+        "rule": "FIVB Official Volleyball Rules, Rule 1 (from memory): court 18 x 9 m, centre line under the net, "
+                "attack lines 3 m from the centre line",
+        "frame": "origin at the middle of the near end line (the server's end); x toward the far end line; y to "
+                 "the left looking along x; z up",
+        "points": {
+            "near-end-left": (0.0, 4.5, 0.0), "near-end-right": (0.0, -4.5, 0.0),
+            "near-attack-left": (6.0, 4.5, 0.0), "near-attack-right": (6.0, -4.5, 0.0),
+            "centre-left": (9.0, 4.5, 0.0), "centre-right": (9.0, -4.5, 0.0),
+            "far-attack-left": (12.0, 4.5, 0.0), "far-attack-right": (12.0, -4.5, 0.0),
+            "far-end-left": (18.0, 4.5, 0.0), "far-end-right": (18.0, -4.5, 0.0),
+        },
+    },
 }
 
 # Where flights start and where they go, per template (world frame of the template). A zone is a
@@ -90,11 +118,14 @@ LAUNCH_ZONES: dict[str, dict[str, tuple[tuple[float, float, float], float, bool]
     "tennis-court": {"serve": ((-0.1, 0.0, 2.7), 0.6, False),
                      "baseline-rally": ((-1.0, 0.0, 1.0), 1.5, False)},
     "cricket-pitch": {"release": ((1.22, 0.0, 2.1), 0.5, False)},
+    "basketball-hoop": {"free-throw": ((0.3, 0.0, 2.2), 0.4, False)},
+    "volleyball-court": {"serve": ((-1.0, 0.0, 2.8), 1.0, False)},
 }
 # the point each template's flights head for (x grows toward it)
 TARGETS: dict[str, tuple[float, float, float]] = {
     "baseball-pitch": (18.44, 0.0, 0.0), "soccer-goal": (0.0, 0.0, 1.22),
     "tennis-court": (23.77, 0.0, 0.0), "cricket-pitch": (20.12, 0.0, 0.0),
+    "basketball-hoop": (4.60 - 0.15 - 0.225, 0.0, 3.05), "volleyball-court": (18.0, 0.0, 0.0),
 }
 
 

@@ -48,7 +48,7 @@ def calibrate_lens_cmd(
 @_command(calibrate_app, "scene")
 def calibrate_scene_cmd(
     landmarks: Optional[Path] = typer.Option(None, "--landmarks", help="CSV of landmarks: x,y,z,u,v[,name]."),
-    template: Optional[str] = typer.Option(None, "--template", help="Field markings: baseball-pitch, soccer-goal, "
+    template: Optional[str] = typer.Option(None, "--template", help="Field markings: baseball-pitch, soccer-goal, basketball-hoop, volleyball-court, "
                                            "tennis-court, cricket-pitch."),
     points: Optional[Path] = typer.Option(None, "--points", help="With --template: CSV name,u,v of the marks seen."),
     lens: Optional[Path] = typer.Option(None, "--lens", help="Lens file from `calibrate lens`."),

@@ -51,3 +51,21 @@ def test_kicker_side_camera_calibrates_in_the_flipped_frame():
 def test_unknown_zone_is_refused():
     with pytest.raises(InputError, match="no launch zone"):
         launch_zone("tennis-court", "penalty-mark")
+
+
+@pytest.mark.parametrize("name,centre,look", [("basketball-hoop", (-4.0, -7.0, 4.0), (3.0, 0.0, 1.5)),
+                                               ("volleyball-court", (-6.0, -9.0, 5.0), (9.0, 0.0, 0.0))])
+def test_new_templates_place_a_camera(name, centre, look):
+    # round trip: project the template's landmarks from a known camera, place the camera from them
+    import numpy as np
+
+    from balltraj.camera.model import look_at_camera
+
+    tpl = TEMPLATES[name]
+    cam = look_at_camera("c", centre, look, 900, (1280, 720))
+    names = list(tpl["points"])
+    world = np.array([tpl["points"][n] for n in names], float)
+    uv = cam.project(world)
+    res = calibrate_scene(world, uv, names, cam, (1280, 720), name="c", frame=tpl["frame"])
+    assert np.allclose(res.camera.centre, cam.centre, atol=1e-3)
+    assert res.rms_px < 1e-3
