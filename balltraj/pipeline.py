@@ -66,6 +66,8 @@ class FitSettings:
         "auto" (the data choose a rung of the aerodynamic ladder) or a rung name to pin it.
     wind_mps : tuple of 3 floats or None
         Constant wind [m/s] for the fit and the no-spin reference; None: still air.
+    start_source : str
+        What gave the start point, in words ("start hint", "ground contact", ...).
     force : bool
         Keep a fit whose numbers are physically impossible for the ball (a warning instead of
         an error).
@@ -81,6 +83,7 @@ class FitSettings:
     aero_model: str = "auto"
     wind_mps: tuple[float, float, float] | None = None
     force: bool = False
+    start_source: str = "start hint"
 
     def __post_init__(self):
         check_rung(self.aero_model)
@@ -171,16 +174,8 @@ def fit_track(track: Track, settings: FitSettings) -> FlightResult:
     FlightResult
         The record, with residuals in metres.
     """
-    model = settings.model()
-    try:
-        fit = fit_flight(model, track.t, track.xyz, track.sigma, settings.options())
-        rec, d = fit_record(fit, settings.ball, settings.air, model, target_x=settings.target_x_m,
-                            source=track.path)
-    except BallTrajError as e:
-        raise e.with_path(track.path) from None
-    _refuse_impossible(rec, settings, track.path)
-    rec["air_note"] = settings.air.source
-    return FlightResult(rec, d, fit)
+    return _fit_to_record(lambda model, options: fit_flight(model, track.t, track.xyz, track.sigma, options),
+                          track.path, settings)
 
 
 def fit_observations(data: CameraObservations, settings: FitSettings) -> FlightResult:
@@ -200,15 +195,21 @@ def fit_observations(data: CameraObservations, settings: FitSettings) -> FlightR
         The record, with residuals in pixels.
     """
     obs = data.observations
+    return _fit_to_record(lambda model, options: fit_flight_image(model, obs.t, obs.camera, obs.uv, list(data.cameras),
+                                                                  radius_px=obs.radius_px, options=options),
+                          obs.path, settings)
+
+
+def _fit_to_record(run_fit, path: str, settings: FitSettings) -> FlightResult:
+    """Run a fit (``run_fit(model, options)``), build its record, refuse the impossible."""
     model = settings.model()
     try:
-        fit = fit_flight_image(model, obs.t, obs.camera, obs.uv, list(data.cameras), radius_px=obs.radius_px,
-                               options=settings.options())
-        rec, d = fit_record(fit, settings.ball, settings.air, model, target_x=settings.target_x_m,
-                            source=obs.path)
+        fit = run_fit(model, settings.options())
+        rec, d = fit_record(fit, settings.ball, settings.air, model, target_x=settings.target_x_m, source=path,
+                            start_source=settings.start_source)
     except BallTrajError as e:
-        raise e.with_path(obs.path) from None
-    _refuse_impossible(rec, settings, obs.path)
+        raise e.with_path(path) from None
+    _refuse_impossible(rec, settings, path)
     rec["air_note"] = settings.air.source
     return FlightResult(rec, d, fit)
 
@@ -216,9 +217,7 @@ def fit_observations(data: CameraObservations, settings: FitSettings) -> FlightR
 def _refuse_impossible(rec: dict, settings: FitSettings, path: str) -> None:
     """A fit whose numbers no ball of this kind can have (feet read as metres, the wrong ball) is
     refused unless forced; a merely unusual one keeps its warning in the record."""
-    spin_known = rec.get("spin", {}).get("observable", True)  # a spin lost in noise is not measured
-    bad = [i["message"] for i in rec.get("plausibility", [])
-           if i["severity"] == "impossible" and (spin_known or not i["message"].startswith("spin "))]
+    bad = [i["message"] for i in rec.get("plausibility", []) if i["severity"] == "impossible"]
     if bad and not settings.force:
         raise InputError(f"the fitted flight is impossible for a {settings.ball.title.lower()}: {bad[0]}", path=path,
                          hint="check the units of the file, the ball and the camera; force to keep it", about="force")
@@ -275,7 +274,7 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
         keep = None if search.ball is None else clear_of_rest_spot(search.ball, f.uv, f.radius_px, f.streak_px)
         data = CameraObservations(_flight_observations(clip.path, f, cam.name, keep), [cam])
         try:
-            fitted = fit_observations(data, apply_anchor(settings, anchor))
+            fitted = fit_observations(data, replace(apply_anchor(settings, anchor), start_source=anchor.name))
         except BallTrajError as e:
             failures.append(f"flight {f.flight}: {e.one_line()}")
             continue
@@ -290,8 +289,6 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
                                "start_near_m": None if anchor.start_near_m is None else list(anchor.start_near_m),
                                "start_sigma_m": anchor.start_sigma_m, "resting_ball": search.reason,
                                "frames_dropped_at_rest_spot": 0 if keep is None else int((~keep).sum())}
-        rec["warnings"] = [w.replace("pinned only by the start hint, ", f"pinned by the {anchor.name}, ")
-                           if w.startswith("one camera:") else w for w in rec["warnings"]]
         records.append(rec)
     if not records:
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip.path),

@@ -46,8 +46,9 @@ def launch_aero(fit: FlightFit) -> dict:
             "drag_coefficient": cd, "lift_coefficient": cl}
 
 
-def flight_plausibility(fit: FlightFit, ball: Ball) -> list[tuple[str, str]]:
-    """:func:`..physics.plausibility.plausibility_issues` of a fit (track or image)."""
+def flight_plausibility(fit: FlightFit, ball: Ball, spin_measured: bool = True) -> list[tuple[str, str]]:
+    """:func:`..physics.plausibility.plausibility_issues` of a fit (track or image); ``spin_measured``
+    False when the fitted spin cannot be told from noise."""
     a = launch_aero(fit)
     free_fall = None
     if fit.residual_unit == "m" and (~fit.outliers).sum() >= 8:
@@ -58,10 +59,10 @@ def flight_plausibility(fit: FlightFit, ball: Ball) -> list[tuple[str, str]]:
     return plausibility_issues(ball, speed_mps=a["speed_mps"], spin_rpm=a["transverse_rate_rpm"],
                                drag_coefficient=a["drag_coefficient"], lift_coefficient=a["lift_coefficient"],
                                lift_bound=bound, free_fall_mps2=free_fall, gravity=fit.model.gravity,
-                               residual_unit=fit.residual_unit, misfit=fit.misfit)
+                               residual_unit=fit.residual_unit, misfit=fit.misfit, spin_measured=spin_measured)
 
 
-def fit_quality_record(fit: FlightFit, ball: Ball | None = None) -> dict:
+def fit_quality_record(fit: FlightFit, ball: Ball | None = None, spin_measured: bool = True) -> dict:
     """Extra flight-file keys: ``aero_model`` (rung, its fitted values, the alternatives' scores and
     why), ``misfit``, ``wind_mps``, ``uncertainty_method``, ``warnings`` and (given the ball)
     ``plausibility`` as a list of {"severity", "message"}."""
@@ -80,7 +81,7 @@ def fit_quality_record(fit: FlightFit, ball: Ball | None = None) -> dict:
         "warnings": list(fit.warnings),
     }
     if ball is not None:
-        out["plausibility"] = [{"severity": s, "message": msg} for s, msg in flight_plausibility(fit, ball)]
+        out["plausibility"] = [{"severity": s, "message": msg} for s, msg in flight_plausibility(fit, ball, spin_measured)]
     return _plain(out)
 
 

@@ -87,14 +87,16 @@ def _other_balls(ball: Ball, speed, spin_rpm, drag_k):
 def plausibility_issues(ball: Ball, *, speed_mps: float, spin_rpm: float | None = None,
                         drag_coefficient: float | None = None, lift_coefficient: float | None = None,
                         lift_bound: float | None = None, free_fall_mps2: float | None = None,
-                        gravity: float = 9.80665, residual_unit: str = "m", misfit: dict | None = None
-                        ) -> list[tuple[str, str]]:
+                        gravity: float = 9.80665, residual_unit: str = "m", misfit: dict | None = None,
+                        spin_measured: bool = True) -> list[tuple[str, str]]:
     """Issues with a fitted flight, each (severity, message naming the likely cause).
 
     Parameters
     ----------
     ball : the ball the user named
     speed_mps : fitted launch speed [m/s]; spin_rpm : transverse spin [rpm]
+    spin_measured : False when the fit cannot tell the spin from noise: then a spin beyond the ball
+        is a warning, not an impossible flight
     drag_coefficient, lift_coefficient : fitted C_D, C_L at launch [-]
     lift_bound : the ideal-flow bound on C_L at this spin parameter (above it is impossible)
     free_fall_mps2 : downward acceleration of a model-free (constant-acceleration) fit [m/s^2]
@@ -128,7 +130,7 @@ def plausibility_issues(ball: Ball, *, speed_mps: float, spin_rpm: float | None 
                            + (f"; it fits a {others[0]}" if others else "")))
         if spin_rpm is not None and math.isfinite(spin_rpm):
             if spin_rpm > r.impossible_spin_rpm:
-                issues.append(("impossible", f"spin {spin_rpm:.0f} rpm is far beyond any {title} (up to about "
+                issues.append(("impossible" if spin_measured else "warning", f"spin {spin_rpm:.0f} rpm is far beyond any {title} (up to about "
                                f"{r.spin_rpm:.0f} rpm): likely the wrong ball (its size and mass set the spin the "
                                "lift implies) or a tracking error"))
             elif spin_rpm > r.spin_rpm:

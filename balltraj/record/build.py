@@ -137,7 +137,8 @@ def simulate_record(ball: Ball, air: AirConditions, model: FlightModel, state0, 
 
 
 def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightModel, *,
-               target_x: float | None = None, source: str | None = None) -> tuple[dict, Deflection]:
+               target_x: float | None = None, source: str | None = None,
+               start_source: str = "start hint") -> tuple[dict, Deflection]:
     """The flight record of a fitted flight, and its :class:`Deflection` (the measured path and the
     no-spin reference, for the report and ``--path-csv``).
 
@@ -151,6 +152,8 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         Target plane x = X [m]; default: the last inlier's fitted x.
     source : str, optional
         Where the data came from (a file name), kept in the record.
+    start_source : str
+        What gave the fit's start point, in words (the user's hint, a ball at rest...).
     """
     if not fit.success:
         raise FitError(f"the fit failed: {fit.message}",
@@ -184,7 +187,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
     if free:
         spin["note"] += f"; the rate is inferred from the fitted lift through the {model.lift_model} model"
     warnings = _fit_warnings(fit, ball, model, val, rate, srate, spin["observable"])
-    baseline, notes = _baseline(fit, model, target_x)
+    baseline, notes = _baseline(fit, model, target_x, start_source)
     rec = {
         "schema": SCHEMA, "source": source or "fit", "tool_version": __version__, "ball": ball.name,
         "ball_properties": ball_dict(ball, model), "air": air.to_dict(),
@@ -199,7 +202,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "baseline": baseline,
         "warnings": warnings + notes,
     }
-    quality = fit_quality_record(fit, ball)  # the rung chosen and why, misfit, wind, plausibility
+    quality = fit_quality_record(fit, ball, spin_measured=spin["observable"])  # the rung chosen and why, misfit, wind, plausibility
     rec["warnings"] += [w for w in quality.pop("warnings") if w not in rec["warnings"]]
     rec["warnings"] += [i["message"] if i["severity"] == "warning" else f"{i['severity']}: {i['message']}"
                         for i in quality.get("plausibility", [])]
@@ -235,7 +238,7 @@ def _fit_warnings(fit: FlightFit, ball: Ball, model: FlightModel, val, rate: flo
     return warnings
 
 
-def _baseline(fit: FlightFit, model: FlightModel, target_x: float) -> tuple[dict, list[str]]:
+def _baseline(fit: FlightFit, model: FlightModel, target_x: float, start_source: str) -> tuple[dict, list[str]]:
     """The published constant-acceleration (nine-parameter) estimate on the same data, fitted in
     the same space as the full fit, and notes about what that space can and cannot pin."""
     inl = ~fit.outliers
@@ -254,8 +257,9 @@ def _baseline(fit: FlightFit, model: FlightModel, target_x: float) -> tuple[dict
     if len(fit.extra["cameras"]) == 1:
         name = fit.extra["cameras"][0]
         notes.append(
-            f"one camera: depth along its line of sight is pinned only by "
-            f"{'the start hint, ' if fit.options.start_near is not None else ''}the ball's apparent size and drag; "
+            f"one camera: depth along its line of sight is pinned "
+            f"{f'by the {start_source}, ' if fit.options.start_near is not None else 'only by '}the ball's apparent "
+            "size and drag; "
             f"launch depth uncertainty ± {depth.get(name, float('nan')):.2f} m. Speed, spin and deflection "
             "inherit it (see their uncertainties)")
     return baseline, notes
