@@ -37,7 +37,7 @@ class Ball:
     cl: float  # lift coefficient along spin x velocity
     colour: tuple = (235, 235, 235)  # BGR albedo x 255
     seam: tuple = (40, 40, 200)
-    cor: float = 0.7  # vertical coefficient of restitution at a bounce
+    cor: float = 0.7  # coefficient of restitution of the up-down speed at a bounce
     friction: float = 0.8  # horizontal speed kept at a bounce
 
 

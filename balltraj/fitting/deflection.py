@@ -35,7 +35,7 @@ def launch_speed(fit: FlightFit) -> tuple[float, float]:
 
 
 def fit_deflection(fit: FlightFit, model: FlightModel, target_x: float, step: float = 1e-5):
-    """Deflection (2,) [m] (sideways +y, vertical +z) at x = ``target_x`` and its covariance (2, 2).
+    """Deflection (2,) [m] (sideways +y, upward +z) at x = ``target_x`` and its covariance (2, 2).
 
     model : the catalogue model the fit started from (the rung's values come from the fit)
     Central differences of one batched integration over every unknown (delta method).

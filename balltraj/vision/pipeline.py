@@ -119,7 +119,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
 
 
 def _apparent_fall(f, ball_radius_m) -> float | None:
-    """Downward acceleration [m/s^2] of a flight on the image's vertical, scaled by the ball's size."""
+    """Downward acceleration [m/s^2] of a flight along the image's up-down axis, scaled by the ball's size."""
     if not ball_radius_m or len(f.t) < 8:
         return None
     a_px = 2.0 * np.polyfit(f.t - f.t.mean(), f.uv[:, 1], 2)[0]

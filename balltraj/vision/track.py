@@ -275,7 +275,7 @@ class Tracker:
         return z <= 0.5 + dz
 
     def _split_at_bounce(self, tr: _Track) -> list[_Track]:
-        """Split tr where its up-down image motion reverses abruptly (a kink: the vertical velocity
+        """Split tr where its up-down image motion reverses abruptly (a kink: the up-down velocity
         just before and just after differ far beyond what one smooth curve through both sides
         allows) and, with a camera, the ball is near the ground there. A path curved by lift bends
         smoothly and stays one flight."""
@@ -321,7 +321,7 @@ class Tracker:
         return [a] + self._split_at_bounce(b)
 
     def apparent_fall(self, tr: _Track) -> float | None:
-        """Downward acceleration [m/s^2] of the track on the image's vertical, with the scale
+        """Downward acceleration [m/s^2] of the track along the image's up-down axis, with the scale
         (metres per pixel) from the ball's apparent size; None without a ball size or when the
         track is short. A real flight gives about g; a time-stretched slow-motion file g / s^2."""
         if not self.ball_radius_m or len(tr.points) < 8:

@@ -16,7 +16,7 @@ from ..camera.model import Camera, rotation_vector
 from ..errors import InputError
 
 # Templates whose frame points against the usual direction of play would be turned half a turn
-# about the vertical through their origin, (x, y, z) -> (-x, -y, z), so the ball moves along +x as
+# about the upright axis through their origin, (x, y, z) -> (-x, -y, z), so the ball moves along +x as
 # the flight contract wants (the deflection is taken at a plane x = X ahead of the launch). Every
 # template's frame now has x toward the target (tests/camera/test_templates.py), so none is turned by
 # default; the page's checkbox still turns a frame for play in the other direction.
@@ -99,7 +99,7 @@ def calibrate_clicks(template: str, clicks: dict, image_size, name: str = "camer
     cam, frame = res.camera, res.frame
     if turned:
         cam = turn_camera(cam, HALF_TURN)
-        frame = (frame + "; then turned half a turn about the vertical through the origin so play runs along +x "
+        frame = (frame + "; then turned half a turn about the upright axis through the origin so play runs along +x "
                  "(x = -original x, y = -original y)")
     return ClickCalibration(cam, res.errors_px, res.rms_px, frame, turned)
 

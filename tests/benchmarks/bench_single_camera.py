@@ -312,7 +312,7 @@ def main():
              f"bench_single_camera.py {n}`", "",
              "| camera | depth from | resting ball found | fits converged | launch speed error % median (max) "
              "| deflection error cm median (max) | deflection cm median | one-sigma coverage: all (speed / horizontal / "
-             "vertical deflection) |",
+             "up-down deflection) |",
              "|---|---|---|---|---|---|---|---|"]
     for label, e in rows.items():
         for mode, name in (("rest", "ball at rest (ground contact)"), ("none", "nothing (apparent size)")):

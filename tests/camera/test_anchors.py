@@ -23,7 +23,7 @@ def test_round_trip_through_distortion(rng):
 def test_pinhole_looking_down_closed_form():
     # Source: closed form - a pinhole at height H looking straight down sees (u - cx, v - cy) at ground
     # offset (H - z) (u - cx) / f; its one-sigma per axis is (H - z) sigma_px / f; the plane height error
-    # moves the point only along the (vertical) optical axis
+    # moves the point only along the (straight-down) optical axis
     H, f, z = 10.0, 1000.0, 0.5
     R = np.array([[1.0, 0, 0], [0, -1.0, 0], [0, 0, -1.0]])  # camera x = world x, camera y = -world y, z down
     from balltraj.camera.model import rotation_vector
