@@ -16,7 +16,7 @@ from ..physics.flight import FlightModel, FlightParameters, integrate, velocity_
 from ..physics.reference import batch_deflections
 from ..units import RPM
 from .baseline import fit_constant_acceleration
-from .deflection import spin_drag_effect
+from .deflection import nuisance_share
 from .flight_fit import FlightFit, batch_flights, typical_scales
 
 DERIVED = ["speed_mps", "elevation_deg", "azimuth_deg", "transverse_rate_rpm", "axis_angle_deg",
@@ -119,7 +119,8 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
     central differences, one batched integration for all deflections). Each perturbed flight is
     flown with its own values of the chosen rung's unknowns (drag and lift shape, spin decay,
     wind); the part of the drag that only a spinning ball has, which one flight cannot show, adds
-    a prior to the deflection (:func:`.deflection.spin_drag_effect`)."""
+    a prior to the deflection (:mod:`.nuisance`; the part of the deflection's sigma each such prior
+    gives is in ``deflection_from_priors_m``)."""
     p = fit.params
     k = len(p)
     typ = typical_scales(fit.options)
@@ -136,15 +137,13 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
     diff[:, 4] = _wrap_deg(diff[:, 4])
     G = (diff / (2 * h[:, None])).T
     cov = G @ fit.covariance @ G.T
-    if "drag_spin_slope" not in fit.names:
-        dd = spin_drag_effect(fit, target_x)
-        if dd is not None:
-            cov[-2:, -2:] += np.outer(dd, dd)
+    share = nuisance_share(fit, G[-2:])
     sig = np.sqrt(np.clip(np.diag(cov), 0, None))
     names = DERIVED + ["deflection_horizontal_m", "deflection_vertical_m"]
     out = dict(zip(names, sig))
     corr = cov[-2, -1] / (sig[-2] * sig[-1]) if sig[-2] > 0 and sig[-1] > 0 else 0.0
     out["deflection_correlation"] = float(corr)
+    out["deflection_from_priors_m"] = {n: [float(x) for x in v] for n, v in share.items()}
     return out, cov[-2:, -2:]
 
 

@@ -13,6 +13,7 @@ import numpy as np
 from ..physics.aero import lift_coefficient
 from .ladder import RUNG_PARENT, RUNG_SOURCES, RUNGS, information_criteria, rung_chain, rung_names
 from .misfit import hac_covariance, misfit_summary
+from .nuisance import augment, marginalise, nuisance_priors
 
 
 CONTINUATION_NFEV = 60
@@ -30,6 +31,7 @@ class Climbed:
     misfit: dict
     warnings: list
     nfev: int
+    nuisance: dict = None  # see :mod:`.nuisance`
 
 
 def _neutral(name: str, prob, p) -> float:
@@ -163,7 +165,13 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
                   for d in done],
     }
     choice["reason"] = _reason(choice, done, target, crit_name)
-    return Climbed(prob, res, rung, cov, method, choice, mis, warnings, nfev)
+    nuisance = marginalise(new_problem, prob, res, nuisance_priors(tuple(prob.rung), options))
+    if nuisance:
+        prob, p_aug, cov = augment(prob, res, cov, nuisance)
+        res = _replace(res, p=p_aug)
+        method += ("; the deflection's no-spin reference carries priors on what one flight cannot tell ("
+                   + ", ".join(nuisance["names"]) + ")")
+    return Climbed(prob, res, rung, cov, method, choice, mis, warnings, nfev, nuisance)
 
 
 SIBLING_PARENT = "drag_speed"

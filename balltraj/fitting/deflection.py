@@ -2,27 +2,19 @@
 rung's model (drag and lift shape, spin decay, wind) and the fit's covariance. Pure computation.
 
 The deflection follows docs/architecture.md (conventions): the fitted path at the plane x = X minus the no-spin
-reference (same launch, same drag law at zero spin, same wind).
+reference (same launch, same drag law at zero spin, same wind). What one flight cannot tell about
+that reference (the drag share of the spin; an unknown wind) is among the fit's unknowns, with its
+prior (:mod:`.nuisance`), so the delta method carries it.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-import math
-
-from ..physics.flight import FlightModel, FlightParameters, fly
+from ..physics.flight import FlightModel
 from ..physics.reference import batch_deflections
 from .flight_fit import batch_flights
 from .results import FlightFit
-
-
-# How much the drag of the spinning ball exceeds that of the same ball without spin is not seen by
-# one spinning flight (the fit measures only the total), yet the no-spin reference needs it. Prior
-# on the slope dC_D/dS: 0 +/- 0.25. Source: Stepanek 1988's tennis law rises from 0.508 at S = 0 to
-# 0.660 at S = 0.3 (slope about 0.5, computed from its formula); baseball trajectory models use a
-# small linear spin term (from memory); Smits & Smith 1994 report a stronger S dependence for golf.
-SPIN_DRAG_SLOPE_SIGMA = 0.25
 
 
 def launch_speed(fit: FlightFit) -> tuple[float, float]:
@@ -49,29 +41,22 @@ def fit_deflection(fit: FlightFit, model: FlightModel, target_x: float, step: fl
     d = batch_deflections(bm, fit.t0, states, params, target_x)
     G = ((d[1:k + 1] - d[k + 1:]) / (2 * h[:, None])).T
     cov = G @ fit.covariance @ G.T
-    if "drag_spin_slope" not in fit.names:
-        dd = spin_drag_effect(fit, target_x)
-        if dd is not None:
-            cov = cov + np.outer(dd, dd)
     return d[0], cov
 
 
-def spin_drag_effect(fit: FlightFit, target_x: float):
-    """Change (2,) of the deflection [m] if the no-spin reference had SPIN_DRAG_SLOPE_SIGMA * S0
-    less drag coefficient than the fitted (spinning) flight (None when it cannot be evaluated)."""
-    m = fit.model
-    if m is None or math.isfinite(fit.lift_override):
-        return None
-    v = fit.state0[3:] - np.asarray(m.wind_mps, float)
-    speed = float(np.linalg.norm(v))
-    s0 = m.radius_m * float(np.linalg.norm(fit.spin)) / speed
-    cd0 = float(np.ravel(m.drag(np.array([m.reynolds(speed)]), np.array([s0])))[0]) * fit.drag_scale
-    if not (cd0 > 0 and s0 > 0):
-        return None
-    scale = fit.drag_scale * np.array([1.0, max(0.05, 1.0 - SPIN_DRAG_SLOPE_SIGMA * s0 / cd0)])
-    prm = FlightParameters.make(2, spin=np.zeros(3), drag_scale=scale)
-    tr = fly(m, fit.t0, np.stack([fit.state0, fit.state0]), prm, stop_x=target_x, ground_z=None, max_step=0.01)
-    _, sc = tr.first_crossing(0, target_x, +1)
-    if not np.all(np.isfinite(sc)):
-        return None
-    return -(sc[1, 1:3] - sc[0, 1:3])
+def nuisance_share(fit: FlightFit, G) -> dict:
+    """How much of a derived quantity's uncertainty comes from each nuisance unknown (:mod:`.nuisance`).
+
+    G : ndarray, shape (q, k), the quantities' derivatives over ``fit.params``
+    Returns name -> ndarray (q,), the one-sigma part [the quantities' units] from that nuisance's
+    posterior spread along its compensated direction (D = G_theta A + G_b).
+    """
+    nu = fit.nuisance or {}
+    names = tuple(nu.get("names", ()))
+    if not names:
+        return {}
+    b = [fit.names.index(n) for n in names]
+    th = [i for i in range(len(fit.names)) if i not in b]
+    D = np.asarray(G)[:, th] @ np.asarray(nu["compensation"]) + np.asarray(G)[:, b]
+    sd = np.sqrt(np.clip(np.diag(np.asarray(nu["covariance"])), 0, None))
+    return {n: np.abs(D[:, j]) * sd[j] for j, n in enumerate(names)}

@@ -429,20 +429,18 @@ def common_fields(prob, res, c, basis, t, options) -> dict:
         lift_override=float(params.lift_override[0]), basis=basis, t=t, sigma=prob.sigma.copy(),
         outliers=~prob.mask.copy(), residual_scale=math.sqrt(res.s2), nfev=c.nfev, options=options,
         undetermined=res.undetermined, model=fmodel, base_model=prob.model, rung=c.rung, spin_decay_s=tau, model_choice=c.model_choice,
-        misfit=c.misfit, warnings=tuple(c.warnings), covariance_method=c.covariance_method)
+        misfit=c.misfit, warnings=tuple(c.warnings), covariance_method=c.covariance_method,
+        nuisance={k: v for k, v in (c.nuisance or {}).items() if k != "problem"})
 
 
-def batch_unpack(fit: FlightFit, model: FlightModel, P):
-    """States and flight parameters for parameter sets P (B, k) in the layout of ``fit``."""
-    return batch_flights(fit, model, P)[1:]
-
-
-def batch_flights(fit: FlightFit, model: FlightModel, P):
+def batch_flights(fit: FlightFit, model: FlightModel, P, extra_rung: tuple = ()):
     """(model, states, params) for parameter sets P (B, k) in the layout of ``fit``: the model
     carries each set's rung values (drag and lift shape, wind) as arrays. ``model`` is the
     catalogue model the fit started from (``fit.base_model`` is used when the fit carries it, so
-    passing ``fit.model`` is safe too)."""
+    passing ``fit.model`` is safe too). ``extra_rung``: further unknowns whose columns follow the
+    rung's in P (the nuisance unknowns of :mod:`.nuisance`)."""
     rung = () if fit.options.legacy else tuple(n for n in fit.names if n in RUNG_TYPICAL)
+    rung = rung + tuple(extra_rung)
     base = fit.base_model if fit.base_model is not None else model
     prob = _Problem(base, fit.t0, np.ones(1), fit.basis, replace(fit.options, wind_mps=None), rung)
     return prob.unpack_full(np.atleast_2d(P))

@@ -56,7 +56,8 @@ RUNG_ADDS = {
     "wind": ("wind_x", "wind_y"),
 }
 TYPICAL = {"log_re_shift": 0.1, "log_drag_scale": 0.1, "drag_re_exponent": 0.1, "drag_spin_slope": 0.1, "lift_exponent": 0.3,
-           "spin_decay_rate": 0.05, "wind_x": 1.0, "wind_y": 1.0}
+           "spin_decay_rate": 0.05, "wind_x": 1.0, "wind_y": 1.0,
+           "drag_spin_split": 0.1}  # the last is no rung's: the spin-drag nuisance (fitting/nuisance.py)
 RUNG_SOURCES = {
     "catalogue": "the ball's catalogue laws",
     "drag_scale": "fitted drag scale (Nathan 2008; Kagan & Nathan 2014)",
@@ -120,15 +121,17 @@ def batch_model(base: FlightModel, names, values, launch_speed, spin_magnitude) 
     if not col:
         return base
     changes = {}
-    if "drag_re_exponent" in col or "drag_spin_slope" in col or "log_re_shift" in col:
+    s0 = base.radius_m * np.asarray(spin_magnitude, float) / np.maximum(np.asarray(launch_speed, float), 1e-6)
+    if {"drag_re_exponent", "drag_spin_slope", "log_re_shift", "drag_spin_split"} & set(col):
         re0 = base.air_density * base.diameter_m / base.air_viscosity * np.asarray(launch_speed, float)
+        split = col.get("drag_spin_split", 0.0)  # a share split * S0 of the launch drag moved to the spin
         changes["drag_model"] = "modified"
         changes["drag_params"] = {"base": base.drag_model, "base_params": dict(base.drag_params), "scale": 1.0,
                                   "re_exponent": col.get("drag_re_exponent", 0.0), "reference_re": re0,
-                                  "spin_slope": col.get("drag_spin_slope", 0.0),
-                                  "re_shift": np.exp(col["log_re_shift"]) if "log_re_shift" in col else 1.0}
+                                  "spin_slope": col.get("drag_spin_slope", 0.0) + split,
+                                  "re_shift": np.exp(col["log_re_shift"]) if "log_re_shift" in col else 1.0,
+                                  "offset": -split * s0}
     if "lift_exponent" in col:
-        s0 = base.radius_m * np.asarray(spin_magnitude, float) / np.maximum(np.asarray(launch_speed, float), 1e-6)
         changes["lift_model"] = "power_about"
         changes["lift_params"] = {"base": base.lift_model, "base_params": dict(base.lift_params),
                                   "reference_s": s0, "exponent": col["lift_exponent"]}

@@ -28,6 +28,8 @@ class FitOptions:
     fit_drag, free_lift : the older single-model options (a fitted drag scale; a free constant
         lift coefficient); either one pins the fit to that model and skips the ladder
     max_nfev : evaluation budget of each least-squares pass (far above what converging fits use)
+    wind_sigma_mps : one-sigma uncertainty [m/s] of each horizontal component of ``wind_mps`` (or of still
+        air): with it, the deflection's uncertainty carries what an unknown wind could do (:mod:`.nuisance`)
     image_ladder : let "auto" climb the ladder in image fits too (off by default: from one camera
         the depth trades off against the aerodynamics, and richer rungs soak up depth error; the
         image fit then stays on the catalogue rung unless a rung is pinned)
@@ -45,6 +47,7 @@ class FitOptions:
     wind_mps: tuple[float, float, float] | None = None
     image_ladder: bool = False
     criterion: str = "aicc"  # or "bic"; AICc suits a model set that never holds the true law (Burnham & Anderson 2002)
+    wind_sigma_mps: float = 0.0  # how well the user knows each horizontal wind component [m/s]; 0: as given (still air)
 
     @property
     def legacy(self) -> bool:
@@ -85,6 +88,7 @@ class FlightFit:
     misfit: dict = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
     covariance_method: str = "linearised (Jacobian) covariance scaled by the residual variance"
+    nuisance: dict = field(default_factory=dict)  # unknowns one flight cannot tell, marginalised (.nuisance)
 
     residual_unit = "m"
 

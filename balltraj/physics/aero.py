@@ -132,7 +132,7 @@ _DRAG: dict[str, AeroModel] = {
         AeroModel("spin_linear", "drag", drag_spin_linear, (0, np.inf), (0, 1.0), ("value", "spin_slope"),
                   "C_D = C_D0 + slope*S, the linear spin term of baseball trajectory models (from memory)"),
         AeroModel("modified", "drag", drag_modified, (0, np.inf), (0, np.inf),
-                  ("base", "base_params", "scale", "re_exponent", "reference_re", "spin_slope", "re_shift"),
+                  ("base", "base_params", "scale", "re_exponent", "reference_re", "spin_slope", "re_shift", "offset"),
                   "a base law times a scale and a power of Re, plus a linear spin term (the fit's ladder)"),
     ]
 }

@@ -97,10 +97,12 @@ def drag_spin_linear(reynolds, spin_parameter=0.0, *, value=0.30, spin_slope=0.3
 
 
 def drag_modified(reynolds, spin_parameter=0.0, *, base="constant", base_params=None, scale=1.0,
-                  re_exponent=0.0, reference_re=1.5e5, spin_slope=0.0, re_shift=1.0):
+                  re_exponent=0.0, reference_re=1.5e5, spin_slope=0.0, re_shift=1.0, offset=0.0):
     """A base drag law modified the way the fit's ladder does (common modelling forms):
 
-    C_D = scale * C_D,base(re_shift Re, S) * (Re / Re_ref)^re_exponent + spin_slope * S,
+    C_D = scale * C_D,base(re_shift Re, S) * (Re / Re_ref)^re_exponent + spin_slope * S + offset,
+    never below zero. (``offset`` = -b S_0 with ``spin_slope`` = b moves a share b S_0 of the drag at
+    launch to the spin without changing it: the spin-drag nuisance of balltraj.fitting.nuisance.)
 
     with Re / Re_ref held within 0.5-2 (a local law; beyond it the factor stays constant).
 
@@ -119,7 +121,8 @@ def drag_modified(reynolds, spin_parameter=0.0, *, base="constant", base_params=
     # the power law is a local description: held constant beyond a factor 2 from Re_ref, so that a fitted
     # exponent cannot make the drag blow up on a slower (e.g. no-spin reference) path
     ratio = np.clip(np.maximum(Re, 1.0) / reference_re, 0.5, 2.0)
-    return scale * cd * ratio**re_exponent + spin_slope * np.abs(np.asarray(spin_parameter, dtype=float))
+    out = scale * cd * ratio**re_exponent + spin_slope * np.abs(np.asarray(spin_parameter, dtype=float)) + offset
+    return np.maximum(out, 0.0)
 
 
 def lift_power_about(spin_parameter, reynolds=None, *, base="sawicki2003", base_params=None, reference_s=0.1,

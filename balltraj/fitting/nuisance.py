@@ -1,0 +1,131 @@
+"""What one flight cannot tell, and what it does to the deflection: nuisance unknowns with priors,
+marginalised at the fitted solution. Pure computation.
+
+Two things set the no-spin reference (and so the deflection) yet are nearly invisible in one
+spinning flight:
+
+- **the drag that only the spinning ball has.** A fit measures the total drag along the flight; how
+  much of it the spin adds (dC_D/dS) is not seen: with a constant spin, S = r omega / v is a
+  function of the speed alone, so a spin term b S is exactly a speed-dependent drag of a ball that
+  spins (docs/validation.md, "What one flight cannot tell"). The no-spin reference needs the drag
+  without it.
+- **a wind the user did not give.** With lift proportional to S, the sideways push of a crosswind
+  on the drag, K C_D |v| w_perp, equals the Magnus push of a constant sidespin omega = C_D w / r:
+  the two differ only by a factor cos(elevation) and second-order terms.
+
+The spin's share is the unknown ``drag_spin_split`` b: C_D -> C_D + b (S - S_0), with S_0 the spin
+parameter at launch, so the spinning ball's drag at launch stays what the rung fitted while the no-spin
+reference gets b S_0 less (the drag of a ball that does not spin); the wind is ``wind_x``, ``wind_y``.
+Each is a nuisance unknown b with a Gaussian prior (mean 0). At the fitted solution theta, with
+residual Jacobians J_theta (M, k) and J_b (M, m) and residual variance s2, the linearised
+marginal posterior of b is (Bayesian linear least squares; e.g. Tarantola 2005, ch. 3)
+
+    A = -(J_theta^T J_theta)^-1 J_theta^T J_b           (how theta compensates a change of b)
+    J_perp = J_b + J_theta A                             (what of b the data can see)
+    Sigma_b = (Sigma_0^-1 + J_perp^T J_perp / s2)^-1,   mu_b = -Sigma_b J_perp^T r / s2
+
+and a quantity q(theta, b) changes by D = dq/dtheta A + dq/db per unit b along the compensated
+direction, so it gains the variance D Sigma_b D^T (:func:`.deflection.nuisance_deflection`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+# Prior on the drag slope with spin, dC_D/dS: mean 0, sigma 0.25.
+# Mean 0: free-flight measurements on new tennis balls found C_D = 0.507 +/- 0.024 "not varying with
+# spin or speed" (Cross & Lindsey 2014, Sports Eng.; docs/references.md 2.3), and spinning and
+# non-spinning soccer balls have the same low supercritical C_D (Asai et al. 2007, abstract).
+# Sigma 0.25: the largest published slope, Stepanek's 1988 wind-tunnel law for tennis balls (about
+# 0.5 per unit S, computed from its formula: 0.508 at S = 0, 0.564 at 0.1, 0.662 at 0.3), is at two
+# sigma; the linear spin term of baseball trajectory models (about 0.3 per unit S at pitch speeds)
+# and the stronger S dependence Smits & Smith 1994 report for golf balls (0.18, from memory) lie
+# within.
+SPIN_DRAG_SLOPE_SIGMA = 0.25
+
+
+def nuisance_priors(rung: tuple, options) -> dict:
+    """Nuisance unknowns (name -> prior sigma) of a fit whose rung fits the unknowns ``rung``.
+
+    The spin-drag slope always (unless the rung fits it, or the older single-model options are
+    used); the horizontal wind components when the user gave a wind uncertainty
+    (``options.wind_sigma_mps`` > 0) and the rung does not fit the wind."""
+    if options.legacy:
+        return {}
+    out = {}
+    if "drag_spin_slope" not in rung:
+        out["drag_spin_split"] = SPIN_DRAG_SLOPE_SIGMA
+    ws = float(getattr(options, "wind_sigma_mps", 0.0) or 0.0)
+    if ws > 0 and "wind_x" not in rung:
+        out["wind_x"] = ws
+        out["wind_y"] = ws
+    return out
+
+
+def insert_nuisance(p, n_phys: int, values) -> np.ndarray:
+    """Parameter rows (B, k) with nuisance values (B, m) inserted after the rung unknowns."""
+    p = np.atleast_2d(p)
+    v = np.atleast_2d(values)
+    return np.concatenate([p[:, :n_phys], v, p[:, n_phys:]], axis=1)
+
+
+def marginalise(new_problem, prob, res, priors: dict) -> dict:
+    """The nuisance record of a solved rung: names, prior sigmas, compensation A (k, m), posterior
+    covariance Sigma_b (m, m) and mean mu_b (m,) (see the module docstring), and the sigma the data
+    alone would give. Empty when there is nothing to marginalise or the Jacobians are not finite."""
+    if not priors or res.jacobian is None or not np.all(np.isfinite(res.covariance)):
+        return {}
+    names = tuple(priors)
+    sig0 = np.array([priors[n] for n in names], float)
+    aug = new_problem(tuple(prob.rung) + names)
+    aug.sigma, aug.mask, aug.back_s = prob.sigma.copy(), prob.mask.copy(), prob.back_s
+    m = len(names)
+    h = 1e-3 * sig0
+    base = insert_nuisance(res.p, prob.n_phys, np.zeros(m))[0]
+    E = np.eye(len(base))[prob.n_phys:prob.n_phys + m] * h[:, None]
+    R = aug.residuals(np.vstack([base + E, base - E]))
+    Jb = ((R[:m] - R[m:]) / (2 * h[:, None])).T
+    Jt = res.jacobian
+    r = res.residuals
+    if Jb.shape[0] != Jt.shape[0] or not np.all(np.isfinite(Jb)):
+        return {}
+    A = -np.linalg.lstsq(Jt, Jb, rcond=None)[0]
+    Jp = Jb + Jt @ A
+    s2 = max(float(res.s2), 1e-300)
+    cov = np.linalg.inv(np.diag(1.0 / sig0**2) + Jp.T @ Jp / s2)
+    mean = -cov @ (Jp.T @ r) / s2
+    data_sigma = np.sqrt(np.clip(np.diag(np.linalg.pinv(Jp.T @ Jp / s2)), 0, None))
+    # the posterior mean is used only where the track tells more than the prior (data sigma below the
+    # prior's); elsewhere the pull comes from a direction the track barely sees, where whatever the rung
+    # misses leaks in (on a crosswind drive its wind means even had the wrong sign), so the prior mean stays
+    used = np.where(data_sigma < sig0, mean, 0.0)
+    return {"names": names, "prior_sigma": sig0, "compensation": A, "covariance": cov, "mean": mean,
+            "used_mean": used, "data_sigma": data_sigma, "problem": aug}
+
+
+def augment(prob, res, covariance, nuisance: dict):
+    """The chosen rung's solution with its nuisance unknowns joined: (problem, parameters, covariance).
+
+    Parameters are theta + A mu_b (mu_b as used: see :func:`marginalise`) followed (after the rung's unknowns) by mu_b; the covariance is the
+    joint one, [[C + A S A^T, A S], [S A^T, S]] with S = Sigma_b, so that the delta method of any
+    derived quantity (the deflection) carries D S D^T with D = dq/dtheta A + dq/db."""
+    if not nuisance:
+        return prob, res.p, covariance
+    A, S, mu = nuisance["compensation"], nuisance["covariance"], nuisance["used_mean"]
+    k, m = A.shape
+    n = prob.n_phys
+    p = insert_nuisance(res.p + A @ mu, n, mu)[0]
+    joint = np.block([[covariance + A @ S @ A.T, A @ S], [S @ A.T, S]])
+    order = np.r_[0:n, k:k + m, n:k]  # nuisance columns after the rung's unknowns
+    return nuisance["problem"], p, joint[np.ix_(order, order)]
+
+
+def record(nuisance: dict) -> dict:
+    """JSON-ready summary: per nuisance its prior sigma, the sigma the data alone give, and the
+    posterior mean and sigma."""
+    if not nuisance:
+        return {}
+    return {n: {"prior_sigma": float(nuisance["prior_sigma"][i]), "data_only_sigma": float(nuisance["data_sigma"][i]),
+                "posterior_mean": float(nuisance["mean"][i]), "used_value": float(nuisance["used_mean"][i]),
+                "posterior_sigma": float(np.sqrt(nuisance["covariance"][i, i]))}
+            for i, n in enumerate(nuisance["names"])}
