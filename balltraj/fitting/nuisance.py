@@ -92,9 +92,14 @@ def marginalise(new_problem, prob, res, priors: dict) -> dict:
     A = -np.linalg.lstsq(Jt, Jb, rcond=None)[0]
     Jp = Jb + Jt @ A
     s2 = max(float(res.s2), 1e-300)
-    cov = np.linalg.inv(np.diag(1.0 / sig0**2) + Jp.T @ Jp / s2)
-    mean = -cov @ (Jp.T @ r) / s2
     data_sigma = np.sqrt(np.clip(np.diag(np.linalg.pinv(Jp.T @ Jp / s2)), 0, None))
+    if "drag_re_exponent" in prob.rung:
+        cov = np.linalg.inv(np.diag(1.0 / sig0**2) + Jp.T @ Jp / s2)
+        mean = -cov @ (Jp.T @ r) / s2
+    else:
+        # a rung whose drag cannot vary with speed would let b stand in for the speed dependence it lacks
+        # (b (S - S0) changes the drag as the ball slows): the track's hold on b is then an artefact
+        cov, mean = np.diag(sig0**2), np.zeros(m)
     # the posterior mean is used only where the track tells more than the prior (data sigma below the
     # prior's); elsewhere the pull comes from a direction the track barely sees, where whatever the rung
     # misses leaks in (on a crosswind drive its wind means even had the wrong sign), so the prior mean stays

@@ -13,6 +13,7 @@ from ..physics.plausibility import plausibility_issues
 from ..physics.potential_flow import ideal_lift_bound
 from ..units import RPM
 from .baseline import fit_constant_acceleration
+from .nuisance import record as nuisance_record
 from .results import FlightFit
 
 
@@ -65,7 +66,8 @@ def flight_plausibility(fit: FlightFit, ball: Ball, spin_measured: bool = True) 
 def fit_quality_record(fit: FlightFit, ball: Ball | None = None, spin_measured: bool = True) -> dict:
     """Extra flight-file keys: ``aero_model`` (rung, its fitted values, the alternatives' scores and
     why), ``misfit``, ``wind_mps``, ``uncertainty_method``, ``warnings`` and (given the ball)
-    ``plausibility`` as a list of {"severity", "message"}."""
+    ``plausibility`` as a list of {"severity", "message"}; ``priors``: the nuisance unknowns one flight
+    cannot tell, with prior, data-only and posterior sigmas (:mod:`.nuisance`)."""
     m = fit.model
     fitted = {n: float(v) for n, v in zip(fit.names, fit.params) if n not in
               ("x0", "y0", "z0", "vx0", "vy0", "vz0", "spin_1", "spin_2", "lift_1", "lift_2")}
@@ -79,6 +81,7 @@ def fit_quality_record(fit: FlightFit, ball: Ball | None = None, spin_measured: 
         "wind_mps": [float(w) for w in m.wind_mps],
         "uncertainty_method": fit.covariance_method,
         "warnings": list(fit.warnings),
+        "priors": nuisance_record(fit.nuisance),
     }
     if ball is not None:
         out["plausibility"] = [{"severity": s, "message": msg} for s, msg in flight_plausibility(fit, ball, spin_measured)]

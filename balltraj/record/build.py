@@ -186,7 +186,7 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
     spin["axis_in_words"] = spin_axis_words(spin["transverse_axis"], v0)
     if free:
         spin["note"] += f"; the rate is inferred from the fitted lift through the {model.lift_model} model"
-    warnings = _fit_warnings(fit, ball, model, val, rate, srate, spin["observable"])
+    warnings = _fit_warnings(fit, ball, model, val, rate, srate, spin["observable"]) + _prior_warnings(sig)
     baseline, notes = _baseline(fit, model, target_x, start_source)
     rec = {
         "schema": SCHEMA, "source": source or "fit", "tool_version": __version__, "ball": ball.name,
@@ -238,6 +238,22 @@ def _fit_warnings(fit: FlightFit, ball: Ball, model: FlightModel, val, rate: flo
     return warnings
 
 
+def _prior_warnings(sig: dict) -> list[str]:
+    """A warning for each deflection component whose variance comes mostly from a prior on what one
+    flight cannot tell (fitting/nuisance.py)."""
+    out = []
+    for i, (comp, key) in enumerate((("sideways", "deflection_horizontal_m"), ("up-down", "deflection_vertical_m"))):
+        total = sig[key]
+        for name, part in sig.get("deflection_from_priors_m", {}).items():
+            if total > 0 and part[i] ** 2 > 0.5 * total**2:
+                why = ("how much of the ball's drag comes from its spin (the no-spin reference needs the drag "
+                       "without it; published slopes dC_D/dS run from 0 to about 0.5)" if name == "drag_spin_split"
+                       else "the wind, known only to the stated uncertainty (a crosswind looks like sidespin)")
+                out.append(f"the {comp} deflection's uncertainty (± {100 * total:.1f} cm) is mostly what one flight "
+                           f"cannot tell: {why}")
+    return out
+
+
 def _baseline(fit: FlightFit, model: FlightModel, target_x: float, start_source: str) -> tuple[dict, list[str]]:
     """The published constant-acceleration (nine-parameter) estimate on the same data, fitted in
     the same space as the full fit, and notes about what that space can and cannot pin."""
@@ -276,7 +292,8 @@ def _uncertainty_section(fit: FlightFit, sig: dict, dcov) -> dict:
         "aero": {"drag_coefficient": sig["drag_coefficient"], "lift_coefficient": sig["lift_coefficient"],
                  "spin_parameter": sig["spin_parameter"]},
         "deflection": {"horizontal_m": sig["deflection_horizontal_m"], "vertical_m": sig["deflection_vertical_m"],
-                       "correlation": sig["deflection_correlation"], "covariance_m2": dcov.tolist()},
+                       "correlation": sig["deflection_correlation"], "covariance_m2": dcov.tolist(),
+                       "from_priors_m": sig.get("deflection_from_priors_m", {})},
         "method": "linearised (Jacobian) covariance scaled by the residual variance",
     }
 

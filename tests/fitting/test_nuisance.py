@@ -34,7 +34,7 @@ class _Linear:
 
     def __init__(self, J, r0, p_hat, k):
         self.J, self.r0, self.p_hat = J, r0, p_hat
-        self.rung, self.n_phys = (), k
+        self.rung, self.n_phys = ("drag_re_exponent",), k  # a rung whose drag varies with speed
         self.sigma, self.mask, self.back_s = np.ones(3), np.ones(3, bool), 0.0
 
     def residuals(self, P):
@@ -61,6 +61,10 @@ def test_marginal_posterior_is_the_joint_gaussian_one():
     assert np.allclose(nu["covariance"], joint[k:, k:], rtol=1e-6)
     assert np.allclose(nu["mean"], (-joint @ J.T @ r0 / s2)[k:], rtol=1e-6, atol=1e-12)
     assert np.allclose(nu["compensation"], -np.linalg.lstsq(Jt, J[:, k:], rcond=None)[0])
+    # on a rung whose drag cannot vary with speed the track's hold on b is not trusted: the prior stays
+    lin.rung = ()
+    nu = marginalise(lambda rung: lin, lin, res, {"a": sig0[0], "b": sig0[1]})
+    assert np.allclose(nu["covariance"], np.diag(sig0**2)) and not np.any(nu["used_mean"])
 
 
 # ---- flights made outside the code under test (solve_ivp, laws written here) -----------------------
