@@ -144,6 +144,9 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
     corr = cov[-2, -1] / (sig[-2] * sig[-1]) if sig[-2] > 0 and sig[-1] > 0 else 0.0
     out["deflection_correlation"] = float(corr)
     out["deflection_from_priors_m"] = {n: [float(x) for x in v] for n, v in share.items()}
+    # against a reference that keeps the spinning ball's drag (the spin's share of the drag set aside)
+    split = share.get("drag_spin_split", np.zeros(2))
+    out["deflection_same_drag_sigma_m"] = [float(math.sqrt(max(s_ ** 2 - x ** 2, 0.0))) for s_, x in zip(sig[-2:], split)]
     return out, cov[-2:, -2:]
 
 

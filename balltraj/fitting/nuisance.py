@@ -98,8 +98,10 @@ def marginalise(new_problem, prob, res, priors: dict) -> dict:
         mean = -cov @ (Jp.T @ r) / s2
     else:
         # a rung whose drag cannot vary with speed would let b stand in for the speed dependence it lacks
-        # (b (S - S0) changes the drag as the ball slows): the track's hold on b is then an artefact
-        cov, mean = np.diag(sig0**2), np.zeros(m)
+        # (b (S - S0) changes the drag as the ball slows): the track's hold on b is then an artefact. The
+        # prior stays, and the other unknowns are held (A = 0): b then moves the no-spin reference's drag
+        # by b S0, and the spinning path only by b (S - S0), as the rung assumes its drag law
+        cov, mean, A = np.diag(sig0**2), np.zeros(m), np.zeros_like(A)
     # the posterior mean is used only where the track tells more than the prior (data sigma below the
     # prior's); elsewhere the pull comes from a direction the track barely sees, where whatever the rung
     # misses leaks in (on a crosswind drive its wind means even had the wrong sign), so the prior mean stays

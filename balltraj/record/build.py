@@ -293,7 +293,8 @@ def _uncertainty_section(fit: FlightFit, sig: dict, dcov) -> dict:
                  "spin_parameter": sig["spin_parameter"]},
         "deflection": {"horizontal_m": sig["deflection_horizontal_m"], "vertical_m": sig["deflection_vertical_m"],
                        "correlation": sig["deflection_correlation"], "covariance_m2": dcov.tolist(),
-                       "from_priors_m": sig.get("deflection_from_priors_m", {})},
+                       "from_priors_m": sig.get("deflection_from_priors_m", {}),
+                       "same_drag_sigma_m": sig.get("deflection_same_drag_sigma_m")},
         "method": "linearised (Jacobian) covariance scaled by the residual variance",
     }
 

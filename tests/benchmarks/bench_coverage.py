@@ -26,7 +26,8 @@ N = 200
 
 def main():
     hits = {k: [] for k in ("speed", "elevation", "azimuth", "transverse rate", "deflection horizontal",
-                            "deflection up")}
+                            "deflection up", "deflection horizontal, without the spin-drag prior",
+                            "deflection up, without the spin-drag prior")}
     for case, (ball, noise, rate) in enumerate([("baseball", 0.005, 240), ("soccer", 0.015, 120)]):
         for s in range(N // 2):
             t, xyz, tr = make_track(ball, rate_hz=rate, noise_m=noise, seed=5000 + 1000 * case + s)
@@ -47,10 +48,19 @@ def main():
                                                  <= U["deflection"]["horizontal_m"])
             hits["deflection up"].append(abs(rec["deflection"]["vertical_m"] - truth.vertical_m)
                                                <= U["deflection"]["vertical_m"])
+            # the same without the prior on the spin's share of the drag (these truths have none)
+            prior = np.array(U["deflection"]["from_priors_m"].get("drag_spin_split", [0.0, 0.0]))
+            for i, (k, key) in enumerate((("horizontal", "horizontal_m"), ("up", "vertical_m"))):
+                bare = math.sqrt(max(U["deflection"][key] ** 2 - prior[i] ** 2, 0.0))
+                hits[f"deflection {k}, without the spin-drag prior"].append(
+                    abs(rec["deflection"][key] - getattr(truth, key)) <= bare)
     lines = [f"Monte-Carlo coverage of the one-sigma intervals ({N} seeded flights: {N // 2} pitches at 240 Hz "
              f"with 5 mm noise, {N // 2} free kicks at 120 Hz with 15 mm noise; ideal 68.3 %; the binomial "
              f"spread of the estimate is about ±{100 * math.sqrt(0.683 * 0.317 / N):.1f} %)", "",
              "| quantity | within one sigma |", "|---|---|"]
+    # these truths are flown with the catalogue laws, whose drag does not change with spin; the reported
+    # deflection sigma still carries the prior on the spin's share of the drag (fitting/nuisance.py), which a
+    # real ball needs: the last two rows leave it out
     for k, v in hits.items():
         lines.append(f"| {k} | {100 * np.mean(v):.1f} % |")
     publish("coverage", lines)

@@ -65,6 +65,7 @@ def test_marginal_posterior_is_the_joint_gaussian_one():
     lin.rung = ()
     nu = marginalise(lambda rung: lin, lin, res, {"a": sig0[0], "b": sig0[1]})
     assert np.allclose(nu["covariance"], np.diag(sig0**2)) and not np.any(nu["used_mean"])
+    assert not np.any(nu["compensation"])
 
 
 # ---- flights made outside the code under test (solve_ivp, laws written here) -----------------------
