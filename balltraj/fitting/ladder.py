@@ -122,7 +122,10 @@ def batch_model(base: FlightModel, names, values, launch_speed, spin_magnitude) 
         return base
     changes = {}
     s0 = base.radius_m * np.asarray(spin_magnitude, float) / np.maximum(np.asarray(launch_speed, float), 1e-6)
-    if {"drag_re_exponent", "drag_spin_slope", "log_re_shift", "drag_spin_split"} & set(col):
+    drag_names = {"drag_re_exponent", "drag_spin_slope", "log_re_shift"}
+    if "drag_spin_split" in col and np.any(col["drag_spin_split"] != 0):
+        drag_names.add("drag_spin_split")  # a zero split leaves the law as it is (and its name in the record)
+    if drag_names & set(col):
         re0 = base.air_density * base.diameter_m / base.air_viscosity * np.asarray(launch_speed, float)
         split = col.get("drag_spin_split", 0.0)  # a share split * S0 of the launch drag moved to the spin
         changes["drag_model"] = "modified"

@@ -14,6 +14,9 @@ from balltraj.physics.aero import drag_coefficient
 from balltraj.physics.air import air_conditions
 from balltraj.physics.balls import get_ball
 from balltraj.physics.flight import FlightModel
+from balltraj.record.build import fit_record
+
+from synth import make_track
 
 RPM = 2 * math.pi / 60
 G = 9.80665  # Source: CGPM 1901 standard gravity
@@ -157,3 +160,17 @@ def test_a_stated_wind_uncertainty_covers_an_unknown_crosswind():
     assert abs(e1) < 3 * sig1["deflection_horizontal_m"]  # the stated uncertainty makes the sigma honest
     share = sig1["deflection_from_priors_m"]
     assert share["wind_y"][0] > share["drag_spin_split"][0]
+
+
+def test_the_record_names_the_priors_and_their_part_of_the_sigma():
+    t, xyz, truth = make_track("soccer", rate_hz=120, noise_m=0.015, seed=7)
+    fit = fit_flight(truth["model"], t, xyz)
+    rec, _ = fit_record(fit, truth["ball"], truth["air"], truth["model"])
+    assert rec["priors"]["drag_spin_split"]["prior_sigma"] == SPIN_DRAG_SLOPE_SIGMA
+    u = rec["uncertainty"]["deflection"]
+    part = u["from_priors_m"]["drag_spin_split"]
+    # invariants: the parts add in quadrature to no more than the total; a warning iff a prior carries most of it
+    for i, key in enumerate(("horizontal_m", "vertical_m")):
+        assert u["same_drag_sigma_m"][i] ** 2 + part[i] ** 2 == pytest.approx(u[key] ** 2, rel=1e-9, abs=1e-12)
+    dominated = any(part[i] ** 2 > 0.5 * u[k] ** 2 for i, k in enumerate(("horizontal_m", "vertical_m")))
+    assert dominated == any("cannot tell" in w for w in rec["warnings"])
