@@ -103,7 +103,8 @@ def template_zone(camera: Camera, ball_radius_m: float, flight_t, flight_uv, rad
     if not kept:
         return None, "no launch zone of the template agrees with the flight (" + "; ".join(refused) + ")"
     sigma, centre, label = min(kept, key=lambda k: k[0])
-    return (centre, sigma, label), f"launch zone '{label}' agrees with the flight's start"
+    others = f" (not {'; '.join(refused)})" if refused else ""
+    return (centre, sigma, label), f"launch zone '{label}' agrees with the flight's start{others}"
 
 
 def flight_anchor(clip, camera: Camera, ball_radius_m: float, f, previous=None, hint=None):
