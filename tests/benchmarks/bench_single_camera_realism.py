@@ -28,7 +28,10 @@ from balltraj.camera.model import look_at_camera  # noqa: E402
 from balltraj.errors import BallTrajError  # noqa: E402
 from balltraj.physics.air import air_conditions  # noqa: E402
 from balltraj.physics.balls import get_ball  # noqa: E402
-from balltraj.pipeline import ClipInput, FitSettings, analyze_clip  # noqa: E402
+from balltraj.camera.anchors import apply_anchor, choose_anchor  # noqa: E402
+from balltraj.formats import CameraObservations, Observations  # noqa: E402
+from balltraj.pipeline import ClipInput, FitSettings, analyze_clip, fit_observations  # noqa: E402
+from balltraj.pipeline_depth import template_zone  # noqa: E402
 
 MARK = np.array([-11.0, 0.0, S.SOCCER.radius_m])
 START_S = 0.1
@@ -66,6 +69,37 @@ def truth(p0, v0, axis, t_launch):
     return float(np.linalg.norm(v)), float(a[1] - b[1]), float(a[2] - b[2])
 
 
+def _metrics(rec, v0, axis):
+    sp, dh, dv = truth(MARK, v0, axis, rec["launch"]["t_s"])
+    u = rec["uncertainty"]
+    return {"speed_err": abs(rec["launch"]["speed_mps"] / sp - 1) * 100,
+            "defl_err": math.hypot(rec["deflection"]["horizontal_m"] - dh, rec["deflection"]["vertical_m"] - dv),
+            "defl": math.hypot(dh, dv),
+            "z": [(rec["launch"]["speed_mps"] - sp) / u["launch"]["speed_mps"],
+                  (rec["deflection"]["horizontal_m"] - dh) / u["deflection"]["horizontal_m"],
+                  (rec["deflection"]["vertical_m"] - dv) / u["deflection"]["vertical_m"]]}
+
+
+def _true_pixel_fits(e, frames, cam, settings, v0, axis):
+    """The renderer's own centres and radii of the same frames (no detector): the depth machinery alone."""
+    rows = [r for r in frames if "u" in r and not r["repeat"] and r["t"] > START_S + 0.5 / FPS]
+    rows = [r for r in rows if r["t"] - START_S < 0.55]  # up to about the goal line
+    t = np.array([r["t"] for r in rows])
+    uv = np.array([[r["u"], r["v"]] for r in rows])
+    rad = np.array([r["r"] for r in rows])
+    zone = template_zone(cam, settings.ball.radius_m, t[:10], uv[:10], rad[:10])[0]
+    for mode, anchor in (("true zone", choose_anchor(zone=zone, radii_observed=True)),
+                         ("true none", choose_anchor(radii_observed=True))):
+        obs = Observations("renderer", t, [cam.name] * len(t), uv, rad, np.ones(len(t)), None)
+        try:
+            rec = fit_observations(CameraObservations(obs, [cam]), apply_anchor(settings, anchor)).record
+        except BallTrajError as exc:
+            e[mode].append(None)
+            e["why"].append(f"{mode}: {exc.one_line()[:120]}")
+            continue
+        e[mode].append(_metrics(rec, v0, axis))
+
+
 def run(n):
     rng = np.random.default_rng(4711)
     ball, air = get_ball("soccer"), air_conditions()
@@ -81,12 +115,14 @@ def run(n):
         axis = np.array([rng.uniform(-0.2, 0.2), rng.uniform(-0.3, 0.3), rng.choice([-1.0, 1.0])])
         axis /= np.linalg.norm(axis)
         for j, (label, (c, tg, f)) in enumerate(SETUPS.items()):
-            e = rows.setdefault(label, {"zone": [], "none": [], "anchor": [], "why": []})
+            e = rows.setdefault(label, {"zone": [], "none": [], "true zone": [], "true none": [], "anchor": [],
+                                        "why": []})
             shot = S.Shot(S.Cam(c, tg, f, SIZE), S.SOCCER, [(START_S, MARK, v0, axis)], duration_s=START_S + 0.62,
                           capture_fps=FPS, exposure_s=1 / 1000, seed=100 * k + j)
             clip = tmp / f"pen{k}_{j}.mp4"
-            S.render_shot(shot, clip)
+            frames = S.render_shot(shot, clip)
             cam = look_at_camera(label, c, tg, f, SIZE)
+            _true_pixel_fits(e, frames, replace(cam, template="soccer-goal", world_frame=frame), settings, v0, axis)
             for mode, camera in (("zone", replace(cam, template="soccer-goal", world_frame=frame)), ("none", cam)):
                 try:
                     res = analyze_clip(ClipInput(clip, [camera]), settings)
@@ -95,17 +131,9 @@ def run(n):
                     e["why"].append(f"{mode}: {exc.one_line()[:120]}")
                     continue
                 rec = max(res.records, key=lambda r: r["clip"]["frames"])
-                sp, dh, dv = truth(MARK, v0, axis, rec["launch"]["t_s"])
-                u = rec["uncertainty"]
                 if mode == "zone":
                     e["anchor"].append(rec["depth_anchor"]["name"])
-                e[mode].append({"speed_err": abs(rec["launch"]["speed_mps"] / sp - 1) * 100,
-                                "defl_err": math.hypot(rec["deflection"]["horizontal_m"] - dh,
-                                                       rec["deflection"]["vertical_m"] - dv),
-                                "defl": math.hypot(dh, dv),
-                                "z": [(rec["launch"]["speed_mps"] - sp) / u["launch"]["speed_mps"],
-                                      (rec["deflection"]["horizontal_m"] - dh) / u["deflection"]["horizontal_m"],
-                                      (rec["deflection"]["vertical_m"] - dv) / u["deflection"]["vertical_m"]]})
+                e[mode].append(_metrics(rec, v0, axis))
             clip.unlink()
         print(f"penalty {k + 1}/{n} done", flush=True)
     return rows
@@ -121,10 +149,12 @@ def main_realism(n):
              "error cm median (max) | deflection cm median | one-sigma coverage (speed / sideways / up-down) |",
              "|---|---|---|---|---|---|---|---|"]
     for label, e in rows.items():
-        for mode, name in (("zone", "records the template"), ("none", "no template key")):
+        for mode, name in (("zone", "records the template"), ("none", "no template key"),
+                           ("true zone", "records the template; the renderer's true pixels"),
+                           ("true none", "no template key; the renderer's true pixels")):
             ok = [x for x in e[mode] if x is not None]
             anchors = ", ".join(f"{a} {e['anchor'].count(a)}" for a in sorted(set(e["anchor"]))) \
-                if mode == "zone" else "apparent size"
+                if mode == "zone" else ("template zone" if mode == "true zone" else "apparent size")
             if not ok:
                 lines.append(f"| {label} | {name} | {anchors or '–'} | 0/{len(e[mode])} | – | – | – | – |")
                 continue
