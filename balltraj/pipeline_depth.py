@@ -40,7 +40,8 @@ def template_zone(camera: Camera, ball_radius_m: float, flight_t, flight_uv, rad
     A zone is kept when (1) the rays through the flight's image path, extended back in time (up to
     1 s), pass within three of its sigmas (+ 10 cm) of its centre, and (2) the ball's apparent size
     in the first frames is within 40 % (+ the zone's depth extent) of the size of a ball there. Of
-    the zones kept, the one the rays pass closest to in units of its sigma is chosen.
+    the zones kept, the narrowest (the most informative) is chosen: a wide zone agrees with almost
+    any flight, so agreeing with it says little.
 
     Parameters
     ----------
@@ -99,7 +100,7 @@ def template_zone(camera: Camera, ball_radius_m: float, flight_t, flight_uv, rad
         kept.append((gap / sigma, sigma, centre, label))
     if not kept:
         return None, "no launch zone of the template agrees with the flight (" + "; ".join(refused) + ")"
-    _, sigma, centre, label = min(kept, key=lambda k: (k[0], k[1]))
+    _, sigma, centre, label = min(kept, key=lambda k: (k[1], k[0]))  # the narrowest that agrees
     others = f" (not {'; '.join(refused)})" if refused else ""
     return (centre, sigma, label), f"launch zone '{label}' agrees with the flight's start{others}"
 

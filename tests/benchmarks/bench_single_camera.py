@@ -1,9 +1,11 @@
 """One camera, true scale: free kicks seen from the side, from behind and from high behind.
 
 Truth: an independent integration (scipy solve_ivp, DOP853, rtol 1e-10) of m dv/dt = m g - 1/2 rho A C_D |v| v
-+ 1/2 rho A C_L |v|^2 (w_perp x v)/|w_perp x v| with C_D = 0.22 (constant) and C_L = S (from memory: Goff &
-Carre 2009 report C_L 0.2-0.3 at S 0.1-0.3 for soccer balls); the fit's model uses the same laws through
-balltraj's own RK4 integrator.
++ 1/2 rho A C_L |v|^2 (w_perp x v)/|w_perp x v|, written here, with two sets of laws:
+- "same": C_D = 0.22 (constant) and C_L = S (from memory: Goff & Carre 2009 report C_L 0.2-0.3 at S 0.1-0.3
+  for soccer balls); the fit's model uses the same laws through balltraj's own RK4 integrator;
+- "other": a drag crisis (Asai et al. 2007) and Stepanek's saturating lift (1988), fitted with the soccer
+  ball's catalogue laws (model error included).
 
 Per kick and camera:
 - a clip is rendered (balltraj.vision.render, 960x540, 240 fps, compressed) with the ball resting on its
@@ -11,12 +13,16 @@ Per kick and camera:
   ground-plane anchor becomes the fit's start point (``FitOptions(start_near=..., start_sigma=...)``), no hint;
 - the flight's observations are the projected truth + 0.5 px noise, apparent radius f R / depth with a
   3 % per-clip scale error and 0.3 px noise (tracking a whole clip per kick would take minutes);
-- the same observations are fitted with no anchor at all (apparent size only) for the coverage check.
+- the same observations are fitted with no anchor at all (apparent size only) for the coverage check, with
+  |error| / sigma per quantity (speed, deflection, spin, launch depth), and once more with radius errors
+  as large as the fit's own priors (a self-consistency check of the one-sigma machinery, not a truth).
 
-Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py [N]          (about 25 s per kick)
+Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py [N]          (about 27 s per kick)
      PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py tracked [N]  (whole clips tracked, ~75 s per kick)
+     PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py realism [N]  (tests/scene_realism.py penalty
+                                                                                  kicks, ~2 min per kick)
 Targets: with a resting ball, median launch-speed error <= 1 %, deflection error <= max(3 cm, 5 %);
-with no anchor, one-sigma coverage 60-80 %.
+with no anchor, one-sigma coverage 60-80 %; no fit stopped at the evaluation budget.
 """
 import math
 import sys

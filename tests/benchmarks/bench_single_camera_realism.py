@@ -109,7 +109,7 @@ def run(n):
     rows = {}
     for k in range(n):
         speed = rng.uniform(22, 28)
-        aim_y, el = rng.uniform(-2.8, 2.8), math.radians(rng.uniform(3, 9))
+        aim_y, el = rng.uniform(-2.8, 2.8), math.radians(rng.uniform(8, 13))  # no bounce before the goal line
         az = math.atan2(aim_y, 11.0)
         v0 = speed * np.array([math.cos(el) * math.cos(az), math.cos(el) * math.sin(az), math.sin(el)])
         axis = np.array([rng.uniform(-0.2, 0.2), rng.uniform(-0.3, 0.3), rng.choice([-1.0, 1.0])])
