@@ -33,10 +33,10 @@ from .physics.air import AirConditions
 from .physics.balls import Ball
 from .physics.flight import FlightModel, check_launch, launch_state
 from .physics.reference import Deflection
+from .pipeline_depth import flight_anchor
 from .pipeline_spin import apply_surface_spin, read_flight_surface
 from .record.build import fit_record, simulate_record
 from .vision.pipeline import TrackResult, no_ball_error, track_clip
-from .vision.resting import clear_of_rest_spot, depth_anchor
 from .pipeline_rig import concatenate_observations as _concatenate, matching_flight as _matching_flight
 
 Progress = Optional[Callable[[int, Optional[int]], None]]
@@ -266,12 +266,9 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
     records, failures = [], []
     for i, f in enumerate(res.flights):
         # the depth along the line of sight: a ball at rest where the flight starts, a bounce that
-        # starts it, the user's hint, or only the apparent size (said in the record)
+        # starts it, the user's hint, the template's launch zone, or only the apparent size (said in the record)
         prev = res.flights[i - 1] if i > 0 and res.flights[i - 1].bounce else None
-        anchor, search = depth_anchor(clip.path, cam, settings.ball.radius_m, f.t[:10], f.uv[:10], flight=f.flight,
-                                      radius_px=f.radius_px, previous=None if prev is None else (prev.t, prev.uv),
-                                      hint=hint, capture_fps=clip.capture_fps)
-        keep = None if search.ball is None else clear_of_rest_spot(search.ball, f.uv, f.radius_px, f.streak_px)
+        anchor, keep, anchor_section = flight_anchor(clip, cam, settings.ball.radius_m, f, prev, hint)
         data = CameraObservations(_flight_observations(clip.path, f, cam.name, keep), [cam])
         try:
             fitted = fit_observations(data, replace(apply_anchor(settings, anchor), start_source=anchor.name))
@@ -285,10 +282,7 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
         rec["source"] = f"{clip.path}#flight-{f.flight}"
         rec["clip"] = {"path": str(clip.path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
                        "end_reason": f.end_reason}
-        rec["depth_anchor"] = {"name": anchor.name, "note": anchor.note,
-                               "start_near_m": None if anchor.start_near_m is None else list(anchor.start_near_m),
-                               "start_sigma_m": anchor.start_sigma_m, "resting_ball": search.reason,
-                               "frames_dropped_at_rest_spot": 0 if keep is None else int((~keep).sum())}
+        rec["depth_anchor"] = anchor_section
         records.append(rec)
     if not records:
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip.path),

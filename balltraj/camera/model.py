@@ -70,6 +70,10 @@ class Camera:
     tvec: np.ndarray  # (3,) [m]
     readout_s: float = 0.0  # rolling-shutter readout time over the full height [s]
     time_offset_s: float = 0.0  # added to this camera's observation times to get rig time [s]
+    #: the field template the scene calibration used (``balltraj.camera.calibrate.TEMPLATES``) and
+    #: the world frame it defined, in words; None for cameras placed otherwise (old files too)
+    template: str | None = field(default=None, compare=False)
+    world_frame: str | None = field(default=None, compare=False)
     R: np.ndarray = field(init=False, repr=False, compare=False)
 
     def __post_init__(self):
@@ -175,6 +179,8 @@ class Camera:
             d["readout_s"] = self.readout_s
         if self.time_offset_s:
             d["time_offset_s"] = self.time_offset_s
+        if self.template is not None:
+            d["template"] = {"name": self.template, "world_frame": self.world_frame or ""}
         return d
 
 
@@ -220,9 +226,24 @@ def camera_from_dict(d) -> Camera:
     for key, val, lo, hi in (("readout_s", readout, 0.0, 0.1), ("time_offset_s", offset, -3600.0, 3600.0)):
         if isinstance(val, bool) or not isinstance(val, (int, float)) or not (lo <= val <= hi):
             raise InputError(f"{key!r} must be a number in {lo}..{hi} s")
+    template, frame = _template_key(d.get("template"))
     return Camera(name=d["name"].strip(), image_size=(int(size[0]), int(size[1])), K=Km, dist=np.array(dl),
                   rvec=np.array(_num_list(d["rvec"], 3, "rvec")), tvec=np.array(_num_list(d["tvec"], 3, "tvec")),
-                  readout_s=float(readout), time_offset_s=float(offset))
+                  readout_s=float(readout), time_offset_s=float(offset), template=template, world_frame=frame)
+
+
+def _template_key(v) -> tuple[str | None, str | None]:
+    """The optional ``template`` key: {"name": template name, "world_frame": the frame in words}.
+    Absent (files from before the key, or cameras not placed on a template): (None, None)."""
+    if v is None:
+        return None, None
+    if not isinstance(v, dict) or not isinstance(v.get("name"), str) or not v["name"].strip():
+        raise InputError("'template' must be an object with a non-empty 'name' (the field template the scene "
+                         "calibration used) and its 'world_frame'", hint="re-run the scene calibration, or drop the key")
+    frame = v.get("world_frame", "")
+    if not isinstance(frame, str):
+        raise InputError("'template.world_frame' must be a string (the world frame in words)")
+    return v["name"].strip(), frame
 
 
 def cameras_from_json(obj) -> list[Camera]:

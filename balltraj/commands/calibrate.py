@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import math
+from dataclasses import replace
 from pathlib import Path
 from typing import Optional, Sequence
 
@@ -11,7 +12,7 @@ import cv2
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ..camera.calibrate import board_figure, calibrate_lens, calibrate_scene, describe_pose, template_points
+from ..camera.calibrate import LAUNCH_ZONES, board_figure, calibrate_lens, calibrate_scene, describe_pose, template_points
 from ..camera.triangulate import triangulate_observations
 from ..errors import InputError
 from ..formats import (atomic_write_bytes, check_output_path, numeric_column, read_cameras, read_csv_table,
@@ -132,12 +133,15 @@ def run_calibrate_scene(*, landmarks: Optional[Path], template: Optional[str], p
         res = calibrate_scene(world, uv, list(names), lens_cam, size, name=name, frame=frame)
     except InputError as e:
         raise e.with_path(src) from None
-    d = res.camera.to_dict()
+    cam = res.camera if template is None else replace(res.camera, template=template, world_frame=res.frame)
+    d = cam.to_dict()
     d["calibration"] = {"kind": "scene", "world_frame": res.frame, "rms_px": res.rms_px,
                         "landmark_errors_px": res.errors_px, "focal_estimated_from_landmarks": res.focal_estimated,
                         "template": template}
     write_json(out_p, d)
     lines = [describe_pose(res.camera), f"world frame: {res.frame}",
+             *([f"template {template!r} recorded in the camera file: its launch zones ({', '.join(LAUNCH_ZONES.get(template, {}))}) "
+                "can fix the depth of one-camera flights when no ball at rest or bounce is seen"] if template else []),
              f"rms reprojection {res.rms_px:.2f} px over {len(names)} landmarks"]
     lines += [f"  {k}: {v:.2f} px" for k, v in res.errors_px.items()]
     if res.focal_estimated:

@@ -28,6 +28,8 @@ RADIUS_SIGMA_REL = 0.05  # and 5 % of the radius, per point
 PIXEL_SIGMA_FLOOR = 0.15  # px: centroids are not better than this (compression, blur, shading)
 RADIUS_BIAS_SIGMA_PX = 0.3  # and a common additive bias (edge threshold, blur): prior 0.3 px
 RADIUS_SCALE_SIGMA = 0.06  # a common scale error of all measured radii (blur, edge threshold): prior 6 %
+RADIUS_NOISE_FLOOR_PX = 0.15  # the per-point radius noise, estimated from the fit's radius residuals, is floored here
+_CHI3_MEDIAN, _CHI2_MEDIAN = 1.5382, math.sqrt(2.0 * math.log(2.0))  # medians of 3D / 2D unit-Gaussian norms
 
 
 class _ImageProblem(_Problem):
@@ -116,8 +118,23 @@ class _ImageProblem(_Problem):
         return out
 
     def point_norms(self, p):
+        """Pixel residual norms in sigma units, scaled so that :func:`.flight_fit.solve`'s noise estimate
+        (median norm / 1.5382, the median of a 3D unit-Gaussian norm) holds for these 2D norms, whose
+        median is sqrt(2 ln 2) = 1.1774 (Rayleigh distribution). Outlier flags (norm / median) are unchanged."""
         tr = self.trajectories(p[None])
-        return np.linalg.norm(self.point_residuals(tr, p[None])[0, :, :2], axis=1)
+        return np.linalg.norm(self.point_residuals(tr, p[None])[0, :, :2], axis=1) * (_CHI3_MEDIAN / _CHI2_MEDIAN)
+
+    def radius_noise_factor(self, p) -> float:
+        """Robust RMS (1.4826 MAD about 0) of the inlier apparent-radius residuals in units of their
+        assumed sigma: how far the assumed radius noise is off (1: as assumed)."""
+        tr = self.trajectories(np.asarray(p)[None])
+        rr = self.point_residuals(tr, np.asarray(p)[None])[0, :, 2]
+        ok = self.mask & np.isfinite(self.radius)
+        return float(1.4826 * np.median(np.abs(rr[ok]))) if ok.sum() >= 6 else 1.0
+
+    def rescale_radius_sigma(self, factor: float) -> None:
+        self.radius_sigma = np.maximum(self.radius_sigma * factor, RADIUS_NOISE_FLOOR_PX)
+        self._cache.clear()
 
 
 def _pseudo_point_sets(t, cam_idx, uv, radius, cameras, model, hint):
@@ -229,6 +246,14 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
     if best is None:
         raise FitError("no start could be found for the fit", hint="check the camera file, or give the start point", about="start_near")
     _, prob0, res0, how = best
+    if prob0.use_radius and not given:
+        # the per-point radius noise is estimated like the pixel noise (not assumed), so that the residual
+        # variance that scales the covariance is not pulled down by over-wide radius sigmas
+        factor = prob0.radius_noise_factor(res0.p)
+        if abs(factor - 1.0) > 0.1:
+            prob0.rescale_radius_sigma(factor)
+            res0 = solve(prob0, res0.p, options, estimate_sigma=False, robust=False, min_points=6,
+                         sigma_floor=PIXEL_SIGMA_FLOOR, tight=True)
     from .climb import climb, misfit_noise
     from .misfit import noise_estimate
 
@@ -245,6 +270,8 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
         prob = _ImageProblem(model, t, cam_idx, uv, radius, cams, prob0.sigma, prob0.basis, options, fit_offsets, rung)
         prob._first_xyz = prob0._first_xyz
         prob.back_s = prob0.back_s
+        if prob0.use_radius:
+            prob.radius_sigma = prob0.radius_sigma.copy()
         return prob
 
     class _Done:  # the catalogue rung is already solved: hand its result to the climb
