@@ -206,8 +206,13 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
                    "film closer or zoom in", **base)
     smear = float(np.median([np.hypot(*discs[k].blur_px) for k in ok]))
     if smear > _MAX_SMEAR * r_med:
+        # the longest shutter that would do, from the ball's speed across the image over the window
+        c_ok = np.array([discs[k].centre_px for k in ok])
+        speed = float(np.median(np.hypot(*np.diff(c_ok, axis=0).T) / np.diff(times[ok])))
+        advice = (f"a shutter of 1/{math.ceil(speed / (_MAX_SMEAR * r_med)):.0f} s or shorter" if speed > 0
+                  else "a shorter shutter")
         return _no(f"the ball moves {smear:.1f} px ({100 * smear / r_med:.0f} % of its radius) during the exposure, "
-                   "which smears its markings: use a shorter shutter", **base)
+                   f"which smears its markings: use {advice}", **base)
     fr = {k: SurfaceFrame(frames[k], discs[k], camera, times[k]) for k in ok}
     noise_rel = float(np.median([discs[k].noise / max(discs[k].shading.sum(), 1.0) for k in ok]))
     texture = float(np.median([fr[k].texture for k in ok]))
