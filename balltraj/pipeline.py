@@ -34,10 +34,11 @@ from .physics.balls import Ball
 from .physics.flight import FlightModel, check_launch, launch_state
 from .physics.reference import Deflection
 from .pipeline_depth import flight_anchor
-from .pipeline_spin import apply_surface_spin, read_flight_surface
+from .pipeline_spin import FlightSurfaces, apply_surface_spin
 from .record.build import fit_record, simulate_record
 from .vision.pipeline import TrackResult, no_ball_error, track_clip
-from .pipeline_rig import concatenate_observations as _concatenate, matching_flight as _matching_flight
+from .pipeline_rig import (concatenate_observations as _concatenate, matching_flight as _matching_flight,
+                           rig_surface_spin)
 
 Progress = Optional[Callable[[int, Optional[int]], None]]
 
@@ -264,6 +265,7 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
     cam = clip.camera
     hint = None if settings.start_near_m is None else (settings.start_near_m, settings.start_sigma_m)
     records, failures = [], []
+    surfaces = FlightSurfaces(clip.path, res.flights, cam, capture_fps=clip.capture_fps)  # windows decoded once
     for i, f in enumerate(res.flights):
         # the depth along the line of sight: a ball at rest where the flight starts, a bounce that
         # starts it, the user's hint, the template's launch zone, or only the apparent size (said in the record)
@@ -276,9 +278,7 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
             failures.append(f"flight {f.flight}: {e.one_line()}")
             continue
         # the full spin, gyro part included, from the ball's surface where the clip shows it
-        rec = apply_surface_spin(fitted.record, fitted.fit,
-                                 read_flight_surface(clip.path, f, cam, capture_fps=clip.capture_fps),
-                                 model=settings.model())
+        rec = apply_surface_spin(fitted.record, fitted.fit, surfaces.read(f), model=settings.model())
         rec["source"] = f"{clip.path}#flight-{f.flight}"
         rec["clip"] = {"path": str(clip.path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
                        "end_reason": f.end_reason}
@@ -309,24 +309,28 @@ def analyze_rig(clips: Sequence[ClipInput], settings: FitSettings, *, progress: 
     if not results[0].flights:
         raise no_ball_error(clips[0].path, results[0])
     records, failures = [], []
+    readers = [FlightSurfaces(c.path, r.flights, c.camera, capture_fps=c.capture_fps) for c, r in zip(clips, results)]
     first = replace(clips[0].camera, time_offset_s=0.0)  # times and the launch on the first camera's clock
     for f in results[0].flights:
-        cams = [first]
+        cams, seen = [first], [(0, f)]
         parts = [_flight_observations(clips[0].path, f, clips[0].camera.name)]
-        for clip, res in zip(clips[1:], results[1:]):
+        for j, (clip, res) in enumerate(zip(clips[1:], results[1:]), 1):
             match = _matching_flight(first, f, clip.camera, res.flights)
             if match is None:
                 failures.append(f"flight {f.flight}: not seen by camera {clip.camera.name!r}")
                 continue
             g, offset = match
             cams.append(replace(clip.camera, time_offset_s=offset))
+            seen.append((j, g))
             parts.append(_flight_observations(clip.path, g, clip.camera.name))
         data = CameraObservations(_concatenate(parts, f"{clips[0].path}#flight-{f.flight}"), cams)
         try:
-            rec = fit_observations(data, settings).record
+            fitted = fit_observations(data, settings)
         except BallTrajError as e:
             failures.append(f"flight {f.flight}: {e.one_line()}")
             continue
+        # the full spin from the ball's surface, read in the fastest clip that shows it
+        rec = rig_surface_spin(fitted.record, fitted.fit, seen, readers, model=settings.model())
         rec["source"] = f"{clips[0].path}#flight-{f.flight}"
         rec["clip"] = {"path": str(clips[0].path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
                        "end_reason": f.end_reason, "cameras": [c.name for c in cams],

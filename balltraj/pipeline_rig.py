@@ -1,5 +1,5 @@
-"""Pairing one flight across the clips of unsynchronised cameras (used by
-:func:`balltraj.pipeline.analyze_rig`). Pure computation on tracked flights."""
+"""Pairing one flight across the clips of unsynchronised cameras, and choosing the clip its spin is read
+from (used by :func:`balltraj.pipeline.analyze_rig`)."""
 
 from __future__ import annotations
 
@@ -8,6 +8,8 @@ import numpy as np
 from .camera.model import Camera
 from .camera.triangulate import estimate_time_offset
 from .formats import Observations
+from .pipeline_spin import FlightSurfaces, apply_surface_spin, frame_rate
+from .vision.surface_spin import SurfaceSpin
 
 
 #: an offset is accepted when the two cameras' tracks triangulate to within this [px] (median)
@@ -31,3 +33,35 @@ def concatenate_observations(parts, path: str):
     return Observations(path, np.concatenate([p.t for p in parts]), [c for p in parts for c in p.camera],
                         np.concatenate([p.uv for p in parts]), np.concatenate([p.radius_px for p in parts]),
                         np.concatenate([p.quality for p in parts]), None)
+
+
+def rig_surface_spin(record: dict, fit, seen, readers, model=None) -> dict:
+    """Put the spin read from a ball's surface into a rig flight's record (in place; also returned).
+
+    The clips are tried fastest frame rate first (then the largest ball in the image); the first whose
+    surface can be read gives the spin (the spin vector is in the world frame, so any camera's clip
+    serves, and a clock offset does not change a rate). When none can, the record keeps the flight's
+    transverse spin and says why for the fastest clip.
+
+    Parameters
+    ----------
+    record : dict
+        The rig flight's record.
+    fit : FlightFit
+        Its fit through all cameras.
+    seen : sequence of (int, TrackedFlight)
+        For each camera that saw the flight: its position in the rig and its tracked flight.
+    readers : sequence of FlightSurfaces
+        One per camera of the rig, in the rig's order.
+    model : FlightModel, optional
+        The flight model of the fit.
+    """
+    order = sorted(seen, key=lambda s: (-round(frame_rate(s[1])), -float(np.nanmedian(s[1].radius_px))))
+    first: tuple[SurfaceSpin, str] | None = None
+    for i, flight in order:
+        reader: FlightSurfaces = readers[i]
+        surface = reader.read(flight)
+        if surface.readable:
+            return apply_surface_spin(record, fit, surface, model=model, camera_name=reader.camera.name)
+        first = first or (surface, reader.camera.name)
+    return apply_surface_spin(record, fit, first[0], model=model, camera_name=first[1])

@@ -18,7 +18,7 @@ from .fitting.analysis import effective_spin, spin_axis_words
 from .fitting.flight_fit import FlightFit, transverse_basis
 from .vision.surface_fusion import fuse_spin
 from .vision.surface_spin import SurfaceSpin, estimate_surface_spin
-from .vision.surface_window import read_window
+from .vision.surface_window import read_windows
 
 #: the surface is read over this long a window from the first tracked frame [s]
 WINDOW_S = 0.04
@@ -49,6 +49,86 @@ def read_flight_surface(path, flight, camera: Camera, *, capture_fps: float | No
     SurfaceSpin
         ``readable`` False with a ``reason`` when the clip, the ball's size or the surface do not allow it.
     """
+    return FlightSurfaces(path, [flight], camera, capture_fps=capture_fps, window_s=window_s).read(flight)
+
+
+def frame_rate(flight) -> float:
+    """Frame rate [frames/s] of a tracked flight (median spacing of its times); 0 when unknown."""
+    dts = np.diff(np.asarray(flight.t, float))
+    return 1.0 / float(np.median(dts)) if len(dts) and np.median(dts) > 0 else 0.0
+
+
+class FlightSurfaces:
+    """The surface spin of the tracked flights of one clip; the frames of every flight's window are decoded
+    once, in one pass through the clip, the first time a flight is read (and only when one can be).
+
+    Parameters
+    ----------
+    path : path-like
+        The clip.
+    flights : sequence of TrackedFlight
+        Its tracked flights.
+    camera : Camera
+        The camera that filmed it.
+    capture_fps : float, optional [frames/s]
+        True capture rate of a time-stretched slow-motion file.
+    window_s : float [s]
+        The surface is read over this long a window from each flight's first tracked frame.
+    """
+
+    def __init__(self, path, flights, camera: Camera, *, capture_fps: float | None = None,
+                 window_s: float = WINDOW_S):
+        self.path, self.camera, self.capture_fps, self.window_s = path, camera, capture_fps, window_s
+        self._plans = {f.flight: _plan(f, window_s) for f in flights}
+        self._times = {f.flight: np.asarray(f.t, float) for f in flights}
+        self._frames: dict | None = None
+        self._error = ""
+
+    def read(self, flight) -> SurfaceSpin:
+        """The spin read from the surface of ``flight`` (one of the flights given), or why it could not be."""
+        if flight.flight not in self._plans:  # a flight not given at first: decode again with it
+            self._plans[flight.flight] = _plan(flight, self.window_s)
+            self._times[flight.flight] = np.asarray(flight.t, float)
+            self._frames = None
+        plan = self._plans[flight.flight]
+        if isinstance(plan, SurfaceSpin):
+            return plan
+        if self._frames is None:
+            self._decode()
+        if flight.flight not in (self._frames or {}):
+            return SurfaceSpin(readable=False, reason=f"the frames could not be read again: {self._error}")
+        frames, times, index = self._frames[flight.flight]
+        win, fps = plan
+        frame_idx = np.asarray(flight.frame, int)[win]
+        # every frame of the window (a frame the tracker missed keeps the frame gaps honest): the centre and
+        # radius of the tracked neighbours, interpolated
+        keep = (index >= frame_idx[0]) & (index <= frame_idx[-1])
+        uv = np.asarray(flight.uv, float)[win]
+        radius = np.asarray(flight.radius_px, float)[win]
+        k = index[keep]
+        centres = np.stack([np.interp(k, frame_idx, uv[:, 0]), np.interp(k, frame_idx, uv[:, 1])], 1)
+        good = np.isfinite(radius)
+        radii = np.interp(k, frame_idx[good], radius[good])
+        return estimate_surface_spin([f for f, m in zip(frames, keep) if m], times[keep], centres, radii,
+                                     camera=self.camera)
+
+    def _decode(self):
+        todo = [(fl, p) for fl, p in self._plans.items() if not isinstance(p, SurfaceSpin)]
+        windows = []
+        for fl, (win, fps) in todo:
+            t = self._times[fl][win]
+            windows.append((float(t[0]) - 0.5 / fps, float(t[-1]) + 0.5 / fps))
+        try:
+            got = read_windows(self.path, windows, capture_fps=self.capture_fps)
+        except BallTrajError as e:
+            self._frames, self._error = {}, e.one_line()
+            return
+        self._frames = {fl: g for (fl, _), g in zip(todo, got)}
+
+
+def _plan(flight, window_s):
+    """The window of a flight to read (its mask over the tracked points, the frame rate), or a SurfaceSpin
+    that says why there is none."""
     t = np.asarray(flight.t, float)
     win = t <= t[0] + window_s
     if win.sum() < 4:
@@ -64,21 +144,7 @@ def read_flight_surface(path, flight, camera: Camera, *, capture_fps: float | No
     if not r_med >= MIN_RADIUS_PX:
         return SurfaceSpin(readable=False, reason=f"the ball is {r_med:.1f} px in radius in the image; reading the "
                            f"spin from its surface needs at least {MIN_RADIUS_PX:.0f} px: film closer or zoom in")
-    frame_idx = np.asarray(flight.frame, int)[win]
-    try:
-        frames, times, index = read_window(path, float(t[win][0]) - 0.5 / fps, float(t[win][-1]) + 0.5 / fps,
-                                           capture_fps=capture_fps)
-    except BallTrajError as e:
-        return SurfaceSpin(readable=False, reason=f"the frames could not be read again: {e.one_line()}")
-    # every frame of the window (a frame the tracker missed keeps the frame gaps honest): the centre and
-    # radius of the tracked neighbours, interpolated
-    keep = (index >= frame_idx[0]) & (index <= frame_idx[-1])
-    uv = np.asarray(flight.uv, float)[win]
-    k = index[keep]
-    centres = np.stack([np.interp(k, frame_idx, uv[:, 0]), np.interp(k, frame_idx, uv[:, 1])], 1)
-    good = np.isfinite(radius)
-    radii = np.interp(k, frame_idx[good], radius[good])
-    return estimate_surface_spin([f for f, m in zip(frames, keep) if m], times[keep], centres, radii, camera=camera)
+    return win, fps
 
 
 def flight_spin_covariance(fit: FlightFit, v0, model=None) -> tuple[np.ndarray, np.ndarray]:
@@ -115,7 +181,8 @@ def flight_spin_covariance(fit: FlightFit, v0, model=None) -> tuple[np.ndarray, 
     return np.nan_to_num(w), scale ** 2 * B @ C2 @ B.T
 
 
-def apply_surface_spin(record: dict, fit: FlightFit | None, surface: SurfaceSpin, *, model=None) -> dict:
+def apply_surface_spin(record: dict, fit: FlightFit | None, surface: SurfaceSpin, *, model=None,
+                       camera_name: str | None = None) -> dict:
     """Put the surface reading into a fitted flight's record (in place; also returned).
 
     Readable: ``record["spin"]`` becomes the fused full spin (:func:`fuse_spin`, keys of the flight-file
@@ -133,7 +200,16 @@ def apply_surface_spin(record: dict, fit: FlightFit | None, surface: SurfaceSpin
         The spin read from the ball's surface, in the world frame.
     model : FlightModel, optional
         The flight model of the fit (needed only with a free lift coefficient).
+    camera_name : str, optional
+        The camera whose clip the surface was read from (a rig), named under ``spin.surface.camera``.
     """
+    _apply(record, fit, surface, model)
+    if camera_name is not None:
+        record["spin"]["surface"]["camera"] = camera_name
+    return record
+
+
+def _apply(record: dict, fit: FlightFit | None, surface: SurfaceSpin, model=None) -> dict:
     old = record["spin"]
     if fit is None or not surface.readable or surface.frame != "world":
         reason = surface.reason or ("no flight fit to compare with" if fit is None else

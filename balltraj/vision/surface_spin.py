@@ -206,12 +206,20 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
                    "film closer or zoom in", **base)
     smear = float(np.median([np.hypot(*discs[k].blur_px) for k in ok]))
     if smear > _MAX_SMEAR * r_med:
+        # the longest shutter that would do, from the ball's speed across the image over the window
+        c_ok = np.array([discs[k].centre_px for k in ok])
+        speed = float(np.median(np.hypot(*np.diff(c_ok, axis=0).T) / np.diff(times[ok])))
+        advice = (f"a shutter of 1/{math.ceil(speed / (_MAX_SMEAR * r_med)):.0f} s or shorter" if speed > 0
+                  else "a shorter shutter")
         return _no(f"the ball moves {smear:.1f} px ({100 * smear / r_med:.0f} % of its radius) during the exposure, "
-                   "which smears its markings: use a shorter shutter", **base)
+                   f"which smears its markings: use {advice}", **base)
     fr = {k: SurfaceFrame(frames[k], discs[k], camera, times[k]) for k in ok}
-    noise_rel = float(np.median([discs[k].noise / max(discs[k].shading.sum(), 1.0) for k in ok]))
+    noise_rel = float(np.median([_patch_noise(discs[k]) for k in ok]))
     texture = float(np.median([fr[k].texture for k in ok]))
-    if texture < max(0.02, 3 * noise_rel):
+    # the band-passed surface's spread is markings and noise in quadrature: below 1.5 times the noise the
+    # markings are weaker than the noise itself (s < 1.1 n); above, the registration's own checks (match,
+    # frame gaps, sigma) decide
+    if texture < max(0.02, 1.5 * noise_rel):
         return _no(f"no surface markings to follow (contrast {texture:.3f}, noise {noise_rel:.3f})", **base)
     pairs = [(a, b) for i, a in enumerate(ok) for b in ok[i + 1:] if 1 <= b - a <= max_gap]
     dt1 = float(np.median(np.diff(times[ok]) / np.diff(ok)))
@@ -336,6 +344,16 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
         omega, cov, frame = Rc.T @ omega, Rc.T @ cov @ Rc, "world"
     return SurfaceSpin(readable=True, spin_radps=omega, covariance=cov, frame=frame, decay_s=decay,
                        decay_sigma_s=decay_sig, **base)
+
+
+def _patch_noise(d: BallDisc) -> float:
+    """The pixel noise of the surface patch (relative albedo): the fit's noise over the shading, median over
+    the part of the disc the registration uses."""
+    g = np.linspace(-0.8, 0.8, 9)
+    gx, gy = np.meshgrid(g, g)
+    m = gx ** 2 + gy ** 2 < 0.64
+    S = d.shade(d.centre_px + d.radius_px * np.stack([gx[m], gy[m]], 1))
+    return float(d.noise) * float(np.median(1.0 / np.maximum(S, 1.0)))
 
 
 def _orientation_line(pairs, phis, omega0, times, c=2.0, iterations=8):

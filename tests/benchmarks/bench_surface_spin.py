@@ -4,17 +4,24 @@ spin could not be read. Truth from tests/surface_render.py (its own ray-cast sph
 motion blur; no code shared with the estimator). Writes the table into docs/validation.md.
 
 Targets (issue 18): at >= 240 fps and >= 10 px radius, rate within 3 % and axis within 5 degrees.
-Each row: two clips with random spin axes and rates of 1200-2800 rpm; a ball at 35 m/s
-(946 radii a second across the image); a 25-40 ms window; noise 2 grey levels unless stated.
+Each target row: six clips (two on rows that are not targets or that the tool declines), random spin
+axes and rates of 1200-2800 rpm; a ball at 35 m/s (946 radii a second across the image); a 17-33 ms
+window; noise 2 grey levels unless stated. Coverage: how often the rate error is within its one sigma
+(68 % expected for an honest sigma) and the axis error within its 68 % cone (1.51 times the
+per-component axis sigma: the radius of a 2-D Gaussian, a Rayleigh law).
 
-Run: python tests/benchmarks/bench_surface_spin.py          (about 10 minutes on 2 shared cores)
+Run: python tests/benchmarks/bench_surface_spin.py          (about 6 minutes, two worker processes)
 """
 import math
+import multiprocessing
+import os
 import sys
 import time
 from pathlib import Path
 
-import numpy as np
+for _v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):  # one thread a worker process
+    os.environ.setdefault(_v, "1")
+import numpy as np  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
@@ -34,7 +41,7 @@ def run_case(fps=240.0, radius=14.0, exposure=1 / 8000, noise=2.0, crf=None, tex
         axis /= np.linalg.norm(axis)
         rate = rng.uniform(1200, 2800) / RPM_PER_RADPS
         spin = axis * rate
-        n = int(np.clip(round(fps * 0.03), 8, 24))
+        n = int(np.clip(round(fps * 0.03), 8, 16))
         v = SPEED_RADII_PER_S * radius
         w = int(2 * (2.2 * radius + 4) + v * n / fps) // 2 * 2 + 2
         h = int(5 * radius) // 2 * 2 + 8
@@ -52,52 +59,94 @@ def run_case(fps=240.0, radius=14.0, exposure=1 / 8000, noise=2.0, crf=None, tex
             cosang = float(res.spin_radps @ spin) / np.linalg.norm(res.spin_radps) / rate
             e_axis = math.degrees(math.acos(max(-1.0, min(1.0, cosang))))
             z = abs(e_rate / 100 * rate * RPM_PER_RADPS) / res.rate_sigma_rpm
-            out.append(dict(read=True, rate=e_rate, axis=e_axis, z=z, s=dt, reason=""))
+            out.append(dict(read=True, rate=e_rate, axis=e_axis, z=z, z_axis=e_axis / res.axis_sigma_deg, s=dt,
+                            reason=""))
         else:
             out.append(dict(read=False, reason=res.reason.split(":")[0].split("(")[0].strip(), s=dt))
     return out
 
 
+AXIS_CONE_68 = math.sqrt(2 * math.log(1 / 0.32))  # 68 % radius of a 2-D Gaussian in sigmas (Rayleigh law)
+
+
+def _cases():
+    six, two = tuple(range(6)), (0, 1)
+    cases = [("frame rate", "120 fps", dict(fps=120), two)]
+    cases += [("frame rate", f"{fps} fps", dict(fps=fps), six) for fps in (240, 480, 960)]
+    cases += [("radius", f"{r} px", dict(radius=r), two) for r in (6, 8)]
+    cases += [("radius", f"{r} px", dict(radius=r), six) for r in (10, 20, 30)]
+    cases += [("exposure", "1/4000 s", dict(exposure=1 / 4000), six)]
+    cases += [("exposure", f"1/{e} s", dict(exposure=1 / e), two) for e in (2000, 1000)]
+    cases += [("noise", f"{nz:g} grey levels", dict(noise=nz), six) for nz in (5.0, 10.0)]
+    cases += [("H.264", f"crf {crf}", dict(crf=crf), six) for crf in (18, 23)]
+    cases += [("H.264", "crf 30", dict(crf=30), two)]
+    cases += [("texture", "plain ball", dict(texture="plain"), two)]
+    cases += [("texture", "painted dots", dict(texture="dots"), six)]
+    return cases
+
+
+def _init():
+    import cv2
+
+    cv2.setNumThreads(1)
+
+
+def _one(job):
+    i, kw, seed = job
+    return i, seed, run_case(**kw, seeds=(seed,))[0]
+
+
 def main():
-    cases = []
-    for fps in (120, 240, 480, 960):
-        cases.append(("frame rate", f"{fps} fps", dict(fps=fps)))
-    for r in (6, 8, 10, 20, 30):
-        cases.append(("radius", f"{r} px", dict(radius=r)))
-    for e in (4000, 2000, 1000):
-        cases.append(("exposure", f"1/{e} s", dict(exposure=1 / e)))
-    for nz in (5.0, 10.0):
-        cases.append(("noise", f"{nz:g} grey levels", dict(noise=nz)))
-    for crf in (18, 23, 30):
-        cases.append(("H.264", f"crf {crf}", dict(crf=crf)))
-    cases.append(("texture", "plain ball", dict(texture="plain")))
-    cases.append(("texture", "painted dots", dict(texture="dots")))
+    cases = _cases()
+    jobs = [(i, kw, seed) for i, (_, _, kw, seeds) in enumerate(cases) for seed in seeds]
+    jobs.sort(key=lambda j: -j[1].get("fps", 240) * j[1].get("radius", 14))  # the slow ones first
+    results = {i: [] for i in range(len(cases))}
+    t0 = time.perf_counter()
+    with multiprocessing.Pool(2, initializer=_init) as pool:
+        for n_done, (i, seed, row) in enumerate(pool.imap_unordered(_one, jobs), 1):
+            results[i].append((seed, row))
+            print(f"{n_done}/{len(jobs)} {cases[i][0]} {cases[i][1]} seed {seed}: "
+                  + (f"{row['rate']:+.1f} %, {row['axis']:.1f} deg" if row["read"] else row["reason"]),
+                  file=sys.stderr, flush=True)
+    wall = time.perf_counter() - t0
     lines = ["Surface spin on rendered clips (240 fps, radius 14 px, exposure 1/8000 s, noise 2 grey levels unless "
-             "the row says otherwise; two clips a row, spin 1200-2800 rpm about random axes; rate error in %, axis "
-             "error in degrees, |error| / sigma of the rate; target rows: >= 240 fps and >= 10 px)", "",
-             "| varied | value | read | rate error % | axis error deg | rate error / sigma | target met | "
-             "could not read because | s a clip |", "|---|---|---|---|---|---|---|---|---|"]
-    all_ok = True
-    for group, label, kw in cases:
-        rows = run_case(**kw)
+             "the row says otherwise; spin 1200-2800 rpm about random axes; rate error in %, axis error in degrees; "
+             "target rows (>= 240 fps and >= 10 px) have six clips, the others two; coverage: rate error within one "
+             "sigma, axis error within its 68 % cone)", "",
+             "| varied | value | read | rate error % (median abs / worst) | axis error deg (median / worst) | "
+             "rate within 1 sigma | axis within 68 % cone | target met | could not read because | s a clip |",
+             "|---|---|---|---|---|---|---|---|---|---|"]
+    all_ok, pool_rate, pool_axis = True, [], []
+    for i, (group, label, kw, seeds) in enumerate(cases):
+        rows = [r for _, r in sorted(results[i], key=lambda x: x[0])]
         read = [r for r in rows if r["read"]]
         fps, radius = kw.get("fps", 240), kw.get("radius", 14)
         target = fps >= 240 and radius >= 10 and kw.get("texture", "seams") != "plain"
         met = all(r["read"] and abs(r["rate"]) < 3 and r["axis"] < 5 for r in rows)
-        no_guess = all(r["read"] or r["reason"] for r in rows)
-        if target and kw.get("exposure", 0) <= 1 / 4000 and kw.get("noise", 2) <= 5 and (kw.get("crf") or 0) <= 23:
+        assert all(r["read"] or r["reason"] for r in rows)  # never a silent guess
+        easy = kw.get("exposure", 0) <= 1 / 4000 and kw.get("noise", 2) <= 5 and (kw.get("crf") or 0) <= 23
+        if target and easy:
             all_ok &= met
-        rate = " / ".join(f"{r['rate']:+.1f}" for r in read) or "-"
-        axis = " / ".join(f"{r['axis']:.1f}" for r in read) or "-"
-        zs = " / ".join(f"{r['z']:.1f}" for r in read) or "-"
+        if target:
+            pool_rate += [r["z"] <= 1 for r in read]
+            pool_axis += [r["z_axis"] <= AXIS_CONE_68 for r in read]
+        if read:
+            ar, ax = np.abs([r["rate"] for r in read]), np.array([r["axis"] for r in read])
+            rate = f"{np.median(ar):.1f} / {max(read, key=lambda r: abs(r['rate']))['rate']:+.1f}"
+            axis = f"{np.median(ax):.1f} / {ax.max():.1f}"
+            cz = f"{sum(r['z'] <= 1 for r in read)}/{len(read)}"
+            ca = f"{sum(r['z_axis'] <= AXIS_CONE_68 for r in read)}/{len(read)}"
+        else:
+            rate = axis = cz = ca = "-"
         why = "; ".join(sorted({r["reason"] for r in rows if not r["read"]})) or ""
         tm = ("yes" if met else "no") if target else "(not a target)"
-        lines.append(f"| {group} | {label} | {len(read)}/{len(rows)} | {rate} | {axis} | {zs} | {tm} | {why} | "
+        lines.append(f"| {group} | {label} | {len(read)}/{len(rows)} | {rate} | {axis} | {cz} | {ca} | {tm} | {why} | "
                      f"{np.mean([r['s'] for r in rows]):.0f} |")
-        assert no_guess
-        print(lines[-1], flush=True)
+    n = len(pool_rate)
     lines += ["", f"Targets met on every target row with exposure 1/4000 s or shorter, noise <= 5 and crf <= 23: "
-              f"{'yes' if all_ok else 'no'}."]
+              f"{'yes' if all_ok else 'no'}. Over the {n} clips read on target rows: rate within one sigma "
+              f"{100 * np.mean(pool_rate):.0f} % (68 % expected), axis within its 68 % cone "
+              f"{100 * np.mean(pool_axis):.0f} %. Wall time {wall / 60:.1f} min on two worker processes."]
     publish("surface-spin", lines)
 
 
