@@ -355,7 +355,7 @@ def ball_sprite(ball: Ball, r_px: float, orient: np.ndarray, light_cam: np.ndarr
     alb = np.where(mark[..., None], np.float32(ball.marking), np.float32(ball.albedo))
     lam = np.clip(n @ light_cam.astype(np.float32), 0, 1)
     refl = 2 * lam[..., None] * n - light_cam.astype(np.float32)
-    spec = 0.12 * np.clip(-refl[..., 2], 0, 1) ** 20
+    spec = 0.12 * np.clip(-refl[..., 2], 0, 1) ** 20 * (lam > 0)
     rgb = alb * (ambient + 0.9 * lam)[..., None] + spec[..., None]
     rgba = np.concatenate([rgb * inside[..., None], inside[..., None].astype(np.float32)], -1).astype(np.float32)
     return cv2.resize(rgba, (size, size), interpolation=cv2.INTER_AREA)
@@ -405,7 +405,7 @@ def render_shot(shot: Shot, path) -> list[dict]:
     lens, ball, rng = shot.lens, shot.ball, np.random.default_rng(shot.seed)
     wid, hgt = lens.size
     cx, cy = lens.centre
-    tt, traj, seg = fly(ball, shot.p0, shot.v0, shot.t_launch, shot.duration + 0.2, shot.kicks)
+    tt, traj, seg = fly(ball, shot.p0, shot.v0, shot.t_launch, max(shot.duration, shot.t_launch) + 0.2, shot.kicks)
     grid = np.arange(-0.05, shot.duration + 0.1, 1e-3)
     sx, sy, roll = _view_path(shot, grid, (tt, traj))
     # undistorted base-pinhole coordinates of every frame pixel

@@ -166,7 +166,7 @@ def preview(shot, truth, path, out_png):
 
 
 def main():
-    rows, tot, fails = [], np.zeros(4), []
+    rows, tot = [], np.zeros(4)
     prev = sys.argv[sys.argv.index("--preview") + 1] if "--preview" in sys.argv else None
     t_start = time.perf_counter()
     with tempfile.TemporaryDirectory() as d:
