@@ -1,26 +1,21 @@
-"""Phone-like clips of a ball for tracking checks, with truth (a second renderer, written apart from the tracker).
+"""Phone-like clips of a ball with their truth: a second renderer, written apart from the tracker.
 
-How a clip is made:
+- The ball flies by its own RK4 integrator (gravity, quadratic drag, lift along spin axis x velocity),
+  bounces with restitution and a friction factor, and is kicked again when it falls through a kick height.
+- A pinhole camera with two-term radial distortion; the background (sky with clouds; grass, court or a
+  wooden floor with painted lines; a dark hall, brick, trees, a fence) is ray-cast once per scene onto a
+  canvas larger than the frame.
+- Each exposure: figures (limbs as thick anti-aliased strokes, shirts; walking, kicking, throwing) and the
+  ball (a shaded, supersampled sphere with panels or a seam, moved over the shutter time, sheared by the
+  rolling shutter) are drawn on the canvas in depth order; hand-held view motion (shake, a following
+  pan, roll), the rolling shutter and the lens distortion are one remap from canvas to frame; then
+  lagging auto-exposure, mains flicker, vignetting, shot + read noise, a square-root tone curve, netting
+  in front of the lens; frame-rate conversion (repeated or dropped exposures), a scene cut with a
+  one-frame gap in the times; H.264 (libx264, yuv420p) at a phone bitrate through PyAV.
 
-- The ball flies by its own fixed-step RK4 integrator: gravity, quadratic drag and a lift force along
-  spin-axis x velocity; it bounces on the ground (restitution, horizontal speed kept by a friction
-  factor) and can be kicked again (its velocity replaced when it falls through a kick height).
-- A pinhole camera with two-term radial distortion looks at the scene from a fixed base pose. The
-  background (sky gradient with clouds, grass or court or wooden floor with painted lines, a dark wall,
-  a brick wall or a fence) is ray-cast once per scene onto a canvas larger than the frame.
-- Each exposure: people (limbs as thick anti-aliased strokes, coloured shirts, walking, kicking or
-  throwing) and the ball (a shaded sphere with panels or a seam, supersampled, moved over the shutter
-  time for motion blur and sheared by the rolling shutter) are drawn on the canvas in depth order.
-  The hand-held view (shake, a pan that follows the ball with a lag, roll), the rolling shutter
-  (every row its own time) and the lens distortion are one remap from the canvas to the frame.
-- Then auto-exposure that adapts with a lag, mains flicker bands, vignetting, shot + read noise, a
-  gamma tone curve, optional netting in front of the lens; frame-rate conversion (repeats or drops of
-  exposures), an optional scene cut with a one-frame gap in the timestamps; H.264 (libx264, yuv420p)
-  at a phone bitrate through PyAV.
-
-Truth per container frame: time, exposure index, repeated-frame flag, the ball's image centre (the mean
-of its projected positions over the exposure, through view motion and distortion), its radius
-(f R / depth times the lens's local magnification) and whether it is wholly in view and not hidden.
+Truth per container frame: time, exposure, repeated-frame flag, the ball's image centre (the mean of its
+projections over the exposure, through view motion and distortion), radius (f R / depth times the lens's
+local magnification) and whether it is wholly in view and not hidden by a figure.
 """
 from __future__ import annotations
 
@@ -30,6 +25,7 @@ from fractions import Fraction
 
 import cv2
 import numpy as np
+from scipy.signal import lfilter
 
 G = 9.81  # [m/s^2] (common practice)
 AIR = 1.2  # air density [kg/m^3] (common practice)
@@ -63,37 +59,37 @@ class Lens:
     def to_camera(self, pts) -> np.ndarray:
         return (np.atleast_2d(pts) - np.asarray(self.pos)) @ self.rotation().T
 
-    def distort(self, x, y):
+    def _factor(self, x, y):
         r2 = x * x + y * y
-        d = 1 + self.k1 * r2 + self.k2 * r2 * r2
+        return 1 + self.k1 * r2 + self.k2 * r2 * r2, r2
+
+    def distort(self, x, y):
+        d, _ = self._factor(x, y)
         return x * d, y * d
 
     def undistort(self, xd, yd, iters: int = 12):
         x, y = xd, yd
-        for _ in range(iters):
-            r2 = x * x + y * y
-            d = 1 + self.k1 * r2 + self.k2 * r2 * r2
+        for _ in range(iters):  # fixed-point iteration x = xd / d(x)
+            d, _ = self._factor(x, y)
             x, y = xd / d, yd / d
         return x, y
 
     def magnification(self, x, y):
         """Local areal scale of the distortion, as a length ratio: sqrt(d (d + r dd/dr))."""
-        r2 = x * x + y * y
-        d = 1 + self.k1 * r2 + self.k2 * r2 * r2
+        d, r2 = self._factor(x, y)
         return np.sqrt(d * (d + 2 * self.k1 * r2 + 4 * self.k2 * r2 * r2))
 
-    def pinhole(self, pts):
-        """Undistorted pixel (u, v) and depth of world points, shape (N, 3) [m] -> (N, 2) [px], (N,) [m]."""
+    def pinhole(self, pts, distorted: bool = False):
+        """Pixel (u, v) [px] (undistorted unless ``distorted``) and depth [m] of world points, shape (N, 3) [m]."""
         c = self.to_camera(pts)
-        cx, cy = self.centre
-        return np.stack([cx + self.f * c[:, 0] / c[:, 2], cy + self.f * c[:, 1] / c[:, 2]], 1), c[:, 2]
+        x, y = c[:, 0] / c[:, 2], c[:, 1] / c[:, 2]
+        if distorted:
+            x, y = self.distort(x, y)
+        return np.stack([self.centre[0] + self.f * x, self.centre[1] + self.f * y], 1), c[:, 2]
 
     def project(self, pts):
         """Distorted pixel (u, v) [px] and depth [m] of world points, shape (N, 3) [m]."""
-        c = self.to_camera(pts)
-        cx, cy = self.centre
-        xd, yd = self.distort(c[:, 0] / c[:, 2], c[:, 1] / c[:, 2])
-        return np.stack([cx + self.f * xd, cy + self.f * yd], 1), c[:, 2]
+        return self.pinhole(pts, True)
 
 
 @dataclass
@@ -202,7 +198,7 @@ class Person:
                 s = (t - self.throw_at) / 0.18
                 a = -2.6 + 3.6 / (1 + math.exp(-3 * s)) if s > -3 else a
             limb(sh, a, 0.4, 0.17 * h, 0.16 * h, 0.05 * h, self.shirt if side < 0 else self.skin, 0.08 * side)
-        parts.append((sh + [0, 0, 0.05 * h], sh + [0, 0, 0.13 * h], 0.12 * h, self.skin))
+        parts.append((sh + [0, 0, 0.1 * h], sh + [0, 0, 0.11 * h], 0.13 * h, self.skin))
         return parts
 
     def depth_point(self, t):
@@ -267,68 +263,62 @@ def _sample(tex, a, b):
                      borderMode=cv2.BORDER_WRAP)
 
 
+GROUNDS = {  # base colour (linear RGB), paint colour, texture: (fine, coarse, stripe) weights
+    "grass": ((0.05, 0.15, 0.035), (0.8, 0.82, 0.8), (0.18, 0.15, 0.1)),
+    "court": ((0.06, 0.16, 0.3), (0.85, 0.85, 0.85), (0.05, 0.05, 0.0)),
+    "floor": ((0.12, 0.07, 0.035), (0.5, 0.45, 0.1), (0.12, 0.1, 0.2)),
+}
+
+
 def backdrop(lens: Lens, shape, offset, style: Style, rng) -> np.ndarray:
-    """Ray-cast the static scene onto a canvas, shape (H, W) [px], canvas origin at base pixel -offset."""
+    """Ray-cast the static scene onto a canvas, shape (H, W) [px], whose pixel ``offset`` is the frame's (0, 0)."""
     hgt, wid = shape
     cx, cy = lens.centre
     u, v = np.meshgrid(np.arange(wid, dtype=np.float32) - offset[0], np.arange(hgt, dtype=np.float32) - offset[1])
     d = np.stack([(u - cx) / lens.f, (v - cy) / lens.f, np.ones_like(u)], -1) @ lens.rotation().astype(np.float32)
     d /= np.linalg.norm(d, axis=-1, keepdims=True)
-    c = np.asarray(lens.pos, np.float32)
+    c, f32 = np.asarray(lens.pos, np.float32), np.float32
     tn1, tn2 = _noise_tex(rng), _noise_tex(rng)
-    elev = np.clip(d[..., 2], -1, 1)
-    sky = np.array([0.78, 0.84, 0.9], np.float32) * (1 - np.sqrt(np.clip(elev, 0, 1)))[..., None] + \
-        np.array([0.22, 0.4, 0.78], np.float32) * np.sqrt(np.clip(elev, 0, 1))[..., None]
-    cl = np.clip(0.8 * _sample(tn1, d[..., 0] / (elev + 0.08) * 0.15, d[..., 1] / (elev + 0.08) * 0.15) - 0.2, 0, 1)
-    img = sky * (1 - 0.85 * cl[..., None]) + 0.95 * 0.85 * cl[..., None]
+    el = np.sqrt(np.clip(d[..., 2], 0, 1))[..., None]
+    sky = np.array([0.78, 0.84, 0.9], f32) * (1 - el) + np.array([0.22, 0.4, 0.78], f32) * el
+    h = d[..., 2] + 0.08  # clouds on a plane above the camera
+    cl = np.clip(0.8 * _sample(tn1, d[..., 0] / h * 0.15, d[..., 1] / h * 0.15) - 0.2, 0, 1)[..., None]
+    sky = sky * (1 - 0.85 * cl) + 0.81 * cl
     t_g = np.where(d[..., 2] < -1e-4, -c[2] / np.minimum(d[..., 2], -1e-4), np.inf)
-    t_w = np.where(d[..., 1] > 1e-4, (style.wall_y - c[1]) / np.maximum(d[..., 1], 1e-4), np.inf) \
-        if style.wall else np.full_like(t_g, np.inf)
+    t_w = np.where(d[..., 1] > 1e-4, (style.wall_y - c[1]) / np.maximum(d[..., 1], 1e-4), np.inf)
+    t_w = t_w if style.wall else np.full_like(t_g, np.inf)
     gx, gy = c[0] + t_g * d[..., 0], c[1] + t_g * d[..., 1]
-    n1, n2 = _sample(tn1, gx * 0.7, gy * 0.7), _sample(tn2, gx * 0.09, gy * 0.09)
-    if style.ground == "grass":
-        base = np.array([0.05, 0.15, 0.035], np.float32)
-        tone = 1 + 0.18 * n1 + 0.15 * n2 + 0.1 * np.sign(np.sin(gy * math.pi / 4))
-        paint = np.array([0.8, 0.82, 0.8], np.float32)
-    elif style.ground == "court":
-        base = np.array([0.06, 0.16, 0.3], np.float32)
-        tone = 1 + 0.05 * n1 + 0.05 * n2
-        paint = np.array([0.85, 0.85, 0.85], np.float32)
-    else:
-        base = np.array([0.12, 0.07, 0.035], np.float32)
-        tone = 1 + 0.12 * n1 + 0.2 * np.sin(np.floor(gy / 0.15) * 12.9898) + 0.1 * np.sin(gx * 3 + 2 * n2)
-        paint = np.array([0.5, 0.45, 0.1], np.float32)
-    ground = base * tone[..., None]
-    for (x0, y0), (x1, y1) in style.lines:
+    base, paint, (w1, w2, w3) = GROUNDS[style.ground]
+    tone = 1 + w1 * _sample(tn1, gx * 0.7, gy * 0.7) + w2 * _sample(tn2, gx * 0.09, gy * 0.09)
+    tone += w3 * (np.sin(np.floor(gy / 0.15) * 12.9898) if style.ground == "floor" else np.sign(np.sin(gy * 0.785)))
+    ground = np.array(base, f32) * tone[..., None]
+    for (x0, y0), (x1, y1) in style.lines:  # painted lines 0.1 m wide, covered by the share of each pixel
         ax, ay = x1 - x0, y1 - y0
         s = np.clip(((gx - x0) * ax + (gy - y0) * ay) / (ax * ax + ay * ay), 0, 1)
         dist = np.hypot(gx - x0 - s * ax, gy - y0 - s * ay)
-        gy_, gx_ = np.gradient(dist)
-        step = np.maximum(np.hypot(gx_, gy_), 1e-4)  # ground length of a pixel across the line [m]
+        step = np.maximum(np.hypot(*np.gradient(dist)), 1e-4)  # ground length of a pixel across the line [m]
         m = (np.clip((0.05 - dist) / step + 0.5, 0, 1) * np.minimum(1, 0.1 / step))[..., None]
-        ground = ground * (1 - m) + paint * m
+        ground = ground * (1 - m) + np.array(paint, f32) * m
     ground *= (0.6 + 0.5 * max(0.0, style.sun[2])) * (0.35 if style.wall == "dark" else 1.0)
     wx, wz = c[0] + t_w * d[..., 0], c[2] + t_w * d[..., 2]
-    if style.wall == "dark":
-        wall = np.array([0.006, 0.0055, 0.005], np.float32) * (1 + 0.3 * _sample(tn2, wx * 0.2, wz * 0.2))[..., None]
-        lit = ((np.abs((wx % 3.0) - 1.5) < 0.5) & (np.abs(wz - 1.8) < 0.4)).astype(np.float32)
-        wall = wall + np.array([0.12, 0.1, 0.07], np.float32) * cv2.GaussianBlur(lit, (0, 0), 3)[..., None]
+    if style.wall == "dark":  # an unlit hall with a few lit panels
+        wall = np.array([0.006, 0.0055, 0.005], f32) * (1 + 0.3 * _sample(tn2, wx * 0.2, wz * 0.2))[..., None]
+        lit = ((np.abs((wx % 3.0) - 1.5) < 0.5) & (np.abs(wz - 1.8) < 0.4)).astype(f32)
+        wall = wall + np.array([0.12, 0.1, 0.07], f32) * cv2.GaussianBlur(lit, (0, 0), 3)[..., None]
     elif style.wall == "brick":
         row = np.floor(wz / 0.075)
         mortar = (np.abs((wz % 0.075) - 0.037) > 0.03) | (np.abs(((wx + 0.11 * (row % 2)) % 0.22) - 0.11) > 0.1)
-        wall = np.where(mortar[..., None], np.float32(0.3), np.array([0.25, 0.08, 0.05], np.float32)
+        wall = np.where(mortar[..., None], f32(0.3), np.array([0.25, 0.08, 0.05], f32)
                         * (1 + 0.25 * np.sin(row * 7.1 + np.floor(wx / 0.22) * 3.3))[..., None])
-    else:
-        wall = np.array([0.03, 0.09, 0.03], np.float32) * (1 + 0.5 * _sample(tn1, wx * 0.4, wz * 0.4))[..., None]
-        wall = np.where((wz > 6 + 2 * _sample(tn2, wx * 0.05, 0 * wx))[..., None], img, wall)
+    else:  # trees with an uneven top, behind a chain-link fence up to 3.5 m if "fence"
+        wall = np.array([0.03, 0.09, 0.03], f32) * (1 + 0.5 * _sample(tn1, wx * 0.4, wz * 0.4))[..., None]
+        wall = np.where((wz > 6 + 2 * _sample(tn2, wx * 0.05, 0 * wx))[..., None], sky, wall)
         if style.wall == "fence":
             grid = np.minimum(np.abs(((wx + wz) % 0.06) - 0.03), np.abs(((wx - wz) % 0.06) - 0.03))
             wire = np.clip(1 - grid / np.maximum(t_w / lens.f, 1e-3) * 0.8, 0, 0.6)[..., None]
             wall = np.where((wz < 3.5)[..., None], wall * (1 - wire) + 0.35 * wire, wall)
-    hit_w = t_w < t_g
-    img = np.where(np.isfinite(np.minimum(t_g, t_w))[..., None], np.where(hit_w[..., None], wall, ground), img)
-    img = np.nan_to_num(img * style.brightness).astype(np.float32)
-    return cv2.GaussianBlur(img, (0, 0), 0.7)  # the lens's own blur
+    img = np.where((t_w < t_g)[..., None], wall, np.where(np.isfinite(t_g)[..., None], ground, sky))
+    return cv2.GaussianBlur(np.nan_to_num(img * style.brightness).astype(f32), (0, 0), 0.7)  # the lens's own blur
 
 
 _ICOSA = np.array([[0, 1, 1.618], [0, -1, 1.618], [0, 1, -1.618], [0, -1, -1.618], [1, 1.618, 0], [-1, 1.618, 0],
@@ -361,41 +351,33 @@ def ball_sprite(ball: Ball, r_px: float, orient: np.ndarray, light_cam: np.ndarr
     return cv2.resize(rgba, (size, size), interpolation=cv2.INTER_AREA)
 
 
-def spin_matrix(axis, angle):
-    a = np.asarray(axis, float) / np.linalg.norm(axis)
-    k = np.array([[0, -a[2], a[1]], [a[2], 0, -a[0]], [-a[1], a[0], 0]])
-    return np.eye(3) + math.sin(angle) * k + (1 - math.cos(angle)) * k @ k
-
-
-def _view_path(shot: Shot, times, traj):
-    """Image-plane view motion on a time grid: shift x, shift y [px] and roll [rad] of the canvas under the frame."""
+def _view_path(shot: Shot, times, tt, traj):
+    """View motion on a time grid: canvas shift x, y [px] and roll [rad] under the frame (shake + following pan)."""
     rng = np.random.default_rng(shot.seed + 7)
     sx, sy = np.zeros_like(times), np.zeros_like(times)
     for amp, hz in ((1.0, 1.3), (0.5, 3.1), (0.3, 7.3)):
         sx += shot.shake_px * amp * np.sin(2 * math.pi * hz * times + rng.uniform(0, 6.3))
         sy += shot.shake_px * amp * np.sin(2 * math.pi * hz * 1.1 * times + rng.uniform(0, 6.3))
     if shot.follow:
-        tt, pos = traj
-        uv, _ = shot.lens.pinhole(np.stack([np.interp(np.clip(times, tt[0], tt[-1]), tt, pos[:, i])
-                                            for i in range(3)], 1))
-        target = shot.follow * (uv - np.asarray(shot.lens.centre))
-        a = 1 - math.exp(-(times[1] - times[0]) / shot.follow_lag)
-        pan = np.empty_like(target)
-        pan[0] = target[0]
-        for i in range(1, len(times)):
-            pan[i] = pan[i - 1] + a * (target[i] - pan[i - 1])
+        uv, _ = shot.lens.pinhole(_at(np.clip(times, tt[0], tt[-1]), tt, traj))
+        target, a = shot.follow * (uv - np.asarray(shot.lens.centre)), 1 - math.exp(-1e-3 / shot.follow_lag)
+        pan = lfilter([a], [1, a - 1], target - target[0], axis=0) + target[0]  # a first-order lag behind the ball
         sx, sy = sx + pan[:, 0], sy + pan[:, 1]
-    roll = math.radians(shot.roll_deg) * np.sin(2 * math.pi * 0.6 * times + rng.uniform(0, 6.3))
-    return sx, sy, roll
+    return sx, sy, math.radians(shot.roll_deg) * np.sin(2 * math.pi * 0.6 * times + rng.uniform(0, 6.3))
+
+
+def _at(t, tt, traj):
+    """Ball positions at times t, shape (N,) [s] -> (N, 3) [m]."""
+    return np.stack([np.interp(t, tt, traj[:, i]) for i in range(3)], -1)
 
 
 def _netting(size, rng):
-    wid, hgt = size
-    u, v = np.meshgrid(np.arange(wid, dtype=np.float32), np.arange(hgt, dtype=np.float32))
-    pitch = 0.1 * wid
+    """Transmission loss of an out-of-focus diamond mesh just in front of the lens, shape (H, W, 3)."""
+    u, v = np.meshgrid(np.arange(size[0], dtype=np.float32), np.arange(size[1], dtype=np.float32))
+    pitch, w = 0.1 * size[0], 0.012 * size[0]
     a, b = (u + v + rng.uniform(0, pitch)) % pitch, (u - v + rng.uniform(0, pitch)) % pitch
-    net = ((np.minimum(a, pitch - a) < 0.012 * wid) | (np.minimum(b, pitch - b) < 0.012 * wid)).astype(np.float32)
-    return cv2.GaussianBlur(net, (0, 0), 0.006 * wid)[..., None] * 0.55
+    net = ((np.minimum(a, pitch - a) < w) | (np.minimum(b, pitch - b) < w)).astype(np.float32)
+    return np.repeat(cv2.GaussianBlur(net, (0, 0), w / 2)[..., None] * 0.55, 3, 2)
 
 
 def render_shot(shot: Shot, path) -> list[dict]:
@@ -403,194 +385,160 @@ def render_shot(shot: Shot, path) -> list[dict]:
     import av
 
     lens, ball, rng = shot.lens, shot.ball, np.random.default_rng(shot.seed)
-    wid, hgt = lens.size
-    cx, cy = lens.centre
+    (wid, hgt), (cx, cy) = lens.size, lens.centre
     tt, traj, seg = fly(ball, shot.p0, shot.v0, shot.t_launch, max(shot.duration, shot.t_launch) + 0.2, shot.kicks)
     grid = np.arange(-0.05, shot.duration + 0.1, 1e-3)
-    sx, sy, roll = _view_path(shot, grid, (tt, traj))
-    # undistorted base-pinhole coordinates of every frame pixel
-    xn, yn = lens.undistort((np.arange(wid, dtype=np.float32)[None, :] - cx) / lens.f,
-                            (np.arange(hgt, dtype=np.float32)[:, None] - cy) / lens.f + 0 * np.zeros((1, wid), np.float32))
-    xu, yu = cx + lens.f * xn, cy + lens.f * yn
-    rmax = float(np.hypot(xu - cx, yu - cy).max())
-    pad = np.abs(roll).max() * rmax + 12
-    off = (float(-min(xu.min(), 0) + max(0, -sx.min()) + pad), float(-min(yu.min(), 0) + max(0, -sy.min()) + pad))
-    shape = (int(hgt + off[1] + max(yu.max() - hgt, 0) + max(sy.max(), 0) + pad),
-             int(wid + off[0] + max(xu.max() - wid, 0) + max(sx.max(), 0) + pad))
+    sx, sy, roll = _view_path(shot, grid, tt, traj)
+    xn, yn = lens.undistort(np.broadcast_to((np.arange(wid, dtype=np.float32) - cx) / lens.f, (hgt, wid)),
+                            np.broadcast_to((np.arange(hgt, dtype=np.float32)[:, None] - cy) / lens.f, (hgt, wid)))
+    xu, yu = lens.f * xn, lens.f * yn  # undistorted pinhole offsets from the centre of every frame pixel [px]
+    pad = np.abs(roll).max() * float(np.hypot(xu, yu).max()) + 12
+    off = (float(pad - min(xu.min() + cx, 0) - min(sx.min(), 0)), float(pad - min(yu.min() + cy, 0) - min(sy.min(), 0)))
+    shape = (int(off[1] + max(yu.max() + cy, hgt) + max(sy.max(), 0) + pad),
+             int(off[0] + max(xu.max() + cx, wid) + max(sx.max(), 0) + pad))
     with np.errstate(invalid="ignore", over="ignore"):
-        scenes = {"main": backdrop(lens, shape, off, shot.style, rng)}
-        if shot.cut_at is not None:
-            scenes["other"] = backdrop(lens, shape, off, shot.cut_style or Style(), rng)
-    rows = np.arange(hgt, dtype=np.float32)[:, None]
-    rr = np.hypot((np.arange(wid) - cx) / (wid / 2), (np.arange(hgt)[:, None] - cy) / (wid / 2))
-    vig = np.repeat((1 - shot.vignette * rr ** 2 / (1 + 0.3 * rr ** 2)).astype(np.float32)[..., None], 3, 2)
-    net = np.repeat(_netting(lens.size, rng), 3, 2) if shot.netting else None
+        styles = (shot.style,) if shot.cut_at is None else (shot.style, shot.cut_style or Style())
+        scenes = [backdrop(lens, shape, off, st, rng) for st in styles]
+    rr2 = ((np.arange(wid) - cx) ** 2 + (np.arange(hgt)[:, None] - cy) ** 2) / (wid / 2) ** 2
+    vig = np.repeat((1 - shot.vignette * rr2 / (1 + 0.3 * rr2)).astype(np.float32)[..., None], 3, 2)
+    net = _netting(lens.size, rng) if shot.netting else None
     bank = rng.standard_normal((hgt + 32, wid + 32, 3), dtype=np.float32)
     rcam, sun = lens.rotation(), np.asarray(shot.style.sun, float) / np.linalg.norm(shot.style.sun)
-    n_frames = int(round(shot.duration * shot.container_fps))
     rate = Fraction(shot.container_fps).limit_denominator(1001)
     out = av.open(str(path), "w")
     st = out.add_stream("libx264", rate=rate)
     st.width, st.height, st.pix_fmt, st.bit_rate = wid, hgt, "yuv420p", shot.bitrate
-    st.codec_context.gop_size = max(1, int(round(shot.container_fps)))
+    st.codec_context.gop_size = max(1, round(shot.container_fps))
     st.options = {"preset": "superfast"}
-    truth, last_e, img8, gain, pts, occl, maps = [], None, None, None, 0, 0.0, None
+    truth, last_e, gain, pts, occl, maps = [], None, None, 0, 0.0, None
     moving = bool(np.ptp(sx) or np.ptp(sy) or np.ptp(roll))
 
-    def view(t):
-        return np.interp(t, grid, sx), np.interp(t, grid, sy), np.interp(t, grid, roll)
-
     def to_frame(c, t):  # canvas points (N, 2) -> frame pixels (N, 2), through the view at time t
-        s_x, s_y, th = view(t)
+        s_x, s_y, th = np.interp(t, grid, sx), np.interp(t, grid, sy), np.interp(t, grid, roll)
         dx, dy = c[:, 0] - off[0] - s_x - cx, c[:, 1] - off[1] - s_y - cy
         xd, yd = lens.distort((math.cos(th) * dx + math.sin(th) * dy) / lens.f,
                               (-math.sin(th) * dx + math.cos(th) * dy) / lens.f)
         return np.stack([cx + lens.f * xd, cy + lens.f * yd], 1)
 
-    for k in range(n_frames):
+    for k in range(round(shot.duration * shot.container_fps)):
         t_k = k / shot.container_fps
         cut = shot.cut_at is not None and t_k >= shot.cut_at
         pre_cut = shot.cut_at is not None and not cut
-        if cut and shot.gap_at_cut and truth and not truth[-1]["cut"]:
-            pts += 1
-        e = int(math.floor(t_k * shot.capture_fps + 1e-6))
+        pts += int(cut and truth != [] and not truth[-1]["cut"])  # a one-frame gap in the times at the cut
+        e = math.floor(t_k * shot.capture_fps + 1e-6)
         te = e / shot.capture_fps
-        row = {"frame": k, "t": float(pts / rate), "exposure": e, "repeat": e == last_e, "cut": cut,
-               "visible": False}
+        row = {"frame": k, "t": float(pts / rate), "exposure": e, "repeat": e == last_e, "cut": cut, "visible": False}
         ball_on = not pre_cut and te + shot.shutter >= shot.t_launch
-        if ball_on:
+        if ball_on:  # the ball's row sets its time (rolling shutter): iterate
             v_g = cy
             for _ in range(3):
                 t_c = te + shot.readout * v_g / hgt + shot.shutter / 2
                 ts = t_c + shot.shutter * (np.linspace(0, 1, 9) - 0.5)
-                pos = np.stack([np.interp(ts, tt, traj[:, i]) for i in range(3)], 1)
-                cvs, dep = lens.pinhole(pos)
+                cvs, dep = lens.pinhole(_at(ts, tt, traj))
                 fr = to_frame(cvs + off, t_c)
                 v_g = float(fr[:, 1].mean())
-            mid = np.stack([np.interp(t_c, tt, traj[:, i]) for i in range(3)])
-            uc, vc = fr.mean(0)
-            (xm, ym) = lens.to_camera(mid)[0, :2] / lens.to_camera(mid)[0, 2]
-            r_px = lens.f * ball.radius_m / float(np.interp(t_c, ts, dep)) * float(lens.magnification(xm, ym))
-            row.update(u=float(uc), v=float(vc), r=r_px, segment=int(seg[min(np.searchsorted(tt, t_c), len(seg) - 1)]))
-            inside = (dep.min() > 0.2 and fr[:, 0].min() - r_px >= 0 and fr[:, 0].max() + r_px <= wid - 1
-                      and fr[:, 1].min() - r_px >= 0 and fr[:, 1].max() + r_px <= hgt - 1)
+            mid = _at(t_c, tt, traj)
+            xm, ym, zm = lens.to_camera(mid)[0]
+            r_px = lens.f * ball.radius_m / zm * float(lens.magnification(xm / zm, ym / zm))
+            i_c = min(np.searchsorted(tt, t_c), seg.size - 1)
+            row.update(u=float(fr[:, 0].mean()), v=v_g, r=r_px, segment=int(seg[i_c]))
+            inside = (dep.min() > 0.2 and fr[:, 0].min() >= r_px and fr[:, 0].max() + r_px <= wid - 1
+                      and fr[:, 1].min() >= r_px and fr[:, 1].max() + r_px <= hgt - 1)
         if e != last_e:
-            canvas = scenes["other" if pre_cut else "main"].copy()
-            people = shot.cut_people if pre_cut else shot.people
+            canvas = scenes[int(pre_cut)].copy()
             t_m = te + shot.readout / 2 + shot.shutter / 2
-            order = sorted(people, key=lambda p: -lens.to_camera(p.depth_point(t_m))[0, 2])
-            near, occl = [], 0.0
-            if ball_on:
-                zb = lens.to_camera(mid)[0, 2]
-                near = [p for p in order if lens.to_camera(p.depth_point(t_m))[0, 2] < zb]
-                order = [p for p in order if p not in near]
-            for p in order:
-                _draw_person(canvas, p, t_m, lens, off)
-            if ball_on:
-                occl = _draw_ball(canvas, shot, mid, t_c, rcam, sun, lens, off, near, tt, traj)
+            people = sorted(shot.cut_people if pre_cut else shot.people,
+                            key=lambda p: -lens.to_camera(p.depth_point(t_m))[0, 2])
+            near = [p for p in people if ball_on and lens.to_camera(p.depth_point(t_m))[0, 2] < zm]
+            for p in people:
+                if p not in near:
+                    _draw_person(canvas, p, t_m, lens, off)
+            occl = _draw_ball(canvas, shot, mid, t_c, rcam, sun, off, near, tt, traj) if ball_on else 0.0
             for p in near:
                 _draw_person(canvas, p, t_m, lens, off)
-            t_rows = te + shot.readout * rows / hgt + shot.shutter / 2
-            if maps is None or moving:
-                s_x, s_y, th = view(t_rows)
+            t_rows = te + shot.readout * np.arange(hgt, dtype=np.float32)[:, None] / hgt + shot.shutter / 2
+            if maps is None or moving:  # view motion, rolling shutter and distortion: one remap
+                s_x, s_y, th = np.interp(t_rows, grid, sx), np.interp(t_rows, grid, sy), np.interp(t_rows, grid, roll)
                 ct, sn = np.cos(th).astype(np.float32), np.sin(th).astype(np.float32)
-                maps = (cx + ct * (xu - cx) - sn * (yu - cy) + (s_x + off[0]).astype(np.float32),
-                        cy + sn * (xu - cx) + ct * (yu - cy) + (s_y + off[1]).astype(np.float32))
-            mx, my = maps
-            img = cv2.remap(canvas, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REFLECT)
+                maps = (ct * xu - sn * yu + (cx + s_x + off[0]).astype(np.float32),
+                        sn * xu + ct * yu + (cy + s_y + off[1]).astype(np.float32))
+            img = cv2.remap(canvas, *maps, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REFLECT)
             target = float(np.clip(0.14 / max(float((img * vig)[::16, ::16].mean()), 1e-3), 0.3, 4.0))
             if gain is None or (cut and not truth[-1]["cut"]):
                 gain = target
-            elif shot.auto_exposure:
+            elif shot.auto_exposure:  # auto-exposure follows the scene with a lag of 0.5 s
                 gain += (target - gain) * (1 - math.exp(-1 / shot.capture_fps / 0.5))
             fac = vig * np.float32(gain)
-            if shot.flicker:
+            if shot.flicker:  # 100 Hz mains flicker, banded by the rolling shutter
                 fac = fac * (1 + shot.flicker * np.sin(2 * math.pi * 100 * t_rows)).astype(np.float32)[..., None]
             img = cv2.multiply(img, fac)
             if net is not None:
                 img = cv2.add(cv2.multiply(img, 1 - net), 0.3 * net)
-            oy, ox = rng.integers(0, 32, 2)
+            oy, ox = rng.integers(0, 32, 2)  # shot + read noise
             sd = cv2.add(cv2.sqrt(cv2.max(img, 0.0) * np.float32(0.0008 * gain)), float(shot.read_noise * gain))
             img = cv2.scaleAdd(cv2.multiply(sd, bank[oy:oy + hgt, ox:ox + wid]), float(rng.choice([-1.0, 1.0])), img)
             img8 = cv2.convertScaleAbs(cv2.sqrt(cv2.max(img, 0.0)), alpha=255.0)  # square-root tone curve
             last_e = e
-        if ball_on:
-            row["visible"] = bool(inside and occl < 0.2)
+        row["visible"] = bool(ball_on and inside and occl < 0.2)
         frame = av.VideoFrame.from_ndarray(img8, format="rgb24")
         frame.pts = pts
-        for pkt in st.encode(frame):
-            out.mux(pkt)
+        out.mux(st.encode(frame))
         truth.append(row)
         pts += 1
-    for pkt in st.encode():
-        out.mux(pkt)
+    out.mux(st.encode())
     out.close()
     return truth
 
 
-def _stroke(canvas, a, b, width_px, colour):
-    p1 = tuple(int(round(q * 8)) for q in a)
-    p2 = tuple(int(round(q * 8)) for q in b)
-    cv2.line(canvas, p1, p2, tuple(float(c) for c in colour), max(1, int(round(width_px))), cv2.LINE_AA, 3)
-
-
 def _draw_person(canvas, person: Person, t, lens: Lens, off, mask_off=None):
+    """Draw a figure's strokes (or, with ``mask_off``, their cover into a mask whose origin is mask_off)."""
     for a, b, w, col in person.strokes(t):
         uv, dep = lens.pinhole(np.stack([a, b]))
         if dep.min() < 0.3:
             continue
-        uv = uv + off if mask_off is None else uv + off - mask_off
-        _stroke(canvas, uv[0], uv[1], w * lens.f / dep.mean(), (1.0,) * 3 if mask_off is not None else
-                tuple(0.55 * c for c in col))
+        uv = np.round((uv + off - (0 if mask_off is None else mask_off)) * 8).astype(int)  # 3 fraction bits
+        colour = (1.0,) * 3 if mask_off is not None else tuple(0.55 * float(c) for c in col)  # diffuse share lit
+        cv2.line(canvas, tuple(map(int, uv[0])), tuple(map(int, uv[1])), colour, max(1, round(w * lens.f / dep.mean())),
+                 cv2.LINE_AA, 3)
 
 
-def _draw_ball(canvas, shot: Shot, mid, t_c, rcam, sun, lens, off, near, tt, traj):
+def _draw_ball(canvas, shot: Shot, mid, t_c, rcam, sun, off, near, tt, traj):
     """Draw the ball (and its ground shadow) on the canvas over the exposure; return its hidden share."""
-    ball = shot.ball
-    uvm, zm = lens.pinhole(mid[None])
-    if zm[0] < 0.2:
+    ball, lens = shot.ball, shot.lens
+    zm = lens.to_camera(mid)[0, 2]
+    if zm < 0.2:
         return 1.0
-    r_c = lens.f * ball.radius_m / zm[0]
-    if shot.shadow and shot.style.wall != "dark":
-        sh, zs = lens.pinhole(np.array([[mid[0], mid[1], 0.0]]))
-        if zs[0] > 0.3:
-            p = sh[0] + off
-            rs = max(1.0, lens.f * ball.radius_m * 1.2 / zs[0])
-            dark = 0.45 * math.exp(-mid[2] / 2.0)
-            x0, y0 = int(p[0] - 3 * rs), int(p[1] - 2 * rs)
-            sub = canvas[max(y0, 0):max(y0 + int(4 * rs) + 2, 0), max(x0, 0):max(x0 + int(6 * rs) + 2, 0)]
-            if sub.size:
-                yy, xx = np.mgrid[max(y0, 0):max(y0, 0) + sub.shape[0], max(x0, 0):max(x0, 0) + sub.shape[1]]
-                sub *= (1 - dark * np.exp(-((xx - p[0]) ** 2 + (3 * (yy - p[1])) ** 2) / (rs * rs)))[..., None]
-    ts_mid = np.array([t_c - 1e-3, t_c + 1e-3])
-    vel = np.array([-1.0, 1.0]) @ lens.pinhole(np.stack([np.interp(ts_mid, tt, traj[:, i]) for i in range(3)], 1))[0] / 2e-3
-    streak = float(np.hypot(*vel)) * shot.shutter
-    n = int(np.clip(math.ceil(streak / 0.6) + 1, 1, 80))
-    ts = t_c + shot.shutter * ((np.arange(n) + 0.5) / n - 0.5)
-    cvs = lens.pinhole(np.stack([np.interp(ts, tt, traj[:, i]) for i in range(3)], 1))[0] + off
-    orient = rcam @ spin_matrix(ball.spin_axis, 2 * math.pi * ball.spin_rps * t_c)
+    sh, zs = lens.pinhole(np.array([[mid[0], mid[1], 0.0]]))
+    if shot.shadow and shot.style.wall != "dark" and zs[0] > 0.3:  # a soft shadow under the ball
+        rs, (px, py) = max(1.0, lens.f * ball.radius_m * 1.2 / zs[0]), sh[0] + off
+        x0, y0 = max(int(px - 3 * rs), 0), max(int(py - 2 * rs), 0)
+        sub = canvas[y0:max(int(py + 2 * rs) + 2, 0), x0:max(int(px + 3 * rs) + 2, 0)]
+        yy, xx = np.mgrid[y0:y0 + sub.shape[0], x0:x0 + sub.shape[1]]
+        dark = 0.45 * math.exp(-mid[2] / 2.0)
+        sub *= (1 - dark * np.exp(-((xx - px) ** 2 + (3 * (yy - py)) ** 2) / rs ** 2))[..., None]
+    vel = np.array([-1.0, 1.0]) @ lens.pinhole(_at(np.array([t_c - 1e-3, t_c + 1e-3]), tt, traj))[0] / 2e-3
+    n = int(np.clip(math.ceil(float(np.hypot(*vel)) * shot.shutter / 0.6) + 1, 1, 80))  # samples over the shutter
+    cvs = lens.pinhole(_at(t_c + shot.shutter * ((np.arange(n) + 0.5) / n - 0.5), tt, traj))[0] + off
+    axis = np.asarray(ball.spin_axis, float) / np.linalg.norm(ball.spin_axis)
+    orient = rcam @ cv2.Rodrigues(axis * 2 * math.pi * ball.spin_rps * t_c)[0]
     amb = 0.12 if shot.style.wall == "dark" else 0.35
-    spr = ball_sprite(ball, r_c, orient, rcam @ sun, amb)
+    spr = ball_sprite(ball, lens.f * ball.radius_m / zm, orient, rcam @ sun, amb)
     s = spr.shape[0]
-    lo, hi = np.floor(cvs.min(0) - s), np.ceil(cvs.max(0) + s)
-    lo_c = np.maximum(lo, 0).astype(int)
-    hi_c = np.minimum(hi, [canvas.shape[1], canvas.shape[0]]).astype(int)
-    if np.any(hi_c <= lo_c):
+    lo = np.maximum(np.floor(cvs.min(0) - s), 0).astype(int)
+    hi = np.minimum(np.ceil(cvs.max(0) + s), [canvas.shape[1], canvas.shape[0]]).astype(int)
+    if np.any(hi <= lo):
         return 1.0
-    k = shot.readout / lens.size[1]
-    acc = np.zeros((hi_c[1] - lo_c[1], hi_c[0] - lo_c[0], 4), np.float32)
+    acc, k = np.zeros((hi[1] - lo[1], hi[0] - lo[0], 4), np.float32), shot.readout / lens.size[1]
+    a = np.array([[1.0, vel[0] * k], [0.0, 1.0 + vel[1] * k]])  # rolling-shutter shear of the moving ball
     for c in cvs:
-        a = np.array([[1.0, vel[0] * k], [0.0, 1.0 + vel[1] * k]])
-        m = np.hstack([a, (c - lo_c - a @ [(s - 1) / 2, (s - 1) / 2])[:, None]])
+        m = np.hstack([a, (c - lo - a @ [(s - 1) / 2, (s - 1) / 2])[:, None]])
         acc += cv2.warpAffine(spr, m, (acc.shape[1], acc.shape[0]), flags=cv2.INTER_LINEAR, borderValue=0)
     acc /= n
-    sub = canvas[lo_c[1]:hi_c[1], lo_c[0]:hi_c[0]]
+    sub = canvas[lo[1]:hi[1], lo[0]:hi[0]]
     sub *= 1 - acc[..., 3:]
     sub += acc[..., :3]
-    if not near:
-        return 0.0
     mask = np.zeros(acc.shape[:2], np.float32)
     for p in near:
-        _draw_person(mask, p, t_c, lens, off, mask_off=lo_c)
+        _draw_person(mask, p, t_c, lens, off, mask_off=lo)
     cover = acc[..., 3] > 0.5
     return float(mask[cover].mean()) if cover.any() else 0.0
