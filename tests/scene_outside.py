@@ -196,10 +196,14 @@ class Person:
             a = -side * self.arm_swing * math.sin(w)
             if side == 1 and self.throw_at is not None:
                 s = (t - self.throw_at) / 0.18
-                a = -2.6 + 3.6 / (1 + math.exp(-3 * s)) if s > -3 else a
+                a = -1.5 - 3.0 / (1 + math.exp(-3 * (s + 0.5))) if s > -3 else a  # overarm: back, up, forward
             limb(sh, a, 0.4, 0.17 * h, 0.16 * h, 0.05 * h, self.shirt if side < 0 else self.skin, 0.08 * side)
         parts.append((sh + [0, 0, 0.1 * h], sh + [0, 0, 0.11 * h], 0.13 * h, self.skin))
         return parts
+
+    def hand(self, t):
+        """Where the ball sits in the right hand at time t [m]: a little in front of the hand (towards -y)."""
+        return self.strokes(t)[8][1] + [0.0, -0.15, 0.0]
 
     def depth_point(self, t):
         return np.array([self.x + self.vx * t, self.y + self.vy * t, 0.9])
@@ -244,6 +248,7 @@ class Shot:
     cut_at: float | None = None  # container time of a scene cut [s]; before it another scene, no ball
     cut_style: Style | None = None
     cut_people: tuple = ()
+    holder: int | None = None  # index in people of a thrower holding the ball before t_launch
     gap_at_cut: bool = True
     shadow: bool = True
     seed: int = 0
@@ -428,20 +433,24 @@ def render_shot(shot: Shot, path) -> list[dict]:
         e = math.floor(t_k * shot.capture_fps + 1e-6)
         te = e / shot.capture_fps
         row = {"frame": k, "t": float(pts / rate), "exposure": e, "repeat": e == last_e, "cut": cut, "visible": False}
-        ball_on = not pre_cut and te + shot.shutter >= shot.t_launch
+        held = shot.holder is not None and not pre_cut and te + shot.shutter < shot.t_launch
+        ball_on, b_tt, b_traj = not pre_cut and (held or te + shot.shutter >= shot.t_launch), tt, traj
+        if held:  # before the release the ball moves with the thrower's right hand (not a flight: not visible)
+            b_tt = te + np.linspace(-0.01, shot.shutter + shot.readout + 0.01, 16)
+            b_traj = np.array([shot.people[shot.holder].hand(t) for t in b_tt])
         if ball_on:  # the ball's row sets its time (rolling shutter): iterate
             v_g = cy
             for _ in range(3):
                 t_c = te + shot.readout * v_g / hgt + shot.shutter / 2
                 ts = t_c + shot.shutter * (np.linspace(0, 1, 9) - 0.5)
-                cvs, dep = lens.pinhole(_at(ts, tt, traj))
+                cvs, dep = lens.pinhole(_at(ts, b_tt, b_traj))
                 fr = to_frame(cvs + off, t_c)
                 v_g = float(fr[:, 1].mean())
-            mid = _at(t_c, tt, traj)
+            mid = _at(t_c, b_tt, b_traj)
             xm, ym, zm = lens.to_camera(mid)[0]
             r_px = lens.f * ball.radius_m / zm * float(lens.magnification(xm / zm, ym / zm))
             i_c = min(np.searchsorted(tt, t_c), seg.size - 1)
-            row.update(u=float(fr[:, 0].mean()), v=v_g, r=r_px, segment=int(seg[i_c]))
+            row.update(u=float(fr[:, 0].mean()), v=v_g, r=r_px, segment=-1 if held else int(seg[i_c]))
             inside = (dep.min() > 0.2 and fr[:, 0].min() >= r_px and fr[:, 0].max() + r_px <= wid - 1
                       and fr[:, 1].min() >= r_px and fr[:, 1].max() + r_px <= hgt - 1)
         if e != last_e:
@@ -453,7 +462,7 @@ def render_shot(shot: Shot, path) -> list[dict]:
             for p in people:
                 if p not in near:
                     _draw_person(canvas, p, t_m, lens, off)
-            occl = _draw_ball(canvas, shot, mid, t_c, rcam, sun, off, near, tt, traj) if ball_on else 0.0
+            occl = _draw_ball(canvas, shot, mid, t_c, rcam, sun, off, near, b_tt, b_traj) if ball_on else 0.0
             for p in near:
                 _draw_person(canvas, p, t_m, lens, off)
             t_rows = te + shot.readout * np.arange(hgt, dtype=np.float32)[:, None] / hgt + shot.shutter / 2
@@ -479,7 +488,7 @@ def render_shot(shot: Shot, path) -> list[dict]:
             img = cv2.scaleAdd(cv2.multiply(sd, bank[oy:oy + hgt, ox:ox + wid]), float(rng.choice([-1.0, 1.0])), img)
             img8 = cv2.convertScaleAbs(cv2.sqrt(cv2.max(img, 0.0)), alpha=255.0)  # square-root tone curve
             last_e = e
-        row["visible"] = bool(ball_on and inside and occl < 0.2)
+        row["visible"] = bool(ball_on and not held and inside and occl < 0.2)
         frame = av.VideoFrame.from_ndarray(img8, format="rgb24")
         frame.pts = pts
         out.mux(st.encode(frame))

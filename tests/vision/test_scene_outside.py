@@ -86,10 +86,16 @@ def _still_shot(**kw):
     return Shot(**base)
 
 
-def test_truth_centre_and_radius_agree_with_the_rendered_image(tmp_path):
+@pytest.mark.parametrize("moving", [False, True])
+def test_truth_centre_and_radius_agree_with_the_rendered_image(tmp_path, moving):
     # Source: image moments of the ball's coverage, measured from the decoded clip against the same clip without
-    # the ball; the radius from the covered area, A = pi r^2; f R / depth (pinhole; depth along the view axis, 4 m + y)
+    # the ball; the radius from the covered area, A = pi r^2; f R / depth (pinhole; depth along the view axis, 4 m + y).
+    # "moving": hand-held shake and roll, a 30 ms rolling shutter, a sideways ball and barrel distortion, which
+    # the truth must follow (radius then f R / depth times the lens's local magnification)
     shot = _still_shot()
+    if moving:
+        shot = replace(shot, lens=replace(shot.lens, k1=-0.15), v0=(4.0, 0.0, 3.5), shake_px=2.0, roll_deg=0.5,
+                       readout=0.03, shutter=1 / 500)
     truth = render_shot(shot, tmp_path / "ball.mp4")
     empty = render_shot(replace(shot, t_launch=10.0), tmp_path / "empty.mp4")
     assert not any(r["visible"] for r in empty)
@@ -98,15 +104,17 @@ def test_truth_centre_and_radius_agree_with_the_rendered_image(tmp_path):
     tt, pos, _ = fly(shot.ball, shot.p0, shot.v0, 0.05, 1.0)
     for k in (3, 6, 9):
         row = truth[k]
-        depth = np.interp(row["t"], tt, pos[:, 1]) + 4.0
-        assert row["r"] == pytest.approx(260.0 * shot.ball.radius_m / depth, rel=1e-6)
+        assert row["visible"]
+        if not moving:
+            depth = np.interp(row["t"], tt, pos[:, 1]) + 4.0
+            assert row["r"] == pytest.approx(260.0 * shot.ball.radius_m / depth, rel=1e-6)
         # every channel of a pixel c covered by the black ball is sqrt(1 - c) of the background's (square-root
         # tone curve), so its grey value is too: c = 1 - (Y / Y_empty)^2 (full-range grey from the decoder)
         cover = 1 - (with_ball[k] / np.maximum(without[k], 1.0)) ** 2
         vv, uu = np.mgrid[:cover.shape[0], :cover.shape[1]]
         cover[np.hypot(uu - row["u"], vv - row["v"]) > 2.5 * row["r"]] = 0  # a window around the ball
-        assert np.average(uu, weights=cover) == pytest.approx(row["u"], abs=0.25)
-        assert np.average(vv, weights=cover) == pytest.approx(row["v"], abs=0.25)
+        assert np.average(uu, weights=cover) == pytest.approx(row["u"], abs=0.3)
+        assert np.average(vv, weights=cover) == pytest.approx(row["v"], abs=0.3)
         assert math.sqrt(cover.sum() / math.pi) == pytest.approx(row["r"], rel=0.04)
 
 
