@@ -517,8 +517,9 @@ def _draw_ball(canvas, shot: Shot, mid, t_c, rcam, sun, off, near, tt, traj):
     zm = lens.to_camera(mid)[0, 2]
     if zm < 0.2:
         return 1.0
-    sh, zs = lens.pinhole(np.array([[mid[0], mid[1], 0.0]]))
-    if shot.shadow and shot.style.wall != "dark" and zs[0] > 0.3:  # a soft shadow under the ball
+    foot = mid - mid[2] / max(sun[2], 0.2) * sun  # where the sun's ray through the ball meets the ground
+    sh, zs = lens.pinhole(np.array([[foot[0], foot[1], 0.0]]))
+    if shot.shadow and shot.style.wall != "dark" and zs[0] > 0.3:  # a soft shadow on the ground
         rs, (px, py) = max(1.0, lens.f * ball.radius_m * 1.2 / zs[0]), sh[0] + off
         x0, y0 = max(int(px - 3 * rs), 0), max(int(py - 2 * rs), 0)
         sub = canvas[y0:max(int(py + 2 * rs) + 2, 0), x0:max(int(px + 3 * rs) + 2, 0)]

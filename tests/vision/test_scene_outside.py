@@ -39,6 +39,21 @@ def test_projection_of_a_known_point():
     assert up.project(np.array([[0.0, 5.0, 2.0]]))[0][0] == pytest.approx([319.5, 239.5], abs=1e-9)
 
 
+def test_projection_agrees_with_opencv():
+    # Source: an independent implementation of the same model, cv2.projectPoints (world-to-camera rotation and
+    # translation, pinhole, radial terms k1 and k2)
+    import cv2
+
+    lens = Lens((1280, 720), 1000.0, (1.0, -3.0, 1.4), yaw=20.0, pitch=8.0, roll=2.0, k1=-0.12, k2=0.03)
+    pts = np.array([[0.0, 6.0, 1.0], [4.0, 10.0, 3.0], [-2.0, 5.0, 0.2], [3.0, 20.0, 8.0]])
+    rot = lens.rotation()
+    k = np.array([[1000.0, 0, 639.5], [0, 1000.0, 359.5], [0, 0, 1]])
+    ref, _ = cv2.projectPoints(pts, cv2.Rodrigues(rot)[0], -rot @ np.asarray(lens.pos), k,
+                               np.array([-0.12, 0.03, 0, 0, 0]))
+    assert np.max(np.abs(lens.project(pts)[0] - ref[:, 0])) < 1e-6
+    assert np.allclose(rot @ rot.T, np.eye(3)) and np.linalg.det(rot) == pytest.approx(1.0)
+
+
 def test_distortion_round_trip():
     # invariant: undistort inverts distort over the frame
     lens = Lens((640, 480), 500.0, k1=-0.08, k2=0.01)
