@@ -249,6 +249,8 @@ class Shot:
     cut_style: Style | None = None
     cut_people: tuple = ()
     holder: int | None = None  # index in people of a thrower holding the ball before t_launch
+    uneven: float = 0.0  # exposures shown unevenly: frame k shows floor(t_k fps + uneven sin(0.9 k)); keep
+    #                      uneven < capture_fps / (0.9 container_fps) so that the exposures never go backwards
     gap_at_cut: bool = True
     shadow: bool = True
     seed: int = 0
@@ -430,7 +432,7 @@ def render_shot(shot: Shot, path) -> list[dict]:
         cut = shot.cut_at is not None and t_k >= shot.cut_at
         pre_cut = shot.cut_at is not None and not cut
         pts += int(cut and truth != [] and not truth[-1]["cut"])  # a one-frame gap in the times at the cut
-        e = math.floor(t_k * shot.capture_fps + 1e-6)
+        e = math.floor(t_k * shot.capture_fps + shot.uneven * math.sin(0.9 * k) + 1e-6)
         te = e / shot.capture_fps
         row = {"frame": k, "t": float(pts / rate), "exposure": e, "repeat": e == last_e, "cut": cut, "visible": False}
         held = shot.holder is not None and not pre_cut and te + shot.shutter < shot.t_launch

@@ -115,6 +115,12 @@ def shots():
               people=(Person(-5.4, 7.0, 0, 0, cadence=0, stride=0, kicks=(0.15,), shirt=(0.7, 0.3, 0.05)),
                       Person(2.0, 9.0, 1.2, 0, shirt=(0.8, 0.8, 0.8))),
               read_noise=0.015, bitrate=1_500_000, seed=8)),
+        ("12 fps shown unevenly at 29.97 (repeats 1-4 frames apart), kick-up on a field, 640x360",
+         Shot(Lens((640, 360), 520, (0, -1.0, 1.2), pitch=8, k1=-0.06), FOOTBALL, (-3.0, 9.0, 0.11), (5.0, 0.3, 9.0),
+              0.2, 2.2, 12, 30000 / 1001, shutter=1 / 250, readout=0.03, uneven=0.35,
+              style=Style("grass", "trees", 35.0, PITCH_LINES), shake_px=0.6,
+              people=(Person(-3.3, 9.0, 0, 0, cadence=0, stride=0, kicks=(0.2,), shirt=(0.1, 0.5, 0.5)),
+                      Person(2.0, 12.0, -1.4, 0, shirt=(0.7, 0.7, 0.2))), bitrate=900_000, seed=9)),
     ]
     return out
 

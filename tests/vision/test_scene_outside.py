@@ -163,3 +163,18 @@ def test_dropped_exposures_and_the_gap_at_a_scene_cut(tmp_path):
     assert np.allclose(gaps, [2.0 if truth[k + 1]["cut"] and not truth[k]["cut"] else 1.0
                               for k in range(len(gaps))], atol=1e-3)
     assert not any(r["visible"] for r in truth if not r["cut"])
+
+
+def test_uneven_repeats_never_go_back(tmp_path):
+    # invariant: 12 exposures a second shown unevenly in a 29.97 container never run backwards, each new one
+    # 1-4 frames after the last, and a frame flagged as a repeat decodes (nearly) as the one before it
+    shot = _still_shot(lens=Lens((160, 120), 130.0, (0.0, -4.0, 1.2)), capture_fps=12, container_fps=30000 / 1001,
+                       duration=1.0, uneven=0.35, read_noise=0.01)
+    truth = render_shot(shot, tmp_path / "uneven.mp4")
+    e = np.array([r["exposure"] for r in truth])
+    firsts = np.flatnonzero(np.r_[True, np.diff(e) != 0])
+    assert np.all(np.diff(e) >= 0) and set(np.diff(firsts).tolist()) <= {1, 2, 3, 4}
+    assert e[-1] == pytest.approx(12 * truth[-1]["t"], abs=1.0)
+    frames, _ = _decode(tmp_path / "uneven.mp4")
+    for k in range(1, len(frames)):
+        assert (np.abs(frames[k] - frames[k - 1]).mean() < 0.5) == truth[k]["repeat"]
