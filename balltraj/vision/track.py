@@ -63,16 +63,22 @@ class Tracker:
         # with a wide gate cannot take the ball from the track that predicts it
         pairs = []
         preds = []
+        if cands:
+            cu = np.fromiter((c.u for c in cands), float, len(cands))
+            cv = np.fromiter((c.v for c in cands), float, len(cands))
+            cr = np.fromiter((c.radius_px for c in cands), float, len(cands))
         for j, tr in enumerate(self.active):
             pred, spread = tr.predict(t)
             preds.append(pred)
+            if not cands:
+                continue
             last = tr.points[-1][2]
             step = tr.speed_px_per_s() * (t - tr.points[-1][1])
             gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 if tr.confirmed else 0.35) * step
-            for i, c in enumerate(cands):
-                d = float(np.hypot(c.u - pred[0], c.v - pred[1]))
-                if d < gate and 0.33 * last.radius_px - 2 <= c.radius_px <= 3 * last.radius_px + 2:
-                    pairs.append((not tr.confirmed, d / gate, j, i))
+            d = np.hypot(cu - pred[0], cv - pred[1])
+            ok = (d < gate) & (cr >= 0.33 * last.radius_px - 2) & (cr <= 3 * last.radius_px + 2)
+            for i in np.flatnonzero(ok):
+                pairs.append((not tr.confirmed, float(d[i]) / gate, j, int(i)))
         pairs.sort()
         taken_t, taken_c = set(), set()
         for _, _, j, i in pairs:
@@ -104,46 +110,69 @@ class Tracker:
         # seed new tracks from unclaimed candidates and the recent pool: three points in three recent
         # exposures that move fast enough and continue each other's motion (a random pair of clutter
         # blobs is common in a busy scene, a random triplet in line is not)
+        seeds = self._seed_all(k, t, [cands[i] for i in free])
         new_pool = []
-        for i in free:
-            c = cands[i]
-            seed = self._seed(k, t, c)
+        for i, seed in zip(free, seeds):
             if seed is not None:
                 tr = _Track()
                 for p in seed:
                     tr.add(*p)
                 self.active.append(tr)
             else:
-                new_pool.append((k, t, c))
+                new_pool.append((k, t, cands[i]))
         self.pool = [p for p in self.pool if k - p[0] < 3] + new_pool
 
-    def _seed(self, k, t, c):
-        """The best (p0, p1, c) from the pool that starts a plausible flight, or None."""
-        best, best_d = None, np.inf
-        for p1 in self.pool:
-            if not self._seeds(p1, k, t, c):
-                continue
-            k1, t1, c1 = p1
-            for p0 in self.pool:
-                k0, t0, c0 = p0
-                if k0 >= k1 or not self._seeds(p0, k1, t1, c1):
-                    continue
-                f = (t - t1) / (t1 - t0)
-                pu, pv = c1.u + (c1.u - c0.u) * f, c1.v + (c1.v - c0.v) * f
-                step = float(np.hypot(c.u - c1.u, c.v - c1.v))
-                d = float(np.hypot(c.u - pu, c.v - pv))
-                if d < 3.0 + 2.0 * c.radius_px + 0.35 * step and d < best_d:
-                    best, best_d = (p0, p1, (k, t, c)), d
-        return best
+    def _seed_all(self, k, t, cs):
+        """For each candidate c of cs, the best (p0, p1, c) from the pool that starts a plausible
+        flight (p0 and p1 in earlier exposures, each step fast enough, sizes alike, and c within a
+        few radii of where p0 -> p1 extrapolates), or None. All candidates at once: every pool pair
+        and candidate is judged in arrays."""
+        out = [None] * len(cs)
+        if not cs or len(self.pool) < 2:
+            return out
+        pool = self.pool
+        K = np.array([p[0] for p in pool])
+        T = np.array([p[1] for p in pool])
+        U = np.array([p[2].u for p in pool])
+        V = np.array([p[2].v for p in pool])
+        Rr = np.array([p[2].radius_px for p in pool])
+        cu = np.array([c.u for c in cs])
+        cv = np.array([c.v for c in cs])
+        cr = np.array([c.radius_px for c in cs])
 
-    def _seeds(self, p, k, t, c) -> bool:
-        """Could pool entry p = (k0, t0, c0) and candidate c be consecutive points of a flight?"""
-        k0, t0, c0 = p
-        dt = t - t0
-        if dt <= 0 or k - k0 > 2 or k0 == k:
-            return False
-        sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
-        return self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2
+        def link(k1, t1, u1, v1, r1, k0, t0, u0, v0, r0):
+            """Could (k0, t0, ...) -> (k1, t1, ...) be consecutive points of a flight? (broadcast)"""
+            dt = t1 - t0
+            with np.errstate(divide="ignore", invalid="ignore"):
+                sp = np.hypot(u1 - u0, v1 - v0) / dt
+            return (dt > 0) & (k1 - k0 <= 2) & (k0 != k1) & (sp >= self.min_speed) & (sp <= self.max_speed) \
+                & (r1 >= 0.5 * r0 - 2) & (r1 <= 2 * r0 + 2)
+
+        m1 = link(k, t, cu[:, None], cv[:, None], cr[:, None], K[None], T[None], U[None], V[None], Rr[None])
+        ic, i1 = np.nonzero(m1)  # (candidate, p1) pairs
+        if not len(ic):
+            return out
+        m0 = link(K[:, None], T[:, None], U[:, None], V[:, None], Rr[:, None], K[None], T[None], U[None], V[None],
+                  Rr[None]) & (K[None] < K[:, None])  # m0[p1, p0]
+        ip, i0 = np.nonzero(m0[i1])
+        if not len(ip):
+            return out
+        c_i, p1_i = ic[ip], i1[ip]
+        f = (t - T[p1_i]) / (T[p1_i] - T[i0])
+        pu = U[p1_i] + (U[p1_i] - U[i0]) * f
+        pv = V[p1_i] + (V[p1_i] - V[i0]) * f
+        step = np.hypot(cu[c_i] - U[p1_i], cv[c_i] - V[p1_i])
+        d = np.hypot(cu[c_i] - pu, cv[c_i] - pv)
+        good = d < 3.0 + 2.0 * cr[c_i] + 0.35 * step
+        if not good.any():
+            return out
+        c_i, p1_i, p0_i, d = c_i[good], p1_i[good], i0[good], d[good]
+        order = np.lexsort((d, c_i))  # by candidate, then best first
+        first = np.ones(len(order), bool)
+        first[1:] = c_i[order][1:] != c_i[order][:-1]
+        for o in order[first]:
+            out[int(c_i[o])] = (pool[int(p0_i[o])], pool[int(p1_i[o])], (k, t, cs[int(c_i[o])]))
+        return out
 
     def _can_be_continued(self, prev: _Track) -> bool:
         """May prev (lost, or ended on a suspected bounce) be continued by a later fragment?"""
