@@ -61,14 +61,21 @@ def _blur_consistent(tr: _Track) -> bool:
 
 
 def _radius_consistent(tr: _Track) -> bool:
-    """Median scatter of the apparent radius within 12 % (0.5 px floor) about a smooth law: a
+    """Median scatter of the apparent radius within 15 % (0.75 px floor) about a smooth law: a
     quadratic in time, or the reciprocal of one (the radius goes as 1/distance, and the distance of
     a ball thrown away from the camera grows about linearly: r = a / (1 + b t) is far from any
     quadratic when the ball recedes from 1 m to 20 m)."""
     r = np.array([p[2].radius_px for p in tr.points])
+    if len(r) >= 5:  # and no jumps: each radius near the median of its neighbours (padded by a pixel)
+        loc = np.array([np.median(r[max(0, i - 2):i + 3]) for i in range(len(r))])
+        q = (r + 1.0) / (loc + 1.0)
+        if np.count_nonzero((q > 1.6) | (q < 1 / 1.6)) > len(r) // 8:
+            return False
     ts = tr.times()
     tt = ts - ts.mean()
-    tol = max(0.12 * float(np.median(r)), 0.5)  # compressed small balls: their radius wobbles by half a pixel
+    # compressed small balls: the second-moment radius of a 2-6 px ball wobbles by 0.5-1 px from frame
+    # to frame (block artefacts, a strand of netting across it); a chain of unrelated blobs differs by far more
+    tol = max(0.15 * float(np.median(r)), 0.75)
     rf = np.polyval(np.polyfit(tt, r, 2), tt)
     if float(np.median(np.abs(r - rf))) <= tol:
         return True
@@ -163,3 +170,58 @@ def _time_smoothness_px(tr: _Track) -> float:
         # scaled for the degrees of freedom the fit used up (few points would look too smooth)
         res.extend(np.linalg.norm(uv[sl] - A @ coef, axis=1) * np.sqrt(m / (m - deg - 1)))
     return float(np.median(res)) if res else 0.0
+
+
+def _speed_consistent(tr: _Track, ratio: float = 2.5) -> bool:
+    """A ball's image speed changes smoothly: gravity and drag change it by a few per cent a frame,
+    a bounce by a factor well under 2, and a dropped exposure (frame-rate conversion) makes one step
+    look at most twice as fast as its neighbours. A chain of unrelated blobs (a person's hands, folds,
+    a ghost) jumps by short and long steps at random. Each step's speed [px/s] is compared with the
+    median of the steps around it (five steps), both padded by a pixel plus a quarter radius per
+    interval (the centroids' own scatter); at most one step in eight may differ by more than
+    ``ratio``."""
+    ts, uv = tr.times(), tr.uv()
+    n = len(ts)
+    if n < 4:
+        return True
+    dt = np.maximum(np.diff(ts), 1e-9)
+    r = float(np.median([p[2].radius_px for p in tr.points]))
+    pad = (1.0 + 0.25 * r) / dt
+    sp = np.linalg.norm(np.diff(uv, axis=0), axis=1) / dt
+    m = len(sp)
+    loc = np.array([np.median(sp[max(0, i - 2):i + 3]) for i in range(m)])
+    q = (sp + pad) / (loc + pad)
+    bad = int(np.count_nonzero((q > ratio) | (q < 1.0 / ratio)))
+    return bad <= m // 8
+
+
+def sideways_motion(tr: _Track, ball_radius_m: float, centre_px) -> tuple[float, float, float] | None:
+    """The track placed at the ball's own scale across the line of sight: X = (u - c_u) R / r,
+    Y = (v - c_v) R / r are the ball's true coordinates across the view (pinhole: X = (u - c_u) Z / f
+    and r = f R / Z), whatever the focal length, and perspective (a ball moving toward or away from
+    the camera) does not accelerate them. 1/r is smoothed by a robust straight line in time first
+    (its noise would otherwise dominate), and a parabola in time fitted to X and Y.
+
+    Returns (peak speed [m/s] across the view: the larger of the parabola's speeds at the two ends,
+    acceleration magnitude [m/s^2], its one sigma [m/s^2]), or None under 5 points. A ball in flight
+    accelerates at about g plus its drag and lift (well under 10 g), where a swinging arm or a
+    chain of unrelated blobs turns far harder; the peak speed across the view is a lower bound of the
+    ball's speed."""
+    ts, uv = tr.times(), tr.uv()
+    n = len(ts)
+    if n < 5:
+        return None
+    tt = ts - ts.mean()
+    r = np.array([p[2].radius_px for p in tr.points])
+    inv = np.maximum(np.polyval(_robust_line(tt, 1.0 / np.maximum(r, 0.3)), tt), 1e-3)
+    xy = (uv - np.asarray(centre_px, float)) * (ball_radius_m * inv)[:, None]
+    A = np.vander(tt, 3)
+    coef, *_ = np.linalg.lstsq(A, xy, rcond=None)
+    res = xy - A @ coef
+    a = 2.0 * coef[0]
+    s2 = float(np.sum(res**2)) / (2 * (n - 3))
+    g = float(np.linalg.pinv(A.T @ A)[0, 0])
+    # the centroid's own scatter (a quarter radius) sets a floor for the sigma
+    var = g * max(s2, float(np.mean((0.25 * ball_radius_m * r * inv) ** 2)))
+    speed = max(float(np.hypot(*(2 * coef[0] * t_end + coef[1]))) for t_end in (tt[0], tt[-1]))
+    return speed, float(np.hypot(*a)), float(np.sqrt(var))

@@ -170,7 +170,8 @@ class Detector:
         Tf = np.vstack([self.T * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
         M = np.linalg.inv(Tf)[:2]  # current -> reference (full resolution)
         M[:, 2] += M[:, :2] @ [x0, y0]
-        return cv2.warpAffine(self.bg_full, M, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR,
+        # M maps window pixels to reference pixels: the inverse map, as warpAffine is told
+        return cv2.warpAffine(self.bg_full, M, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
                               borderMode=cv2.BORDER_REPLICATE)
 
     def process(self, frame, prepared=None) -> list[Candidate]:

@@ -16,10 +16,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .checks import (_blur_consistent, _net_speed, _radius_consistent, _smoothness_px, downward_acceleration,
-                     world_speed)
+from .checks import (_blur_consistent, _net_speed, _radius_consistent, _smoothness_px, _speed_consistent,
+                     downward_acceleration, sideways_motion, world_speed)
 from .detect import Candidate, lens_magnification
-from .trackpoints import _Track
+from .trackpoints import _Track, cut_at_false_reacquisition, trim_strays
 
 
 @dataclass(frozen=True)
@@ -67,6 +67,7 @@ class Tracker:
             cu = np.fromiter((c.u for c in cands), float, len(cands))
             cv = np.fromiter((c.v for c in cands), float, len(cands))
             cr = np.fromiter((c.radius_px for c in cands), float, len(cands))
+            cs = np.fromiter((c.streak_px for c in cands), float, len(cands))
         for j, tr in enumerate(self.active):
             pred, spread = tr.predict(t)
             preds.append(pred)
@@ -76,7 +77,10 @@ class Tracker:
             step = tr.speed_px_per_s() * (t - tr.points[-1][1])
             gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 if tr.confirmed else 0.35) * step
             d = np.hypot(cu - pred[0], cv - pred[1])
-            ok = (d < gate) & (cr >= 0.33 * last.radius_px - 2) & (cr <= 3 * last.radius_px + 2)
+            # sizes alike, and smeared no longer than the track moves in one interval (the exposure is
+            # shorter than the interval): a long streak next to a slow track is a limb or a pole
+            ok = (d < gate) & (cr >= 0.33 * last.radius_px - 2) & (cr <= 3 * last.radius_px + 2) \
+                & (cs <= 1.5 * step + 2.0 + 0.5 * cr)
             for i in np.flatnonzero(ok):
                 pairs.append((not tr.confirmed, float(d[i]) / gate, j, int(i)))
         pairs.sort()
@@ -90,7 +94,7 @@ class Tracker:
             tr.add(k, t, cands[i])
             tr.misses = 0
             if not tr.confirmed and len(tr.points) >= self.confirm:
-                tr.confirmed = self._plausible(tr)
+                tr.confirmed = self._plausible(tr) and _speed_consistent(tr)
                 if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
                     tr.ended = "not a flight"
         for j, tr in enumerate(self.active):
@@ -240,7 +244,7 @@ class Tracker:
         succ: dict[int, int] = {}
         pred: dict[int, int] = {}
         for _, i, j in pairs:
-            if i not in succ and j not in pred:
+            if i not in succ and j not in pred and self._joined_ok(tracks[i], tracks[j]):
                 succ[i], pred[j] = j, i
         out = []
         for i, tr in enumerate(tracks):
@@ -256,17 +260,29 @@ class Tracker:
             out.append(tr)
         return out
 
+    def _joined_ok(self, a: _Track, b: _Track) -> bool:
+        """Does a followed by b still look like one ball's flight (smooth, of consistent size and
+        speed)? A fragment that lands near a's curve may still be a person."""
+        both = _Track()
+        for p in a.points + b.points:
+            both.add(*p)
+        r = float(np.median([p[2].radius_px for p in both.points]))
+        return _smoothness_px(both) <= max(1.5, 0.5 * r) and self._looks_like_ball(both)
+
     def _looks_like_ball(self, tr: _Track) -> bool:
-        if not _blur_consistent(tr) or not _radius_consistent(tr):
+        if not _blur_consistent(tr) or not _radius_consistent(tr) or not _speed_consistent(tr):
             return False
         if self.focal_px and self.ball_radius_m:
             ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
             if not self.min_ball_speed <= ws <= self.max_ball_speed:
                 return False
-        if self.camera is None and self.ball_radius_m:
-            a = self.apparent_fall(tr)
-            if a is not None and abs(a) > 100.0:
+        if self.ball_radius_m:
+            c = (self.w / 2, self.h / 2) if self.camera is None else (self.camera.K[0][2], self.camera.K[1][2])
+            mo = sideways_motion(tr, self.ball_radius_m, c)
+            if mo is not None and mo[1] - 2.0 * mo[2] > 100.0:
                 return False  # at the ball's own scale it turns at over 10 g: a swinging limb, not a flight
+            if mo is not None and mo[0] < self.min_ball_speed:
+                return False  # never as fast as a ball in flight, even at the end of its track: a hand, a person
         if self.camera is not None and self.ball_radius_m:
             fall = downward_acceleration(tr, self.camera, self.ball_radius_m, with_sigma=True)
             a_z, s_a = fall if fall is not None else (None, 0.0)
@@ -360,47 +376,12 @@ class Tracker:
         a_px = 2.0 * np.polyfit(ts - ts.mean(), uv[:, 1], 2)[0]
         return float(a_px * self.ball_radius_m / max(r, 0.3))
 
-    def _trim(self, tr: _Track) -> _Track:
-        """Drop stray points at either end of a track (a track often starts on the thrower's hand or
-        ends on clutter before it locks on or after it loses the ball): an end point goes while the
-        next 8 points, extrapolated by a parabola in time, miss it by more than a few radii, or its
-        apparent radius is far from what theirs extrapolates to (at most a third of the points go)."""
-        pts = list(tr.points)
-        if len(pts) < 12:
-            return tr
-        r_med = float(np.median([p[2].radius_px for p in pts]))
-        limit, removed = len(pts) // 3, 0
-
-        def stray(p, nxt):
-            ts = np.array([q[1] for q in nxt])
-            uv = np.array([(q[2].u, q[2].v) for q in nxt])
-            t0 = ts[0]
-            pred = [np.polyval(np.polyfit(ts - t0, uv[:, j], 2), p[1] - t0) for j in range(2)]
-            step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1)))
-            miss = float(np.hypot(p[2].u - pred[0], p[2].v - pred[1]))
-            inv = 1.0 / np.maximum([q[2].radius_px for q in nxt], 0.3)  # radius ~ 1/distance, about linear in time
-            r_pred = 1.0 / max(float(np.polyval(np.polyfit(ts - t0, inv, 1), p[1] - t0)), 1e-3)
-            return miss > 3.0 + 2.0 * r_med + 0.3 * step or abs(p[2].radius_px - r_pred) > 0.4 * r_pred + 1.0
-
-        while removed < limit and len(pts) >= 10 and stray(pts[0], pts[1:9]):
-            pts.pop(0)
-            removed += 1
-        while removed < limit and len(pts) >= 10 and stray(pts[-1], pts[-9:-1]):
-            pts.pop()
-            removed += 1
-        if not removed:
-            return tr
-        out = _Track()
-        for p in pts:
-            out.add(*p)
-        out.confirmed, out.ended, out.bounce = tr.confirmed, tr.ended, tr.bounce
-        return out
-
     def finish(self) -> list[TrackedFlight]:
         for tr in self.active:
             tr.ended = tr.ended or "clip ended"
-        merged = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
-        done = [self._trim(part) for tr in merged for part in self._split_at_bounce(self._trim(tr))]
+        merged = self._merge([part for tr in self.finished + self.active if tr.confirmed
+                              for part in cut_at_false_reacquisition(tr)])
+        done = [trim_strays(part) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
         self.active = []
         flights = []
         self.fall_hints = []
