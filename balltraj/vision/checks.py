@@ -52,12 +52,14 @@ def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) 
 
 def _blur_consistent(tr: _Track) -> bool:
     """A ball's streak is at most the distance it moves in one frame interval (the exposure is
-    shorter than the interval), plus the blur of its edge."""
+    shorter than the interval), plus the blur of its edge and the streak's own measuring error: a
+    shaded or patterned ball's matte is not quite round (its second moments differ by 20-30 %, which
+    reads as a streak of 0.8-1 radius with no motion at all)."""
     uv, ts = tr.uv(), tr.times()
     step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.diff(ts))) * float(np.median(np.diff(ts)))
     streak = float(np.median([p[2].streak_px for p in tr.points]))
     r = float(np.median([p[2].radius_px for p in tr.points]))
-    return streak <= 1.2 * step + 2.0 + 0.5 * r
+    return streak <= 1.2 * step + 2.0 + r
 
 
 def _radius_consistent(tr: _Track) -> bool:
@@ -147,6 +149,18 @@ def _path_smoothness_px(uv: np.ndarray) -> float:
         x = (s_al - s_al.mean()) / max(n, 1.0)
         res.extend(np.abs(s_side - np.polyval(np.polyfit(x, s_side, deg), x)) * np.sqrt(len(seg) / (len(seg) - deg - 1)))
     return float(np.median(res)) if res else 0.0
+
+
+def smooth_enough(tr: _Track) -> bool:
+    """Do the points lie on a smooth curve in time to within the centroid's own accuracy, a quarter
+    of the apparent radius (1.5 px at least: compressed small balls), or on a smooth path regardless
+    of time to within half that? A thrown ball does; people, flags and chains of unrelated blobs
+    do not."""
+    r = float(np.median([p[2].radius_px for p in tr.points]))
+    tol = max(1.5, 0.25 * r)
+    # the time-free form (for footage with dropped exposures) ignores the timing, so fewer points
+    # can fake it: it must fit twice as closely
+    return _time_smoothness_px(tr) <= tol or _path_smoothness_px(tr.uv()) <= 0.5 * tol
 
 
 def _smoothness_px(tr: _Track) -> float:

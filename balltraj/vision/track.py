@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .checks import (_blur_consistent, _net_speed, _radius_consistent, _smoothness_px, _speed_consistent,
-                     downward_acceleration, sideways_motion, world_speed)
+from .checks import (_blur_consistent, _net_speed, _radius_consistent, _speed_consistent, downward_acceleration,
+                     sideways_motion, smooth_enough, world_speed)
 from .detect import Candidate, lens_magnification
 from .trackpoints import _Track, cut_at_false_reacquisition, trim_strays
 
@@ -38,7 +38,7 @@ class TrackedFlight:
 class Tracker:
     def __init__(self, width, height, fps_hint: float = 240.0, *, min_speed_px_s: float | None = None,
                  max_speed_px_s: float | None = None, max_misses: int = 10, min_points: int = 8,
-                 confirm: int = 4, focal_px: float | None = None, ball_radius_m: float | None = None,
+                 confirm: int = 5, focal_px: float | None = None, ball_radius_m: float | None = None,
                  min_ball_speed_mps: float = 3.0, max_ball_speed_mps: float = 90.0, camera=None):
         self.w, self.h = width, height
         diag = float(np.hypot(width, height))
@@ -80,7 +80,7 @@ class Tracker:
             # sizes alike, and smeared no longer than the track moves in one interval (the exposure is
             # shorter than the interval): a long streak next to a slow track is a limb or a pole
             ok = (d < gate) & (cr >= 0.33 * last.radius_px - 2) & (cr <= 3 * last.radius_px + 2) \
-                & (cs <= 1.5 * step + 2.0 + 0.5 * cr)
+                & (cs <= 1.5 * step + 2.0 + cr)
             for i in np.flatnonzero(ok):
                 pairs.append((not tr.confirmed, float(d[i]) / gate, j, int(i)))
         pairs.sort()
@@ -94,7 +94,9 @@ class Tracker:
             tr.add(k, t, cands[i])
             tr.misses = 0
             if not tr.confirmed and len(tr.points) >= self.confirm:
-                tr.confirmed = self._plausible(tr) and _speed_consistent(tr)
+                # fast enough, of steady speed, and on a smooth curve: a chain of blobs that merely
+                # lines up (common among the dozens of candidates a busy frame holds) is not
+                tr.confirmed = self._plausible(tr) and _speed_consistent(tr) and smooth_enough(tr)
                 if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
                     tr.ended = "not a flight"
         for j, tr in enumerate(self.active):
@@ -145,7 +147,8 @@ class Tracker:
         cr = np.array([c.radius_px for c in cs])
 
         def link(k1, t1, u1, v1, r1, k0, t0, u0, v0, r0):
-            """Could (k0, t0, ...) -> (k1, t1, ...) be consecutive points of a flight? (broadcast)"""
+            """Could (k0, t0, ...) -> (k1, t1, ...) be consecutive points of a flight? Fast enough,
+            sizes alike (broadcast arrays)"""
             dt = t1 - t0
             with np.errstate(divide="ignore", invalid="ignore"):
                 sp = np.hypot(u1 - u0, v1 - v0) / dt
@@ -182,7 +185,7 @@ class Tracker:
         """May prev (lost, or ended on a suspected bounce) be continued by a later fragment?"""
         if len(prev.points) < 5 or prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
             return False
-        if _smoothness_px(prev) > max(1.5, 0.5 * float(np.median([q[2].radius_px for q in prev.points]))):
+        if not smooth_enough(prev):
             return False  # a jittery fragment (a person's limb, a ghost) is continued by nothing
         return self._looks_like_ball(prev)  # never extend a person, a ghost or a flag with a ball
 
@@ -266,8 +269,7 @@ class Tracker:
         both = _Track()
         for p in a.points + b.points:
             both.add(*p)
-        r = float(np.median([p[2].radius_px for p in both.points]))
-        return _smoothness_px(both) <= max(1.5, 0.5 * r) and self._looks_like_ball(both)
+        return smooth_enough(both) and self._looks_like_ball(both)
 
     def _looks_like_ball(self, tr: _Track) -> bool:
         if not _blur_consistent(tr) or not _radius_consistent(tr) or not _speed_consistent(tr):
@@ -393,7 +395,7 @@ class Tracker:
             uv = tr.uv()
             if np.linalg.norm(uv[-1] - uv[0]) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
                 continue
-            if _smoothness_px(tr) > max(1.5, 0.5 * float(np.median([p[2].radius_px for p in tr.points]))):
+            if not smooth_enough(tr):
                 continue  # a thrown ball follows a smooth curve in the image; people and flags do not
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball
