@@ -213,8 +213,11 @@ def sideways_motion(tr: _Track, ball_radius_m: float, centre_px) -> tuple[float,
     """The track placed at the ball's own scale across the line of sight: X = (u - c_u) R / r,
     Y = (v - c_v) R / r are the ball's true coordinates across the view (pinhole: X = (u - c_u) Z / f
     and r = f R / Z), whatever the focal length, and perspective (a ball moving toward or away from
-    the camera) does not accelerate them. 1/r is smoothed by a robust straight line in time first
-    (its noise would otherwise dominate), and a parabola in time fitted to X and Y.
+    the camera) does not accelerate them. 1/r is taken either as constant (its median) or as a
+    robust straight line in time (a ball moving away): over a short track of a small ball the
+    slope of a noisy radius is not known well enough to be trusted alone, so each result gives the
+    ball the benefit of the doubt (the smaller acceleration, the larger speed). A parabola in time
+    is fitted to X and Y, refitted once or twice without a stray point (a bounce's contact point).
 
     Returns (peak speed [m/s] across the view: the larger of the parabola's speeds at the two ends,
     acceleration magnitude [m/s^2], its one sigma [m/s^2]), or None under 5 points. A ball in flight
@@ -227,15 +230,26 @@ def sideways_motion(tr: _Track, ball_radius_m: float, centre_px) -> tuple[float,
         return None
     tt = ts - ts.mean()
     r = np.array([p[2].radius_px for p in tr.points])
-    inv = np.maximum(np.polyval(_robust_line(tt, 1.0 / np.maximum(r, 0.3)), tt), 1e-3)
-    xy = (uv - np.asarray(centre_px, float)) * (ball_radius_m * inv)[:, None]
+    inv_r = 1.0 / np.maximum(r, 0.3)
     A = np.vander(tt, 3)
-    coef, *_ = np.linalg.lstsq(A, xy, rcond=None)
-    res = xy - A @ coef
-    a = 2.0 * coef[0]
-    s2 = float(np.sum(res**2)) / (2 * (n - 3))
-    g = float(np.linalg.pinv(A.T @ A)[0, 0])
-    # the centroid's own scatter (a quarter radius) sets a floor for the sigma
-    var = g * max(s2, float(np.mean((0.25 * ball_radius_m * r * inv) ** 2)))
-    speed = max(float(np.hypot(*(2 * coef[0] * t_end + coef[1]))) for t_end in (tt[0], tt[-1]))
-    return speed, float(np.hypot(*a)), float(np.sqrt(var))
+    fits = []
+    for inv in (np.full(n, float(np.median(inv_r))), np.maximum(np.polyval(_robust_line(tt, inv_r), tt), 1e-3)):
+        xy = (uv - np.asarray(centre_px, float)) * (ball_radius_m * inv)[:, None]
+        keep = np.ones(n, bool)
+        for _ in range(2):
+            coef, *_ = np.linalg.lstsq(A[keep], xy[keep], rcond=None)
+            d = np.linalg.norm(xy - A @ coef, axis=1)
+            worst = int(np.argmax(np.where(keep, d, -1.0)))
+            if keep.sum() <= max(5, n - 2) or d[worst] <= 4.0 * float(np.median(d[keep])) + 1e-9:
+                break
+            keep[worst] = False
+        coef, *_ = np.linalg.lstsq(A[keep], xy[keep], rcond=None)
+        res = (xy - A @ coef)[keep]
+        s2 = float(np.sum(res**2)) / (2 * max(1, int(keep.sum()) - 3))
+        g = float(np.linalg.pinv(A[keep].T @ A[keep])[0, 0])
+        # the centroid's own scatter (a quarter radius) sets a floor for the sigma
+        var = g * max(s2, float(np.mean((0.25 * ball_radius_m * (r * inv)[keep]) ** 2)))
+        speed = max(float(np.hypot(*(2 * coef[0] * t_end + coef[1]))) for t_end in (tt[keep][0], tt[keep][-1]))
+        fits.append((speed, float(np.hypot(*(2.0 * coef[0]))), float(np.sqrt(var))))
+    best = min(fits, key=lambda f: f[1] - 2.0 * f[2])
+    return max(f[0] for f in fits), best[1], best[2]
