@@ -209,6 +209,22 @@ def _speed_consistent(tr: _Track, ratio: float = 2.5) -> bool:
     return bad <= m // 8
 
 
+def _streak_consistent(tr: _Track, ratio: float = 2.0) -> bool:
+    """A ball's blur streak is its motion during the exposure: with the exposure fixed it follows the
+    ball's speed and changes smoothly. Fragments of a line or an edge lit up one by one (a rail
+    under a pan, netting) give streaks of any length. Each streak is compared with the median of
+    its neighbours (five points), both padded by the radius and 2 px (the streak's own measuring
+    error); at most one in eight may differ by more than ``ratio``."""
+    n = len(tr.points)
+    if n < 5:
+        return True
+    s = np.array([p[2].streak_px for p in tr.points])
+    pad = float(np.median([p[2].radius_px for p in tr.points])) + 2.0
+    loc = np.array([np.median(s[max(0, i - 2):i + 3]) for i in range(n)])
+    q = (s + pad) / (loc + pad)
+    return int(np.count_nonzero((q > ratio) | (q < 1.0 / ratio))) <= n // 8
+
+
 def sideways_motion(tr: _Track, ball_radius_m: float, centre_px) -> tuple[float, float, float] | None:
     """The track placed at the ball's own scale across the line of sight: X = (u - c_u) R / r,
     Y = (v - c_v) R / r are the ball's true coordinates across the view (pinhole: X = (u - c_u) Z / f

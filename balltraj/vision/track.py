@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .checks import (_blur_consistent, _net_speed, _radius_consistent, _speed_consistent, downward_acceleration,
-                     sideways_motion, smooth_enough, world_speed)
+from .checks import (_blur_consistent, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
+                     downward_acceleration, sideways_motion, smooth_enough, world_speed)
 from .detect import Candidate, lens_magnification
 from .trackpoints import _Track, cut_at_false_reacquisition, trim_strays
 
@@ -272,7 +272,7 @@ class Tracker:
         return smooth_enough(both) and self._looks_like_ball(both)
 
     def _looks_like_ball(self, tr: _Track) -> bool:
-        if not _blur_consistent(tr) or not _radius_consistent(tr) or not _speed_consistent(tr):
+        if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)):
             return False
         if self.focal_px and self.ball_radius_m:
             ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
