@@ -224,11 +224,21 @@ class Detector:
         # slower unmasked update: ghosts (what the first frame hid) and slow movers fade in ~100 frames;
         # a passing ball leaves well under 1 % of its contrast behind
         cv2.accumulateWeighted(small, self.bg_small, 0.25 * self.alpha)
-        if self.k % 8 == 4:
-            cv2.accumulateWeighted(gray, self.bg_full, 2 * self.alpha)
+        if self.k % 8 == 4:  # (but never blend in a candidate: a slow ball lingers, and would shrink)
+            cv2.accumulateWeighted(gray, self.bg_full, 2 * self.alpha, mask=self._away_from(cands))
         if len(cands) > self.max_candidates:  # lighting change or camera shake: keep the strongest
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands
+
+    def _away_from(self, cands) -> np.ndarray:
+        """Full-resolution mask (reference view) that is 0 around each candidate, 255 elsewhere."""
+        m = np.full((self.h, self.w), 255, np.uint8)
+        inv = None if self.T is None else np.linalg.inv(np.vstack([self.T * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]]))[:2]
+        for c in cands:
+            u, v = (c.u, c.v) if inv is None else inv @ [c.u, c.v, 1.0]
+            e = int(2 * c.radius_px + c.streak_px + 4)
+            m[max(0, int(v) - e):int(v) + e + 1, max(0, int(u) - e):int(u) + e + 1] = 0
+        return m
 
     def _to_current(self, x, y, bw, bh):
         """A half-resolution box of the reference view -> the full-resolution box (x, y, w, h) in
