@@ -146,14 +146,19 @@ class Tracker:
         cv = np.array([c.v for c in cs])
         cr = np.array([c.radius_px for c in cs])
 
+        max_step = float(np.hypot(self.w, self.h)) / 6.0
+
         def link(k1, t1, u1, v1, r1, k0, t0, u0, v0, r0):
             """Could (k0, t0, ...) -> (k1, t1, ...) be consecutive points of a flight? Fast enough,
-            sizes alike (broadcast arrays)"""
+            but not so far a step per exposure that the ball would cross the whole view in fewer
+            exposures than a flight needs (a random pair of far-apart blobs), sizes alike
+            (broadcast arrays)"""
             dt = t1 - t0
+            d = np.hypot(u1 - u0, v1 - v0)
             with np.errstate(divide="ignore", invalid="ignore"):
-                sp = np.hypot(u1 - u0, v1 - v0) / dt
+                sp = d / dt
             return (dt > 0) & (k1 - k0 <= 2) & (k0 != k1) & (sp >= self.min_speed) & (sp <= self.max_speed) \
-                & (r1 >= 0.5 * r0 - 2) & (r1 <= 2 * r0 + 2)
+                & (d <= max_step * np.abs(k1 - k0)) & (r1 >= 0.5 * r0 - 2) & (r1 <= 2 * r0 + 2)
 
         m1 = link(k, t, cu[:, None], cv[:, None], cr[:, None], K[None], T[None], U[None], V[None], Rr[None])
         ic, i1 = np.nonzero(m1)  # (candidate, p1) pairs
