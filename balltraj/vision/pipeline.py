@@ -65,15 +65,23 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     trk = Tracker(info.width, info.height, focal_px=None if camera is None else camera.focal_px,
                   ball_radius_m=ball_radius_m, camera=camera)
     guard = FrameGuard()
+
+    def prepare(frame):
+        # in the decoding thread, frame by frame in order: the grey and half-size images, and what
+        # the frame is (repeat, cut, view motion) -- work that overlaps the detection of earlier frames
+        gray, small = det.prepare(frame)
+        kind = guard.check(small)
+        return gray, small, kind, guard.total_motion.copy(), guard.max_moved_px
+
     times, frame_of, log = [], [], []
+    moved_px = 0.0
     n = n_repeat = 0
     cuts: list[float] = []
     shown: list[float] = []  # container times of the exposures since the last cut
     repeats_here = 0
-    for k, t, prepared in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
-                                      grey=True, prepare=det.prepare):
+    for k, t, (gray, small, kind, motion, moved_px) in read_frames(
+            path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True, prepare=prepare):
         n += 1
-        kind = guard.check(prepared[1])
         if kind.kind == "repeat":
             n_repeat += 1
             repeats_here += 1
@@ -86,8 +94,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         shown.append(t)
         if repeats_here and capture_fps is None:
             t = exposure_time(shown)
-        det.set_view(guard.total_motion if guard.max_moved_px > 0 else None)
-        cands = det.process(None, prepared)
+        det.set_view(motion if moved_px > 0 else None)
+        cands = det.process(None, (gray, small))
         trk.update(len(frame_of), t, cands)
         frame_of.append(k)
         times.append(t)
@@ -111,8 +119,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
                         f"{fps_m:.0f} distinct images a second were used, one observation each")
     if cuts:
         warnings.append("scene cut at " + ", ".join(f"{c:.2f} s" for c in cuts) + ": tracks end there")
-    if camera is not None and guard.max_moved_px > 2.0:
-        warnings.append(f"the view moved by up to {guard.max_moved_px:.0f} px during the clip (hand-held or a pan): "
+    if camera is not None and moved_px > 2.0:
+        warnings.append(f"the view moved by up to {moved_px:.0f} px during the clip (hand-held or a pan): "
                         "the camera file describes a fixed view and no longer applies; use a tripod, or calibrate "
                         "from the clip itself")
     falls = [_apparent_fall(f, ball_radius_m) for f in flights] if flights else trk.fall_hints
