@@ -165,3 +165,22 @@ def cut_at_false_reacquisition(tr: _Track) -> list[_Track]:
             tail.confirmed, tail.ended, tail.bounce = True, tr.ended, tr.bounce
             return [head] + cut_at_false_reacquisition(tail)
     return [tr]
+
+
+def smooth_part(tr: _Track, min_points: int) -> _Track | None:
+    """The track without its first points, as few as make the rest lie on a smooth curve
+    (checks.smooth_enough): a track often begins on the thrower's hand or the kicker's foot before
+    the ball leaves it. At most a third of the points go and ``min_points`` stay; None when no such
+    remainder is smooth."""
+    from .checks import smooth_enough
+
+    pts = tr.points
+    n = len(pts)
+    for cut in range(1, min(n // 3, n - min_points) + 1):
+        rest = _Track()
+        for p in pts[cut:]:
+            rest.add(*p)
+        rest.confirmed, rest.ended, rest.bounce = tr.confirmed, tr.ended, tr.bounce
+        if smooth_enough(rest):
+            return rest
+    return None
