@@ -52,23 +52,32 @@ def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) 
 
 def _blur_consistent(tr: _Track) -> bool:
     """A ball's streak is at most the distance it moves in one frame interval (the exposure is
-    shorter than the interval), plus the blur of its edge."""
+    shorter than the interval), plus the blur of its edge and the streak's own measuring error: a
+    shaded or patterned ball's matte is not quite round (its second moments differ by 20-30 %, which
+    reads as a streak of 0.8-1 radius with no motion at all)."""
     uv, ts = tr.uv(), tr.times()
     step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.diff(ts))) * float(np.median(np.diff(ts)))
     streak = float(np.median([p[2].streak_px for p in tr.points]))
     r = float(np.median([p[2].radius_px for p in tr.points]))
-    return streak <= 1.2 * step + 2.0 + 0.5 * r
+    return streak <= 1.2 * step + 2.0 + r
 
 
 def _radius_consistent(tr: _Track) -> bool:
-    """Median scatter of the apparent radius within 12 % (0.5 px floor) about a smooth law: a
+    """Median scatter of the apparent radius within 15 % (0.75 px floor) about a smooth law: a
     quadratic in time, or the reciprocal of one (the radius goes as 1/distance, and the distance of
     a ball thrown away from the camera grows about linearly: r = a / (1 + b t) is far from any
     quadratic when the ball recedes from 1 m to 20 m)."""
     r = np.array([p[2].radius_px for p in tr.points])
+    if len(r) >= 5:  # and no jumps: each radius near the median of its neighbours (padded by a pixel)
+        loc = np.array([np.median(r[max(0, i - 2):i + 3]) for i in range(len(r))])
+        q = (r + 1.0) / (loc + 1.0)
+        if np.count_nonzero((q > 1.6) | (q < 1 / 1.6)) > len(r) // 8:
+            return False
     ts = tr.times()
     tt = ts - ts.mean()
-    tol = max(0.12 * float(np.median(r)), 0.5)  # compressed small balls: their radius wobbles by half a pixel
+    # compressed small balls: the second-moment radius of a 2-6 px ball wobbles by 0.5-1 px from frame
+    # to frame (block artefacts, a strand of netting across it); a chain of unrelated blobs differs by far more
+    tol = max(0.15 * float(np.median(r)), 0.75)
     rf = np.polyval(np.polyfit(tt, r, 2), tt)
     if float(np.median(np.abs(r - rf))) <= tol:
         return True
@@ -142,6 +151,18 @@ def _path_smoothness_px(uv: np.ndarray) -> float:
     return float(np.median(res)) if res else 0.0
 
 
+def smooth_enough(tr: _Track) -> bool:
+    """Do the points lie on a smooth curve in time to within the centroid's own accuracy, a quarter
+    of the apparent radius (1.5 px at least: compressed small balls), or on a smooth path regardless
+    of time to within half that? A thrown ball does; people, flags and chains of unrelated blobs
+    do not."""
+    r = float(np.median([p[2].radius_px for p in tr.points]))
+    tol = max(1.5, 0.25 * r)
+    # the time-free form (for footage with dropped exposures) ignores the timing, so fewer points
+    # can fake it: it must fit twice as closely
+    return _time_smoothness_px(tr) <= tol or _path_smoothness_px(tr.uv()) <= 0.5 * tol
+
+
 def _smoothness_px(tr: _Track) -> float:
     """Median distance of the points from a smooth curve: a cubic in time in windows of 24 points,
     or, where that fits worse, a smooth path regardless of time (uneven frame times)."""
@@ -163,3 +184,88 @@ def _time_smoothness_px(tr: _Track) -> float:
         # scaled for the degrees of freedom the fit used up (few points would look too smooth)
         res.extend(np.linalg.norm(uv[sl] - A @ coef, axis=1) * np.sqrt(m / (m - deg - 1)))
     return float(np.median(res)) if res else 0.0
+
+
+def _speed_consistent(tr: _Track, ratio: float = 2.5) -> bool:
+    """A ball's image speed changes smoothly: gravity and drag change it by a few per cent a frame,
+    a bounce by a factor well under 2, and a dropped exposure (frame-rate conversion) makes one step
+    look at most twice as fast as its neighbours. A chain of unrelated blobs (a person's hands, folds,
+    a ghost) jumps by short and long steps at random. Each step's speed [px/s] is compared with the
+    median of the steps around it (five steps), both padded by a pixel plus a quarter radius per
+    interval (the centroids' own scatter); at most one step in eight may differ by more than
+    ``ratio``."""
+    ts, uv = tr.times(), tr.uv()
+    n = len(ts)
+    if n < 4:
+        return True
+    dt = np.maximum(np.diff(ts), 1e-9)
+    r = float(np.median([p[2].radius_px for p in tr.points]))
+    pad = (1.0 + 0.25 * r) / dt
+    sp = np.linalg.norm(np.diff(uv, axis=0), axis=1) / dt
+    m = len(sp)
+    loc = np.array([np.median(sp[max(0, i - 2):i + 3]) for i in range(m)])
+    q = (sp + pad) / (loc + pad)
+    bad = int(np.count_nonzero((q > ratio) | (q < 1.0 / ratio)))
+    return bad <= m // 8
+
+
+def _streak_consistent(tr: _Track, ratio: float = 2.0) -> bool:
+    """A ball's blur streak is its motion during the exposure: with the exposure fixed it follows the
+    ball's speed and changes smoothly. Fragments of a line or an edge lit up one by one (a rail
+    under a pan, netting) give streaks of any length. Each streak is compared with the median of
+    its neighbours (five points), both padded by the radius and 2 px (the streak's own measuring
+    error); at most one in eight may differ by more than ``ratio``."""
+    n = len(tr.points)
+    if n < 5:
+        return True
+    s = np.array([p[2].streak_px for p in tr.points])
+    pad = float(np.median([p[2].radius_px for p in tr.points])) + 2.0
+    loc = np.array([np.median(s[max(0, i - 2):i + 3]) for i in range(n)])
+    q = (s + pad) / (loc + pad)
+    return int(np.count_nonzero((q > ratio) | (q < 1.0 / ratio))) <= n // 8
+
+
+def sideways_motion(tr: _Track, ball_radius_m: float, centre_px) -> tuple[float, float, float] | None:
+    """The track placed at the ball's own scale across the line of sight: X = (u - c_u) R / r,
+    Y = (v - c_v) R / r are the ball's true coordinates across the view (pinhole: X = (u - c_u) Z / f
+    and r = f R / Z), whatever the focal length, and perspective (a ball moving toward or away from
+    the camera) does not accelerate them. 1/r is taken either as constant (its median) or as a
+    robust straight line in time (a ball moving away): over a short track of a small ball the
+    slope of a noisy radius is not known well enough to be trusted alone, so each result gives the
+    ball the benefit of the doubt (the smaller acceleration, the larger speed). A parabola in time
+    is fitted to X and Y, refitted once or twice without a stray point (a bounce's contact point).
+
+    Returns (peak speed [m/s] across the view: the larger of the parabola's speeds at the two ends,
+    acceleration magnitude [m/s^2], its one sigma [m/s^2]), or None under 5 points. A ball in flight
+    accelerates at about g plus its drag and lift (well under 10 g), where a swinging arm or a
+    chain of unrelated blobs turns far harder; the peak speed across the view is a lower bound of the
+    ball's speed."""
+    ts, uv = tr.times(), tr.uv()
+    n = len(ts)
+    if n < 5:
+        return None
+    tt = ts - ts.mean()
+    r = np.array([p[2].radius_px for p in tr.points])
+    inv_r = 1.0 / np.maximum(r, 0.3)
+    A = np.vander(tt, 3)
+    fits = []
+    for inv in (np.full(n, float(np.median(inv_r))), np.maximum(np.polyval(_robust_line(tt, inv_r), tt), 1e-3)):
+        xy = (uv - np.asarray(centre_px, float)) * (ball_radius_m * inv)[:, None]
+        keep = np.ones(n, bool)
+        for _ in range(2):
+            coef, *_ = np.linalg.lstsq(A[keep], xy[keep], rcond=None)
+            d = np.linalg.norm(xy - A @ coef, axis=1)
+            worst = int(np.argmax(np.where(keep, d, -1.0)))
+            if keep.sum() <= max(5, n - 2) or d[worst] <= 4.0 * float(np.median(d[keep])) + 1e-9:
+                break
+            keep[worst] = False
+        coef, *_ = np.linalg.lstsq(A[keep], xy[keep], rcond=None)
+        res = (xy - A @ coef)[keep]
+        s2 = float(np.sum(res**2)) / (2 * max(1, int(keep.sum()) - 3))
+        g = float(np.linalg.pinv(A[keep].T @ A[keep])[0, 0])
+        # the centroid's own scatter (a quarter radius) sets a floor for the sigma
+        var = g * max(s2, float(np.mean((0.25 * ball_radius_m * (r * inv)[keep]) ** 2)))
+        speed = max(float(np.hypot(*(2 * coef[0] * t_end + coef[1]))) for t_end in (tt[keep][0], tt[keep][-1]))
+        fits.append((speed, float(np.hypot(*(2.0 * coef[0]))), float(np.sqrt(var))))
+    best = min(fits, key=lambda f: f[1] - 2.0 * f[2])
+    return max(f[0] for f in fits), best[1], best[2]

@@ -170,7 +170,8 @@ class Detector:
         Tf = np.vstack([self.T * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
         M = np.linalg.inv(Tf)[:2]  # current -> reference (full resolution)
         M[:, 2] += M[:, :2] @ [x0, y0]
-        return cv2.warpAffine(self.bg_full, M, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR,
+        # M maps window pixels to reference pixels: the inverse map, as warpAffine is told
+        return cv2.warpAffine(self.bg_full, M, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
                               borderMode=cv2.BORDER_REPLICATE)
 
     def process(self, frame, prepared=None) -> list[Candidate]:
@@ -200,14 +201,12 @@ class Detector:
                 if _static((x, y, bw, bh), self._boxes):
                     continue  # the same box for three frames: clutter or a ghost, not a ball in flight
                 t_loc = float(thr[min(self.sh - 1, y + bh // 2), min(self.sw - 1, x + bw // 2)])
-                if self.T is not None:  # the box in the current frame
-                    cx, cy = self.T @ [x + 0.5 * bw, y + 0.5 * bh, 1.0]
-                    x, y = int(round(cx - 0.5 * bw)), int(round(cy - 0.5 * bh))
-                    if x <= 0 or y <= 0 or x + bw >= self.sw or y + bh >= self.sh:
-                        continue
-                cand = self._measure(gray, 2 * x, 2 * y, 2 * bw, 2 * bh, t_loc)
+                cur = self._to_current(x, y, bw, bh)
+                cand = None if cur is None else self._measure(gray, *cur, t_loc)
                 if cand is not None:
                     cands.append(cand)
+                elif bw * bh >= 12:  # a ball touching a person or a shadow: its core may stand out
+                    cands += self._split(gray, diff, x, y, bw, bh, t_loc)
         self._boxes = (self._boxes[1], set(boxes))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
         # everywhere so that objects put down for good join the background
@@ -225,13 +224,58 @@ class Detector:
         # slower unmasked update: ghosts (what the first frame hid) and slow movers fade in ~100 frames;
         # a passing ball leaves well under 1 % of its contrast behind
         cv2.accumulateWeighted(small, self.bg_small, 0.25 * self.alpha)
-        if self.k % 8 == 4:
-            cv2.accumulateWeighted(gray, self.bg_full, 2 * self.alpha)
+        if self.k % 8 == 4:  # (but never blend in a candidate: a slow ball lingers, and would shrink)
+            cv2.accumulateWeighted(gray, self.bg_full, 2 * self.alpha, mask=self._away_from(cands))
         if len(cands) > self.max_candidates:  # lighting change or camera shake: keep the strongest
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands
 
-    def _measure(self, gray, x, y, bw, bh, t_loc):
+    def _away_from(self, cands) -> np.ndarray:
+        """Full-resolution mask (reference view) that is 0 around each candidate, 255 elsewhere."""
+        m = np.full((self.h, self.w), 255, np.uint8)
+        inv = None if self.T is None else np.linalg.inv(np.vstack([self.T * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]]))[:2]
+        for c in cands:
+            u, v = (c.u, c.v) if inv is None else inv @ [c.u, c.v, 1.0]
+            e = int(2 * c.radius_px + c.streak_px + 4)
+            m[max(0, int(v) - e):int(v) + e + 1, max(0, int(u) - e):int(u) + e + 1] = 0
+        return m
+
+    def _to_current(self, x, y, bw, bh):
+        """A half-resolution box of the reference view -> the full-resolution box (x, y, w, h) in
+        the current frame, or None when it is cut by the image edge there."""
+        if self.T is not None:
+            cx, cy = self.T @ [x + 0.5 * bw, y + 0.5 * bh, 1.0]
+            x, y = int(round(cx - 0.5 * bw)), int(round(cy - 0.5 * bh))
+            if x <= 0 or y <= 0 or x + bw >= self.sw or y + bh >= self.sh:
+                return None
+        return 2 * x, 2 * y, 2 * bw, 2 * bh
+
+    def _split(self, gray, diff, x, y, bw, bh, t_loc, most: int = 3):
+        """Candidates inside a blob that failed as a whole: the blob cut again at half its peak
+        difference (a ball that touches a person, a shadow or a line separates from them when it
+        stands out more than they do), the largest ``most`` parts measured with the matte starting
+        there too."""
+        win = diff[y:y + bh, x:x + bw]
+        peak = float(cv2.minMaxLoc(win)[1])
+        level = 0.5 * peak
+        if level <= t_loc:
+            return []
+        part = cv2.compare(win, level, cv2.CMP_GT)
+        contours, _ = cv2.findContours(part, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+        if len(contours) < 2 and cv2.countNonZero(part) > 0.5 * bw * bh:
+            return []  # nothing separates: the same blob again
+        out = []
+        for c in sorted(contours, key=cv2.contourArea, reverse=True)[:most]:
+            sx, sy, sw, sh = cv2.boundingRect(c)
+            cur = self._to_current(x + sx, y + sy, sw, sh)
+            if cur is None:
+                continue
+            cand = self._measure(gray, *cur, t_loc, floor=0.75 * level)
+            if cand is not None:
+                out.append(cand)
+        return out
+
+    def _measure(self, gray, x, y, bw, bh, t_loc, floor: float = 0.0):
         pad = 4
         x0, y0 = max(0, x - pad), max(0, y - pad)
         x1, y1 = min(self.w, x + bw + pad), min(self.h, y + bh + pad)
@@ -239,7 +283,7 @@ class Detector:
         # clipped at zero (OpenCV calls: cheaper than numpy on tiny windows)
         signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
         diff = np.abs(signed)
-        _, wgt = cv2.threshold(cv2.subtract(diff, max(6.0, 0.5 * t_loc - 6.0)), 0.0, 0.0, cv2.THRESH_TOZERO)
+        _, wgt = cv2.threshold(cv2.subtract(diff, max(6.0, 0.5 * t_loc - 6.0, floor)), 0.0, 0.0, cv2.THRESH_TOZERO)
         peak = float(cv2.minMaxLoc(wgt)[1])
         if peak <= 0:
             return None

@@ -100,8 +100,9 @@ class FrameGuard:
         drifts add up to a measurable shift there, where frame to frame they hide in the noise).
         The view is still when standing still explains nearly as many corners as the best fit."""
         self._k += 1
-        if self._still >= 3 and self._k % 4 and self._key is not None:
-            return IDENTITY  # a still view is re-checked every 4th exposure (drift adds up from the key frame)
+        every = 4 if self._still < 12 else 8  # a view still for long is re-checked less often
+        if self._still >= 3 and self._k % every and self._key is not None:
+            return IDENTITY  # a still view is re-checked every 4th-8th exposure (drift adds up from the key frame)
         if self._key is None or self._k % 30 == 0:
             self._key, self._key_T = self._prev_small, self.total_motion.copy()
             self._pts = self._corners(self._key)

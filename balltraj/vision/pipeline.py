@@ -65,22 +65,37 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     trk = Tracker(info.width, info.height, focal_px=None if camera is None else camera.focal_px,
                   ball_radius_m=ball_radius_m, camera=camera)
     guard = FrameGuard()
+
+    def prepare(frame):
+        # in the decoding thread, frame by frame in order: the grey and half-size images, and what
+        # the frame is (repeat, cut, view motion) -- work that overlaps the detection of earlier frames
+        gray, small = det.prepare(frame)
+        kind = guard.check(small)
+        return gray, small, kind, guard.total_motion.copy(), guard.max_moved_px
+
     times, frame_of, log = [], [], []
+    moved_px = 0.0
     n = n_repeat = 0
     cuts: list[float] = []
-    for k, t, prepared in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
-                                      grey=True, prepare=det.prepare):
+    shown: list[float] = []  # container times of the exposures since the last cut
+    repeats_here = 0
+    for k, t, (gray, small, kind, motion, moved_px) in read_frames(
+            path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True, prepare=prepare):
         n += 1
-        kind = guard.check(prepared[1])
         if kind.kind == "repeat":
             n_repeat += 1
+            repeats_here += 1
             continue
         if kind.kind == "cut":
             trk.end_all("scene cut")
             det.reset()
             cuts.append(t)
-        det.set_view(guard.total_motion if guard.max_moved_px > 0 else None)
-        cands = det.process(None, prepared)
+            shown, repeats_here = [], 0
+        shown.append(t)
+        if repeats_here and capture_fps is None:
+            t = exposure_time(shown)
+        det.set_view(motion if moved_px > 0 else None)
+        cands = det.process(None, (gray, small))
         trk.update(len(frame_of), t, cands)
         frame_of.append(k)
         times.append(t)
@@ -104,8 +119,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
                         f"{fps_m:.0f} distinct images a second were used, one observation each")
     if cuts:
         warnings.append("scene cut at " + ", ".join(f"{c:.2f} s" for c in cuts) + ": tracks end there")
-    if camera is not None and guard.max_moved_px > 2.0:
-        warnings.append(f"the view moved by up to {guard.max_moved_px:.0f} px during the clip (hand-held or a pan): "
+    if camera is not None and moved_px > 2.0:
+        warnings.append(f"the view moved by up to {moved_px:.0f} px during the clip (hand-held or a pan): "
                         "the camera file describes a fixed view and no longer applies; use a tripod, or calibrate "
                         "from the clip itself")
     falls = [_apparent_fall(f, ball_radius_m) for f in flights] if flights else trk.fall_hints
@@ -116,6 +131,23 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         warnings.append(f"the clip runs at {fps_m:.0f} frames/s; 120 or 240 frames/s tracks fast balls far better"
                         " (for slow-motion files stored time-stretched, give --capture-fps)")
     return TrackResult(flights, n, fps_m, info.width, info.height, warnings)
+
+
+def exposure_time(shown: list[float], window: int = 60) -> float:
+    """Time [s] of the latest exposure of frame-rate-converted footage (repeated frames): the
+    container time of the first frame that shows an exposure lags it by up to a frame interval, at
+    random (25 -> 30 frames/s shows 5 exposures in 6 frames, 1 or 2 frames each), which bends the
+    path in time by up to a frame's motion. The exposures themselves were taken at an even rate, so
+    their times are a straight line in their count: fitted (least squares) to the container times
+    of the last ``window`` exposures and read at the latest. Under 6 exposures the container time
+    is kept."""
+    n = len(shown)
+    if n < 6:
+        return shown[-1]
+    ts = np.asarray(shown[-window:])
+    j = np.arange(len(ts), dtype=float)
+    slope, icpt = np.polyfit(j, ts, 1)
+    return float(icpt + slope * j[-1])
 
 
 def _apparent_fall(f, ball_radius_m) -> float | None:

@@ -16,10 +16,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .checks import (_blur_consistent, _net_speed, _radius_consistent, _smoothness_px, downward_acceleration,
-                     world_speed)
+from .checks import (_blur_consistent, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
+                     downward_acceleration, sideways_motion, smooth_enough, world_speed)
 from .detect import Candidate, lens_magnification
-from .trackpoints import _Track
+from .trackpoints import _Track, cut_at_false_reacquisition, smooth_part, trim_strays
 
 
 @dataclass(frozen=True)
@@ -38,7 +38,7 @@ class TrackedFlight:
 class Tracker:
     def __init__(self, width, height, fps_hint: float = 240.0, *, min_speed_px_s: float | None = None,
                  max_speed_px_s: float | None = None, max_misses: int = 10, min_points: int = 8,
-                 confirm: int = 4, focal_px: float | None = None, ball_radius_m: float | None = None,
+                 confirm: int = 5, focal_px: float | None = None, ball_radius_m: float | None = None,
                  min_ball_speed_mps: float = 3.0, max_ball_speed_mps: float = 90.0, camera=None):
         self.w, self.h = width, height
         diag = float(np.hypot(width, height))
@@ -63,16 +63,26 @@ class Tracker:
         # with a wide gate cannot take the ball from the track that predicts it
         pairs = []
         preds = []
+        if cands:
+            cu = np.fromiter((c.u for c in cands), float, len(cands))
+            cv = np.fromiter((c.v for c in cands), float, len(cands))
+            cr = np.fromiter((c.radius_px for c in cands), float, len(cands))
+            cs = np.fromiter((c.streak_px for c in cands), float, len(cands))
         for j, tr in enumerate(self.active):
             pred, spread = tr.predict(t)
             preds.append(pred)
+            if not cands:
+                continue
             last = tr.points[-1][2]
             step = tr.speed_px_per_s() * (t - tr.points[-1][1])
             gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 if tr.confirmed else 0.35) * step
-            for i, c in enumerate(cands):
-                d = float(np.hypot(c.u - pred[0], c.v - pred[1]))
-                if d < gate and 0.33 * last.radius_px - 2 <= c.radius_px <= 3 * last.radius_px + 2:
-                    pairs.append((not tr.confirmed, d / gate, j, i))
+            d = np.hypot(cu - pred[0], cv - pred[1])
+            # sizes alike, and smeared no longer than the track moves in one interval (the exposure is
+            # shorter than the interval): a long streak next to a slow track is a limb or a pole
+            ok = (d < gate) & (cr >= 0.33 * last.radius_px - 2) & (cr <= 3 * last.radius_px + 2) \
+                & (cs <= 1.5 * step + 2.0 + cr)
+            for i in np.flatnonzero(ok):
+                pairs.append((not tr.confirmed, float(d[i]) / gate, j, int(i)))
         pairs.sort()
         taken_t, taken_c = set(), set()
         for _, _, j, i in pairs:
@@ -84,7 +94,9 @@ class Tracker:
             tr.add(k, t, cands[i])
             tr.misses = 0
             if not tr.confirmed and len(tr.points) >= self.confirm:
-                tr.confirmed = self._plausible(tr)
+                # fast enough, of steady speed, and on a smooth curve: a chain of blobs that merely
+                # lines up (common among the dozens of candidates a busy frame holds) is not
+                tr.confirmed = self._plausible(tr) and _speed_consistent(tr) and smooth_enough(tr)
                 if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
                     tr.ended = "not a flight"
         for j, tr in enumerate(self.active):
@@ -104,52 +116,81 @@ class Tracker:
         # seed new tracks from unclaimed candidates and the recent pool: three points in three recent
         # exposures that move fast enough and continue each other's motion (a random pair of clutter
         # blobs is common in a busy scene, a random triplet in line is not)
+        seeds = self._seed_all(k, t, [cands[i] for i in free])
         new_pool = []
-        for i in free:
-            c = cands[i]
-            seed = self._seed(k, t, c)
+        for i, seed in zip(free, seeds):
             if seed is not None:
                 tr = _Track()
                 for p in seed:
                     tr.add(*p)
                 self.active.append(tr)
             else:
-                new_pool.append((k, t, c))
+                new_pool.append((k, t, cands[i]))
         self.pool = [p for p in self.pool if k - p[0] < 3] + new_pool
 
-    def _seed(self, k, t, c):
-        """The best (p0, p1, c) from the pool that starts a plausible flight, or None."""
-        best, best_d = None, np.inf
-        for p1 in self.pool:
-            if not self._seeds(p1, k, t, c):
-                continue
-            k1, t1, c1 = p1
-            for p0 in self.pool:
-                k0, t0, c0 = p0
-                if k0 >= k1 or not self._seeds(p0, k1, t1, c1):
-                    continue
-                f = (t - t1) / (t1 - t0)
-                pu, pv = c1.u + (c1.u - c0.u) * f, c1.v + (c1.v - c0.v) * f
-                step = float(np.hypot(c.u - c1.u, c.v - c1.v))
-                d = float(np.hypot(c.u - pu, c.v - pv))
-                if d < 3.0 + 2.0 * c.radius_px + 0.35 * step and d < best_d:
-                    best, best_d = (p0, p1, (k, t, c)), d
-        return best
+    def _seed_all(self, k, t, cs):
+        """For each candidate c of cs, the best (p0, p1, c) from the pool that starts a plausible
+        flight (p0 and p1 in earlier exposures, each step fast enough, sizes alike, and c within a
+        few radii of where p0 -> p1 extrapolates), or None. All candidates at once: every pool pair
+        and candidate is judged in arrays."""
+        out = [None] * len(cs)
+        if not cs or len(self.pool) < 2:
+            return out
+        pool = self.pool
+        K = np.array([p[0] for p in pool])
+        T = np.array([p[1] for p in pool])
+        U = np.array([p[2].u for p in pool])
+        V = np.array([p[2].v for p in pool])
+        Rr = np.array([p[2].radius_px for p in pool])
+        cu = np.array([c.u for c in cs])
+        cv = np.array([c.v for c in cs])
+        cr = np.array([c.radius_px for c in cs])
 
-    def _seeds(self, p, k, t, c) -> bool:
-        """Could pool entry p = (k0, t0, c0) and candidate c be consecutive points of a flight?"""
-        k0, t0, c0 = p
-        dt = t - t0
-        if dt <= 0 or k - k0 > 2 or k0 == k:
-            return False
-        sp = float(np.hypot(c.u - c0.u, c.v - c0.v)) / dt
-        return self.min_speed <= sp <= self.max_speed and 0.5 * c0.radius_px - 2 <= c.radius_px <= 2 * c0.radius_px + 2
+        max_step = float(np.hypot(self.w, self.h)) / 6.0
+
+        def link(k1, t1, u1, v1, r1, k0, t0, u0, v0, r0):
+            """Could (k0, t0, ...) -> (k1, t1, ...) be consecutive points of a flight? Fast enough,
+            but not so far a step per exposure that the ball would cross the whole view in fewer
+            exposures than a flight needs (a random pair of far-apart blobs), sizes alike
+            (broadcast arrays)"""
+            dt = t1 - t0
+            d = np.hypot(u1 - u0, v1 - v0)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                sp = d / dt
+            return (dt > 0) & (k1 - k0 <= 2) & (k0 != k1) & (sp >= self.min_speed) & (sp <= self.max_speed) \
+                & (d <= max_step * np.abs(k1 - k0)) & (r1 >= 0.5 * r0 - 2) & (r1 <= 2 * r0 + 2)
+
+        m1 = link(k, t, cu[:, None], cv[:, None], cr[:, None], K[None], T[None], U[None], V[None], Rr[None])
+        ic, i1 = np.nonzero(m1)  # (candidate, p1) pairs
+        if not len(ic):
+            return out
+        m0 = link(K[:, None], T[:, None], U[:, None], V[:, None], Rr[:, None], K[None], T[None], U[None], V[None],
+                  Rr[None]) & (K[None] < K[:, None])  # m0[p1, p0]
+        ip, i0 = np.nonzero(m0[i1])
+        if not len(ip):
+            return out
+        c_i, p1_i = ic[ip], i1[ip]
+        f = (t - T[p1_i]) / (T[p1_i] - T[i0])
+        pu = U[p1_i] + (U[p1_i] - U[i0]) * f
+        pv = V[p1_i] + (V[p1_i] - V[i0]) * f
+        step = np.hypot(cu[c_i] - U[p1_i], cv[c_i] - V[p1_i])
+        d = np.hypot(cu[c_i] - pu, cv[c_i] - pv)
+        good = d < 3.0 + 2.0 * cr[c_i] + 0.35 * step
+        if not good.any():
+            return out
+        c_i, p1_i, p0_i, d = c_i[good], p1_i[good], i0[good], d[good]
+        order = np.lexsort((d, c_i))  # by candidate, then best first
+        first = np.ones(len(order), bool)
+        first[1:] = c_i[order][1:] != c_i[order][:-1]
+        for o in order[first]:
+            out[int(c_i[o])] = (pool[int(p0_i[o])], pool[int(p1_i[o])], (k, t, cs[int(c_i[o])]))
+        return out
 
     def _can_be_continued(self, prev: _Track) -> bool:
         """May prev (lost, or ended on a suspected bounce) be continued by a later fragment?"""
         if len(prev.points) < 5 or prev.ended not in ("lost", "clip ended", "bounce") or not self._plausible(prev):
             return False
-        if _smoothness_px(prev) > max(1.5, 0.5 * float(np.median([q[2].radius_px for q in prev.points]))):
+        if not smooth_enough(prev):
             return False  # a jittery fragment (a person's limb, a ghost) is continued by nothing
         return self._looks_like_ball(prev)  # never extend a person, a ghost or a flag with a ball
 
@@ -211,7 +252,7 @@ class Tracker:
         succ: dict[int, int] = {}
         pred: dict[int, int] = {}
         for _, i, j in pairs:
-            if i not in succ and j not in pred:
+            if i not in succ and j not in pred and self._joined_ok(tracks[i], tracks[j]):
                 succ[i], pred[j] = j, i
         out = []
         for i, tr in enumerate(tracks):
@@ -227,17 +268,28 @@ class Tracker:
             out.append(tr)
         return out
 
+    def _joined_ok(self, a: _Track, b: _Track) -> bool:
+        """Does a followed by b still look like one ball's flight (smooth, of consistent size and
+        speed)? A fragment that lands near a's curve may still be a person."""
+        both = _Track()
+        for p in a.points + b.points:
+            both.add(*p)
+        return smooth_enough(both) and self._looks_like_ball(both)
+
     def _looks_like_ball(self, tr: _Track) -> bool:
-        if not _blur_consistent(tr) or not _radius_consistent(tr):
+        if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)):
             return False
         if self.focal_px and self.ball_radius_m:
             ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
             if not self.min_ball_speed <= ws <= self.max_ball_speed:
                 return False
-        if self.camera is None and self.ball_radius_m:
-            a = self.apparent_fall(tr)
-            if a is not None and abs(a) > 100.0:
+        if self.ball_radius_m:
+            c = (self.w / 2, self.h / 2) if self.camera is None else (self.camera.K[0][2], self.camera.K[1][2])
+            mo = sideways_motion(tr, self.ball_radius_m, c)
+            if mo is not None and mo[1] - 2.0 * mo[2] > 100.0:
                 return False  # at the ball's own scale it turns at over 10 g: a swinging limb, not a flight
+            if mo is not None and mo[0] < self.min_ball_speed:
+                return False  # never as fast as a ball in flight, even at the end of its track: a hand, a person
         if self.camera is not None and self.ball_radius_m:
             fall = downward_acceleration(tr, self.camera, self.ball_radius_m, with_sigma=True)
             a_z, s_a = fall if fall is not None else (None, 0.0)
@@ -331,47 +383,12 @@ class Tracker:
         a_px = 2.0 * np.polyfit(ts - ts.mean(), uv[:, 1], 2)[0]
         return float(a_px * self.ball_radius_m / max(r, 0.3))
 
-    def _trim(self, tr: _Track) -> _Track:
-        """Drop stray points at either end of a track (a track often starts on the thrower's hand or
-        ends on clutter before it locks on or after it loses the ball): an end point goes while the
-        next 8 points, extrapolated by a parabola in time, miss it by more than a few radii, or its
-        apparent radius is far from what theirs extrapolates to (at most a third of the points go)."""
-        pts = list(tr.points)
-        if len(pts) < 12:
-            return tr
-        r_med = float(np.median([p[2].radius_px for p in pts]))
-        limit, removed = len(pts) // 3, 0
-
-        def stray(p, nxt):
-            ts = np.array([q[1] for q in nxt])
-            uv = np.array([(q[2].u, q[2].v) for q in nxt])
-            t0 = ts[0]
-            pred = [np.polyval(np.polyfit(ts - t0, uv[:, j], 2), p[1] - t0) for j in range(2)]
-            step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1)))
-            miss = float(np.hypot(p[2].u - pred[0], p[2].v - pred[1]))
-            inv = 1.0 / np.maximum([q[2].radius_px for q in nxt], 0.3)  # radius ~ 1/distance, about linear in time
-            r_pred = 1.0 / max(float(np.polyval(np.polyfit(ts - t0, inv, 1), p[1] - t0)), 1e-3)
-            return miss > 3.0 + 2.0 * r_med + 0.3 * step or abs(p[2].radius_px - r_pred) > 0.4 * r_pred + 1.0
-
-        while removed < limit and len(pts) >= 10 and stray(pts[0], pts[1:9]):
-            pts.pop(0)
-            removed += 1
-        while removed < limit and len(pts) >= 10 and stray(pts[-1], pts[-9:-1]):
-            pts.pop()
-            removed += 1
-        if not removed:
-            return tr
-        out = _Track()
-        for p in pts:
-            out.add(*p)
-        out.confirmed, out.ended, out.bounce = tr.confirmed, tr.ended, tr.bounce
-        return out
-
     def finish(self) -> list[TrackedFlight]:
         for tr in self.active:
             tr.ended = tr.ended or "clip ended"
-        merged = self._merge([tr for tr in self.finished + self.active if tr.confirmed])
-        done = [self._trim(part) for tr in merged for part in self._split_at_bounce(self._trim(tr))]
+        merged = self._merge([part for tr in self.finished + self.active if tr.confirmed
+                              for part in cut_at_false_reacquisition(tr)])
+        done = [trim_strays(part) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
         self.active = []
         flights = []
         self.fall_hints = []
@@ -383,8 +400,12 @@ class Tracker:
             uv = tr.uv()
             if np.linalg.norm(uv[-1] - uv[0]) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
                 continue
-            if _smoothness_px(tr) > max(1.5, 0.5 * float(np.median([p[2].radius_px for p in tr.points]))):
-                continue  # a thrown ball follows a smooth curve in the image; people and flags do not
+            if not smooth_enough(tr):  # a thrown ball follows a smooth curve in the image; people and flags do not
+                # (but a long throw's track may have begun on the hand before release: kept without
+                # those first points if the rest is smooth and still crosses a quarter of the view)
+                tr = smooth_part(tr, min_points)
+                if tr is None or np.linalg.norm(tr.uv()[-1] - tr.uv()[0]) < 0.25 * np.hypot(self.w, self.h):
+                    continue
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball
             if not self._looks_like_ball(tr):

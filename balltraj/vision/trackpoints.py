@@ -92,3 +92,95 @@ class _Track:
             n = len(st)
             self._speed = 0.5 * (st[(n - 1) // 2] + st[n // 2])
         return self._speed
+
+
+def trim_strays(tr: _Track) -> _Track:
+    """Drop stray points at either end of a track (a track often starts on the thrower's hand or
+    ends on clutter before it locks on or after it loses the ball): an end point goes while the
+    next 8 points, extrapolated by a parabola in time, miss it by more than a few radii, or its
+    apparent radius is far from what theirs extrapolates to (at most a third of the points go)."""
+    pts = list(tr.points)
+    if len(pts) < 12:
+        return tr
+    r_med = float(np.median([p[2].radius_px for p in pts]))
+    limit, removed = len(pts) // 3, 0
+
+    def stray(p, nxt):
+        ts = np.array([q[1] for q in nxt])
+        uv = np.array([(q[2].u, q[2].v) for q in nxt])
+        t0 = ts[0]
+        pred = [np.polyval(np.polyfit(ts - t0, uv[:, j], 2), p[1] - t0) for j in range(2)]
+        step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1)))
+        miss = float(np.hypot(p[2].u - pred[0], p[2].v - pred[1]))
+        inv = 1.0 / np.maximum([q[2].radius_px for q in nxt], 0.3)  # radius ~ 1/distance, about linear in time
+        r_pred = 1.0 / max(float(np.polyval(np.polyfit(ts - t0, inv, 1), p[1] - t0)), 1e-3)
+        return miss > 3.0 + 2.0 * r_med + 0.3 * step or abs(p[2].radius_px - r_pred) > 0.4 * r_pred + 1.0
+
+    while removed < limit and len(pts) >= 10 and stray(pts[0], pts[1:9]):
+        pts.pop(0)
+        removed += 1
+    while removed < limit and len(pts) >= 10 and stray(pts[-1], pts[-9:-1]):
+        pts.pop()
+        removed += 1
+    if not removed:
+        return tr
+    out = _Track()
+    for p in pts:
+        out.add(*p)
+    out.confirmed, out.ended, out.bounce = tr.confirmed, tr.ended, tr.bounce
+    return out
+
+
+def _stray_from(prev: list, p, r_med: float) -> bool:
+    """Is point p far from where a parabola in time through the points prev (up to 8) puts it?"""
+    ts = np.array([q[1] for q in prev])
+    uv = np.array([(q[2].u, q[2].v) for q in prev])
+    deg = min(2, len(prev) - 1)
+    t0 = ts[-1]
+    pred = [np.polyval(np.polyfit(ts - t0, uv[:, j], deg), p[1] - t0) for j in range(2)]
+    step = float(np.median(np.linalg.norm(np.diff(uv, axis=0), axis=1) / np.diff(ts))) * (p[1] - t0)
+    return float(np.hypot(p[2].u - pred[0], p[2].v - pred[1])) > 3.0 + 2.0 * r_med + 0.3 * step
+
+
+def cut_at_false_reacquisition(tr: _Track) -> list[_Track]:
+    """Cut a track where, after coasting through two or more missed exposures, it picked up
+    something other than the ball: the first two points after the gap both miss the curve of the
+    points before it (a parabola in time through the last 8) by more than a few radii. Returns the
+    pieces (the track itself when there is no such place); each piece is judged on its own later."""
+    pts = tr.points
+    if len(pts) < 10:
+        return [tr]
+    for i in range(6, len(pts) - 1):
+        if pts[i][0] - pts[i - 1][0] < 3:
+            continue
+        prev = pts[max(0, i - 8):i]
+        r_med = float(np.median([q[2].radius_px for q in prev]))
+        if _stray_from(prev, pts[i], r_med) and _stray_from(prev, pts[i + 1], r_med):
+            head, tail = _Track(), _Track()
+            for q in pts[:i]:
+                head.add(*q)
+            for q in pts[i:]:
+                tail.add(*q)
+            head.confirmed, head.ended = True, "lost"
+            tail.confirmed, tail.ended, tail.bounce = True, tr.ended, tr.bounce
+            return [head] + cut_at_false_reacquisition(tail)
+    return [tr]
+
+
+def smooth_part(tr: _Track, min_points: int) -> _Track | None:
+    """The track without its first points, as few as make the rest lie on a smooth curve
+    (checks.smooth_enough): a track often begins on the thrower's hand or the kicker's foot before
+    the ball leaves it. At most a third of the points go and ``min_points`` stay; None when no such
+    remainder is smooth."""
+    from .checks import smooth_enough
+
+    pts = tr.points
+    n = len(pts)
+    for cut in range(1, min(n // 3, n - min_points) + 1):
+        rest = _Track()
+        for p in pts[cut:]:
+            rest.add(*p)
+        rest.confirmed, rest.ended, rest.bounce = tr.confirmed, tr.ended, tr.bounce
+        if smooth_enough(rest):
+            return rest
+    return None

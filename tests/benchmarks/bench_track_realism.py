@@ -62,12 +62,11 @@ def shots():
 
 
 def evaluate(truth, res):
-    tt = np.array([r["t"] for r in truth])
     hit_exposures, n_obs, n_good, bad_flights = set(), 0, 0, 0
     for f in res.flights:
         good_f = 0
-        for t, (u, v) in zip(f.t, f.uv):
-            row = truth[int(np.argmin(np.abs(tt - t)))]
+        for k, (u, v) in zip(f.frame, f.uv):
+            row = truth[int(k)]  # the stored frame the observation was measured in
             n_obs += 1
             if "u" in row and not row["repeat"] and np.hypot(u - row["u"], v - row["v"]) <= max(2.0, 0.5 * row["r"]):
                 n_good += 1

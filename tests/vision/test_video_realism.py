@@ -23,11 +23,10 @@ LOB = [(0.05, (0.5, 0, 1.2), (11.0, 0, 6.5), (0, 1, 0))]
 def _matches(truth, res):
     """(share of distinct exposures with the ball in view matched within max(2 px, r/2), share of
     observations that match; observations on repeated frames count as wrong)."""
-    tt = np.array([r["t"] for r in truth])
     hit, good, n = set(), 0, 0
     for f in res.flights:
-        for t, (u, v) in zip(f.t, f.uv):
-            row = truth[int(np.argmin(np.abs(tt - t)))]
+        for k, (u, v) in zip(f.frame, f.uv):
+            row = truth[int(k)]  # the stored frame the observation was measured in
             n += 1
             if "u" in row and not row["repeat"] and math.hypot(u - row["u"], v - row["v"]) <= max(2.0, 0.5 * row["r"]):
                 good += 1

@@ -1,0 +1,132 @@
+"""The tests that tell a ball's track from other moving things (checks.py), the cut where a coasting
+track picked up something else (trackpoints.py), the timing of frame-rate-converted exposures
+(pipeline.py) and the split of a ball from a person it touches (detect.py).
+
+Truth comes from closed-form motion (free fall under g, a pinhole projection written here) and
+from the arithmetic of frame-rate conversion, not from the code under test."""
+import math
+
+import numpy as np
+import pytest
+
+from balltraj.vision.checks import _speed_consistent, _streak_consistent, sideways_motion
+from balltraj.vision.detect import Candidate, Detector
+from balltraj.vision.pipeline import exposure_time
+from balltraj.vision.trackpoints import _Track, cut_at_false_reacquisition
+
+G = 9.81  # m/s^2, standard gravity (common practice)
+F_PX, R_BALL = 1000.0, 0.11  # pinhole focal length [px] and ball radius [m] of the synthetic views
+CENTRE = (640.0, 360.0)
+
+
+def _project(X, Y, Z):
+    """Pinhole projection (Source: Hartley & Zisserman 2004, eq. 6.1): pixel and apparent radius."""
+    return CENTRE[0] + F_PX * X / Z, CENTRE[1] + F_PX * Y / Z, F_PX * R_BALL / Z
+
+
+def _track(ts, X, Y, Z, frames=None, streak=None):
+    tr = _Track()
+    frames = np.arange(len(ts)) if frames is None else frames
+    for i, t in enumerate(ts):
+        u, v, r = _project(X[i], Y[i], Z[i])
+        s = 0.0 if streak is None else streak[i]
+        tr.add(int(frames[i]), float(t), Candidate(u, v, r, s, 0.0, math.pi * r * r, 80.0))
+    return tr
+
+
+def _free_fall(ts, vx=12.0, vy=-8.0, z0=10.0, vz=0.0):
+    """A ball across the view (image y grows downward, so gravity is +Y), depth z0 + vz t."""
+    return vx * ts - 3.0, vy * ts + 0.5 * G * ts**2, z0 + vz * ts
+
+
+def test_sideways_acceleration_of_a_ball_in_free_flight_is_g():
+    ts = np.arange(30) / 60.0
+    mo = sideways_motion(_track(ts, *_free_fall(ts)), R_BALL, CENTRE)
+    # Source: free fall, |a| = g across a view whose up-down axis is vertical
+    assert mo[1] == pytest.approx(G, rel=0.02)
+    peak = max(math.hypot(12.0, -8.0), math.hypot(12.0, -8.0 + G * ts[-1]))  # the faster end of the parabola
+    assert mo[0] == pytest.approx(peak, rel=0.02)
+
+
+def test_sideways_acceleration_of_a_receding_ball_is_still_g():
+    # the kick from behind: 2 m -> 20 m away; perspective bends the image path, X and Y stay ballistic
+    ts = np.arange(40) / 60.0
+    X, Y, Z = _free_fall(ts, vx=1.0, vy=-6.0, z0=2.0, vz=27.0)
+    mo = sideways_motion(_track(ts, X, Y, Z), R_BALL, CENTRE)
+    assert mo[1] == pytest.approx(G, rel=0.05)
+
+
+def test_a_swinging_hand_turns_far_harder_than_a_ball():
+    # a hand 0.7 m from the shoulder swinging at 3 turns a second: centripetal omega^2 L = 249 m/s^2
+    # (Source: uniform circular motion), a ball-sized blob 8 m away seen at 60 frames/s for 0.1 s
+    ts = np.arange(7) / 60.0
+    ang = 2 * math.pi * 3.0 * ts
+    mo = sideways_motion(_track(ts, 0.7 * np.sin(ang), 0.7 * np.cos(ang), np.full(len(ts), 8.0)), R_BALL, CENTRE)
+    assert mo[1] - 2 * mo[2] > 100.0  # over 10 g, beyond its own uncertainty
+
+
+def test_speed_consistency_allows_dropped_exposures_but_not_jumps():
+    # 30 exposures/s stored at 24 frames/s: every 5th exposure dropped, container times at 1/24 s
+    exp = np.array([j for j in range(40) if j % 5 != 4])
+    t_capture = exp / 30.0
+    t_container = np.arange(len(exp)) / 24.0
+    X, Y, Z = _free_fall(t_capture)
+    assert _speed_consistent(_track(t_container, X, Y, Z))
+    # a short track (one stray step in eight is tolerated) with one point from a blob three steps on
+    X2, Y2, Z2, t2 = X[:8].copy(), Y[:8], Z[:8], t_container[:8]
+    assert _speed_consistent(_track(t2, X2, Y2, Z2))
+    X2[4] += 3 * (X2[5] - X2[4])
+    assert not _speed_consistent(_track(t2, X2, Y2, Z2))
+
+
+def test_streaks_follow_the_speed_of_a_ball_not_line_fragments():
+    ts = np.arange(24) / 60.0
+    X, Y, Z = _free_fall(ts)
+    speed_px = np.hypot(np.gradient(X), np.gradient(Y)) * F_PX / Z  # px per interval
+    assert _streak_consistent(_track(ts, X, Y, Z, streak=0.5 * speed_px))  # exposure half the interval
+    rng = np.random.default_rng(5)
+    assert not _streak_consistent(_track(ts, X, Y, Z, streak=rng.uniform(5, 130, len(ts))))
+
+
+def test_a_track_that_picked_up_a_person_after_coasting_is_cut_there():
+    ts = np.arange(20) / 60.0
+    ball = _track(ts, *_free_fall(ts))
+    tr = _Track()
+    for p in ball.points:
+        tr.add(*p)
+    for i in range(6):  # 4 missed exposures, then a person's hand 40 cm away, moving slowly
+        t = (24 + i) / 60.0
+        u, v, r = _project(-2.0 + 0.02 * i, 1.5, 10.0)
+        tr.add(24 + i, t, Candidate(u, v, r, 0.0, 0.0, math.pi * r * r, 50.0))
+    pieces = cut_at_false_reacquisition(tr)
+    assert [len(p.points) for p in pieces] == [20, 6]
+    assert cut_at_false_reacquisition(ball)[0] is ball  # a clean track is left alone
+
+
+def test_exposure_times_of_frame_rate_converted_footage_are_even():
+    # 25 exposures/s stored at 30 frames/s: exposure j is first shown at frame ceil(6 j / 5)
+    # (Source: the arithmetic of the 5-in-6 repeat pattern; the renderer of the realism tests does the same)
+    j = np.arange(60)
+    first_shown = np.ceil(6 * j / 5) / 30.0
+    true = j / 25.0
+    raw_err = first_shown - true
+    fitted = np.array([exposure_time(list(first_shown[: n + 1])) for n in range(len(j))])
+    fit_err = fitted[10:] - true[10:]
+    assert np.ptp(raw_err) > 0.5 / 30  # the raw times jitter by most of a frame interval
+    assert np.ptp(fit_err) < 0.2 / 30  # the fitted ones by a small part of it (a constant offset is harmless)
+
+
+def test_a_ball_touching_a_person_is_found_by_its_core():
+    w, h = 320, 240
+    bg = np.full((h, w), 200, np.uint8)
+    frame = bg.copy()
+    frame[100:200, 60:130] = 150  # a person-sized shape 50 grey levels darker than the background
+    yy, xx = np.mgrid[0:h, 0:w]
+    cu, cv, r = 136.0, 120.0, 7.0
+    frame[(xx - cu) ** 2 + (yy - cv) ** 2 <= r * r] = 60  # a dark ball touching its edge
+    det = Detector(w, h)
+    det.process(bg)
+    cands = det.process(frame)
+    best = min(cands, key=lambda c: math.hypot(c.u - cu, c.v - cv))
+    assert math.hypot(best.u - cu, best.v - cv) < 1.0
+    assert best.radius_px == pytest.approx(r, rel=0.25)
