@@ -120,10 +120,7 @@ class Tracker:
         new_pool = []
         for i, seed in zip(free, seeds):
             if seed is not None:
-                tr = _Track()
-                for p in seed:
-                    tr.add(*p)
-                self.active.append(tr)
+                self.active.append(_Track.of(seed))
             else:
                 new_pool.append((k, t, cands[i]))
         self.pool = [p for p in self.pool if k - p[0] < 3] + new_pool
@@ -235,11 +232,7 @@ class Tracker:
                 t_b = b.points[0][1]
                 if b is a or not (a.points[0][1] < t_b <= a.points[-1][1]) or a.points[-1][1] - t_b > 0.06:
                     continue
-                cut = _Track()
-                for p in a.points:
-                    if p[1] < t_b:
-                        cut.add(*p)
-                cut.confirmed, cut.ended = True, "lost"
+                cut = _Track.of([p for p in a.points if p[1] < t_b], confirmed=True, ended="lost")
                 if len(cut.points) >= self.min_points and self._can_be_continued(cut) and self._can_continue(b) \
                         and self._continuation(cut, b) is not None:
                     tracks[i] = cut
@@ -271,9 +264,7 @@ class Tracker:
     def _joined_ok(self, a: _Track, b: _Track) -> bool:
         """Does a followed by b still look like one ball's flight (smooth, of consistent size and
         speed)? A fragment that lands near a's curve may still be a person."""
-        both = _Track()
-        for p in a.points + b.points:
-            both.add(*p)
+        both = _Track.of(a.points + b.points)
         return smooth_enough(both) and self._looks_like_ball(both)
 
     def _looks_like_ball(self, tr: _Track) -> bool:
@@ -362,14 +353,8 @@ class Tracker:
                 best, best_score = i, score
         if best is None:
             return [tr]
-        a, b = _Track(), _Track()
-        for p in tr.points[:best + 1]:
-            a.add(*p)
-        for p in tr.points[best + 1:]:
-            b.add(*p)
-        a.confirmed = b.confirmed = True
-        a.ended, a.bounce = "bounce", True
-        b.ended, b.bounce = tr.ended, tr.bounce
+        a = _Track.of(tr.points[:best + 1], confirmed=True, ended="bounce", bounce=True)
+        b = _Track.of(tr.points[best + 1:], confirmed=True, ended=tr.ended, bounce=tr.bounce)
         return [a] + self._split_at_bounce(b)
 
     def apparent_fall(self, tr: _Track) -> float | None:

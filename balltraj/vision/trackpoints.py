@@ -20,6 +20,15 @@ class _Track:
     _steps: list = field(default_factory=list)
     _speed: float | None = 0.0
 
+    @classmethod
+    def of(cls, points, *, confirmed: bool = False, ended: str = "", bounce: bool = False) -> "_Track":
+        """A track made of ``points`` ((k, t, Candidate), in order) with the given state."""
+        out = cls()
+        for p in points:
+            out.add(*p)
+        out.confirmed, out.ended, out.bounce = confirmed, ended, bounce
+        return out
+
     def add(self, k, t, c):
         if self.points:
             t0, (u0, v0) = self._ts[-1], self._uvs[-1]
@@ -124,11 +133,7 @@ def trim_strays(tr: _Track) -> _Track:
         removed += 1
     if not removed:
         return tr
-    out = _Track()
-    for p in pts:
-        out.add(*p)
-    out.confirmed, out.ended, out.bounce = tr.confirmed, tr.ended, tr.bounce
-    return out
+    return _Track.of(pts, confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)
 
 
 def _stray_from(prev: list, p, r_med: float) -> bool:
@@ -156,13 +161,8 @@ def cut_at_false_reacquisition(tr: _Track) -> list[_Track]:
         prev = pts[max(0, i - 8):i]
         r_med = float(np.median([q[2].radius_px for q in prev]))
         if _stray_from(prev, pts[i], r_med) and _stray_from(prev, pts[i + 1], r_med):
-            head, tail = _Track(), _Track()
-            for q in pts[:i]:
-                head.add(*q)
-            for q in pts[i:]:
-                tail.add(*q)
-            head.confirmed, head.ended = True, "lost"
-            tail.confirmed, tail.ended, tail.bounce = True, tr.ended, tr.bounce
+            head = _Track.of(pts[:i], confirmed=True, ended="lost")
+            tail = _Track.of(pts[i:], confirmed=True, ended=tr.ended, bounce=tr.bounce)
             return [head] + cut_at_false_reacquisition(tail)
     return [tr]
 
@@ -177,10 +177,7 @@ def smooth_part(tr: _Track, min_points: int) -> _Track | None:
     pts = tr.points
     n = len(pts)
     for cut in range(1, min(n // 3, n - min_points) + 1):
-        rest = _Track()
-        for p in pts[cut:]:
-            rest.add(*p)
-        rest.confirmed, rest.ended, rest.bounce = tr.confirmed, tr.ended, tr.bounce
+        rest = _Track.of(pts[cut:], confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)
         if smooth_enough(rest):
             return rest
     return None

@@ -355,15 +355,20 @@ def _accuracy_rows(rows, keys, n, with_found=True):
                 continue
             conv = sum(1 for x in res if x["ok"])
             budget = sum(1 for x in res if x["budget"])
-            sp = np.array([x["speed_err"] for x in res])
-            de = np.array([x["defl_err"] for x in res]) * 100
-            dd = np.array([x["defl"] for x in res]) * 100
-            z = np.abs(np.array([x["z"] for x in res]))
-            each = " / ".join(f"{100 * np.mean(z[:, i] <= 1.0):.0f}" for i in range(3))
-            out.append(f"| {label} | {name} | {found} | {conv}/{len(e[mode])} ({budget}) | "
-                       f"{np.median(sp):.2f} ({sp.max():.2f}) | {np.median(de):.1f} ({de.max():.1f}) | "
-                       f"{np.median(dd):.0f} | {100 * np.mean(z <= 1.0):.0f} % ({each}) |")
+            out.append(f"| {label} | {name} | {found} | {conv}/{len(e[mode])} ({budget}) | {stat_cells(res)} |")
     return out
+
+
+def stat_cells(res) -> str:
+    """The table cells of a set of fitted flights: launch-speed error % median (max), deflection error cm
+    median (max), deflection cm median, one-sigma coverage of all |z| (and of each of the three)."""
+    sp = np.array([x["speed_err"] for x in res])
+    de = np.array([x["defl_err"] for x in res]) * 100
+    dd = np.array([x["defl"] for x in res]) * 100
+    z = np.abs(np.array([x["z"] for x in res]))
+    each = " / ".join(f"{100 * np.mean(z[:, i] <= 1.0):.0f}" for i in range(3))
+    return (f"{np.median(sp):.2f} ({sp.max():.2f}) | {np.median(de):.1f} ({de.max():.1f}) | "
+            f"{np.median(dd):.0f} | {100 * np.mean(z <= 1.0):.0f} % ({each})")
 
 
 HEAD = ["| camera | depth from | resting ball found | fits converged (budget stops) | launch speed error % median "

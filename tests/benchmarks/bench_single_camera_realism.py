@@ -32,6 +32,7 @@ from balltraj.camera.anchors import apply_anchor, choose_anchor  # noqa: E402
 from balltraj.formats import CameraObservations, Observations  # noqa: E402
 from balltraj.pipeline import ClipInput, FitSettings, analyze_clip, fit_observations  # noqa: E402
 from balltraj.pipeline_depth import template_zone  # noqa: E402
+from bench_single_camera import stat_cells  # noqa: E402
 
 MARK = np.array([-11.0, 0.0, S.SOCCER.radius_m])
 START_S = 0.1
@@ -158,14 +159,7 @@ def main_realism(n):
             if not ok:
                 lines.append(f"| {label} | {name} | {anchors or '–'} | 0/{len(e[mode])} | – | – | – | – |")
                 continue
-            sp = np.array([x["speed_err"] for x in ok])
-            de = np.array([x["defl_err"] for x in ok]) * 100
-            dd = np.array([x["defl"] for x in ok]) * 100
-            z = np.abs(np.array([x["z"] for x in ok]))
-            each = " / ".join(f"{100 * np.mean(z[:, i] <= 1.0):.0f}" for i in range(3))
-            lines.append(f"| {label} | {name} | {anchors} | {len(ok)}/{len(e[mode])} | {np.median(sp):.2f} "
-                         f"({sp.max():.2f}) | {np.median(de):.1f} ({de.max():.1f}) | {np.median(dd):.0f} | "
-                         f"{100 * np.mean(z <= 1.0):.0f} % ({each}) |")
+            lines.append(f"| {label} | {name} | {anchors} | {len(ok)}/{len(e[mode])} | {stat_cells(ok)} |")
     whys = sorted({w for e in rows.values() for w in e["why"]})
     if whys:
         lines += ["", "Not analysed: " + "; ".join(whys[:6])]

@@ -42,7 +42,7 @@ def _free_fall(ts, vx=12.0, vy=-8.0, z0=10.0, vz=0.0):
 def test_sideways_acceleration_of_a_ball_in_free_flight_is_g():
     ts = np.arange(30) / 60.0
     mo = sideways_motion(_track(ts, *_free_fall(ts)), R_BALL, CENTRE)
-    # Source: free fall, |a| = g across a view whose up-down axis is vertical
+    # Source: free fall, |a| = g across a view whose up-down axis points straight up
     assert mo[1] == pytest.approx(G, rel=0.02)
     peak = max(math.hypot(12.0, -8.0), math.hypot(12.0, -8.0 + G * ts[-1]))  # the faster end of the parabola
     assert mo[0] == pytest.approx(peak, rel=0.02)
