@@ -67,6 +67,8 @@ class FitSettings:
         "auto" (the data choose a rung of the aerodynamic ladder) or a rung name to pin it.
     wind_mps : tuple of 3 floats or None
         Constant wind [m/s] for the fit and the no-spin reference; None: still air.
+    wind_sigma_mps : float
+        How well the wind is known: one-sigma [m/s] of each horizontal component; 0: exactly as given.
     start_source : str
         What gave the start point, in words ("start hint", "ground contact", ...).
     force : bool
@@ -83,6 +85,7 @@ class FitSettings:
     free_lift: bool = False
     aero_model: str = "auto"
     wind_mps: tuple[float, float, float] | None = None
+    wind_sigma_mps: float = 0.0
     force: bool = False
     start_source: str = "start hint"
 
@@ -93,6 +96,8 @@ class FitSettings:
                              f"got {self.start_sigma_m}")
         if self.target_x_m is not None and not math.isfinite(self.target_x_m):
             raise InputError(f"the target plane must be a finite x in metres, got {self.target_x_m}")
+        if not (math.isfinite(self.wind_sigma_mps) and 0 <= self.wind_sigma_mps <= 30):
+            raise InputError(f"the wind's uncertainty must be 0..30 m/s, got {self.wind_sigma_mps}")
 
     def model(self) -> FlightModel:
         """The flight model of this ball in this air."""
@@ -102,7 +107,8 @@ class FitSettings:
         return FitOptions(fit_drag=self.fit_drag, free_lift=self.free_lift,
                           start_near=None if self.start_near_m is None else tuple(map(float, self.start_near_m)),
                           start_sigma=self.start_sigma_m, aero_model=self.aero_model,
-                          wind_mps=None if self.wind_mps is None else tuple(map(float, self.wind_mps)))
+                          wind_mps=None if self.wind_mps is None else tuple(map(float, self.wind_mps)),
+                          wind_sigma_mps=float(self.wind_sigma_mps))
 
 
 @dataclass(frozen=True)

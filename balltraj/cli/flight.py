@@ -9,7 +9,7 @@ import typer
 
 from ..errors import InputError
 from .app import _command, app
-from .options import (AeroModelOpt, ForceOpt, WindOpt, AirDensityOpt, AltitudeOpt, BallFileOpt, HumidityOpt, PressureOpt, StartNearOpt,
+from .options import (AeroModelOpt, ForceOpt, WindOpt, WindUncertaintyOpt, AirDensityOpt, AltitudeOpt, BallFileOpt, HumidityOpt, PressureOpt, StartNearOpt,
                       StartSigmaOpt, TemperatureOpt, UnitsOpt, air_options, ball_option, fit_settings, si, si_list,
                       units_option, vector)
 
@@ -85,6 +85,7 @@ def fit(
     altitude: AltitudeOpt = None,
     aero_model: AeroModelOpt = "auto",
     wind: WindOpt = None,
+    wind_uncertainty: WindUncertaintyOpt = None,
     force: ForceOpt = False,
     ball_file: BallFileOpt = None,
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name, kept in the flight file."),
@@ -98,7 +99,8 @@ def fit(
     from ..commands.fit import run_fit
 
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),
-                         target_x, start_near, start_sigma, fit_drag, free_lift, aero_model=aero_model, wind=wind, force=force)
+                         target_x, start_near, start_sigma, fit_drag, free_lift, aero_model=aero_model, wind=wind, force=force,
+                         wind_uncertainty=wind_uncertainty)
     return run_fit(inputs=inputs, settings=settings, path_csv=path_csv, out=out,
                    labels={"athlete": athlete, "session": session, "notes": notes}, camera=camera, flight=flight,
                    units=units_option(units))

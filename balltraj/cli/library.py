@@ -8,7 +8,7 @@ from typing import List, Optional
 import typer
 
 from .app import _command, app, new_group
-from .options import (AeroModelOpt, ForceOpt, WindOpt, AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
+from .options import (AeroModelOpt, ForceOpt, WindOpt, WindUncertaintyOpt, AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
                       StartSigmaOpt, TemperatureOpt, UnitsOpt, air_options, ball_option, fit_settings,
                       units_option)
 
@@ -35,6 +35,7 @@ def batch(
     athlete: Optional[str] = typer.Option(None, "--athlete", help="Athlete name for these clips."),
     aero_model: AeroModelOpt = "auto",
     wind: WindOpt = None,
+    wind_uncertainty: WindUncertaintyOpt = None,
     force: ForceOpt = False,
     ball_file: BallFileOpt = None,
     replace: bool = typer.Option(False, "--replace", help="Analyse again clips already in the library with other "
@@ -45,7 +46,8 @@ def batch(
     from ..commands.library import run_batch_cmd
 
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),
-                         target_x, start_near, start_sigma, aero_model=aero_model, wind=wind, force=force)
+                         target_x, start_near, start_sigma, aero_model=aero_model, wind=wind, force=force,
+                         wind_uncertainty=wind_uncertainty)
     return run_batch_cmd(folder=folder, camera=camera, settings=settings, library=library, workers=workers,
                          cluster=cluster, capture_fps=capture_fps, session=session, athlete=athlete,
                          show_progress=True, replace=replace)

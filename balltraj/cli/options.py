@@ -65,7 +65,7 @@ def vector(text: Optional[str], option: str, kind: str = "length"):
 
 
 def fit_settings(ball, air, target_x, start_near, start_sigma, fit_drag=False, free_lift=False, aero_model="auto",
-                 wind=None, force=False):
+                 wind=None, force=False, wind_uncertainty=None):
     """The fit settings from the options, every unit in SI."""
     from ..pipeline import FitSettings
 
@@ -74,7 +74,18 @@ def fit_settings(ball, air, target_x, start_near, start_sigma, fit_drag=False, f
     return FitSettings(ball=ball, air=air, target_x_m=si(target_x, "length", "--target-x"),
                        start_near_m=vector(start_near, "--start-near"), start_sigma_m=start_sigma,
                        fit_drag=fit_drag, free_lift=free_lift, aero_model=str(aero_model).strip().lower(),
-                       wind_mps=vector(wind, "--wind", kind="speed"), force=force)
+                       wind_mps=vector(wind, "--wind", kind="speed"),
+                       wind_sigma_mps=wind_sigma_option(wind_uncertainty), force=force)
+
+
+def wind_sigma_option(text: Optional[str]) -> float:
+    """``--wind-uncertainty`` in m/s (or 3mph); 0 when not given."""
+    value = si(text, "speed", "--wind-uncertainty")
+    if value is None:
+        return 0.0
+    if not (math.isfinite(value) and 0 <= value <= 30):
+        raise InputError(f"--wind-uncertainty must be 0..30 m/s (or e.g. 5mph), got {text}")
+    return value
 
 
 # options shared by several commands, declared once
@@ -94,5 +105,8 @@ AeroModelOpt = Annotated[str, typer.Option("--aero-model", metavar="RUNG", help=
                                            "choose a rung of the ladder, see docs/method.md) or a rung name to pin it.")]
 WindOpt = Annotated[Optional[str], typer.Option("--wind", metavar="VX,VY,VZ", help="Constant wind [m/s] (or 5mph,0,0) "
                                                  "for the fit and the no-spin reference; default still air.")]
+WindUncertaintyOpt = Annotated[Optional[str], typer.Option(
+    "--wind-uncertainty", metavar="SPEED", help="How well the wind is known: one-sigma of each horizontal component "
+    "[m/s] (or 3mph). The deflection's uncertainty then carries what such a wind could do; default 0 (as given).")]
 ForceOpt = Annotated[bool, typer.Option("--force", help="Keep a fit whose numbers are impossible for the ball "
                                         "(a warning instead of an error).")]

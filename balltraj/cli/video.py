@@ -8,7 +8,7 @@ from typing import List, Optional
 import typer
 
 from .app import _command, app
-from .options import (AeroModelOpt, ForceOpt, WindOpt, AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
+from .options import (AeroModelOpt, ForceOpt, WindOpt, WindUncertaintyOpt, AirDensityOpt, AltitudeOpt, BallFileOpt, CaptureFpsOpt, HumidityOpt, PressureOpt, StartNearOpt,
                       StartSigmaOpt, TemperatureOpt, UnitsOpt, air_options, ball_option, fit_settings,
                       units_option)
 
@@ -51,6 +51,7 @@ def analyze(
     session: Optional[str] = typer.Option(None, "--session", help="Session name, kept in the flight files."),
     aero_model: AeroModelOpt = "auto",
     wind: WindOpt = None,
+    wind_uncertainty: WindUncertaintyOpt = None,
     force: ForceOpt = False,
     ball_file: BallFileOpt = None,
     units: UnitsOpt = "metric",
@@ -60,7 +61,8 @@ def analyze(
     from ..commands.video import run_analyze
 
     settings = fit_settings(ball_option(ball, ball_file), air_options(air_density, temperature, pressure, humidity, altitude),
-                         target_x, start_near, start_sigma, aero_model=aero_model, wind=wind, force=force)
+                         target_x, start_near, start_sigma, aero_model=aero_model, wind=wind, force=force,
+                         wind_uncertainty=wind_uncertainty)
     return run_analyze(clip=clip, camera=camera, settings=settings, capture_fps=capture_fps, out=out,
                        labels={"athlete": athlete, "session": session}, show_progress=True, units=units_option(units))
 

@@ -39,6 +39,8 @@ def run_batch_cmd(*, folder: Path, camera: Path, settings: FitSettings, library:
                "camera": cams[0].to_dict(), "target_x": settings.target_x_m, "start_near": settings.start_near_m,
                "start_sigma": settings.start_sigma_m, "aero_model": settings.aero_model,
                "wind_mps": settings.wind_mps, "capture_fps": capture_fps}
+    if settings.wind_sigma_mps:  # only when set, so libraries made before the option keep their hashes
+        options["wind_sigma_mps"] = settings.wind_sigma_mps
     opt_hash = options_hash({**options, "tool_version": __version__})
     camera_hash = file_hash(camera)
     lib = open_library(library)

@@ -248,7 +248,7 @@ def _prior_warnings(sig: dict) -> list[str]:
             if total > 0 and part[i] ** 2 > 0.5 * total**2:
                 why = ("how much of the ball's drag comes from its spin (the no-spin reference needs the drag "
                        "without it; published slopes dC_D/dS run from 0 to about 0.5)" if name == "drag_spin_split"
-                       else "the wind, known only to the stated uncertainty (a crosswind looks like sidespin)")
+                       else "the wind, known only to the stated uncertainty (a head or tail wind changes the drop, a crosswind looks like sidespin)")
                 out.append(f"the {comp} deflection's uncertainty (± {100 * total:.1f} cm) is mostly what one flight "
                            f"cannot tell: {why}")
     return out

@@ -138,3 +138,22 @@ def test_aero_model_can_be_pinned_and_wind_is_kept(track, tmp_path):
     assert rec["wind_mps"] == [0.0, 2.0, 0.0] and rec["model"]["wind_mps"] == [0.0, 2.0, 0.0]
     r = runner.invoke(app, ["fit", str(track[0]), "--ball", "baseball", "--aero-model", "nope", "-o", str(out)])
     assert r.exit_code == 2 and "(see --aero-model)" in r.output
+
+
+def test_wind_uncertainty_widens_the_sideways_deflection(track, tmp_path):
+    """--wind-uncertainty adds a marginalised horizontal wind: the same data, a larger sideways sigma
+    with a named wind share; a bad value is a one-line error, exit 2."""
+    p, _ = track
+    sig = {}
+    for name, extra in (("still", []), ("windy", ["--wind-uncertainty", "4.5mph"])):
+        out = tmp_path / f"{name}.json"
+        r = runner.invoke(app, ["fit", str(p), "--ball", "baseball", "--target-x", "17", "-o", str(out), *extra])
+        assert r.exit_code == 0, r.output
+        sig[name] = json.loads(out.read_text())["uncertainty"]["deflection"]
+    side = "horizontal_m"
+    assert sig["windy"][side] > sig["still"][side]
+    from_wind = sig["windy"]["from_priors_m"]
+    assert "wind" in " ".join(from_wind) and "wind" not in " ".join(sig["still"].get("from_priors_m", {}))
+    r = runner.invoke(app, ["fit", str(p), "--ball", "baseball", "-o", str(tmp_path / "x.json"),
+                            "--wind-uncertainty", "-1"])
+    assert r.exit_code == 2 and "--wind-uncertainty" in r.output and "Traceback" not in r.output
