@@ -71,15 +71,15 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         # the frame is (repeat, cut, view motion) -- work that overlaps the detection of earlier frames
         gray, small = det.prepare(frame)
         kind = guard.check(small)
-        return gray, small, kind, guard.total_motion.copy(), guard.max_moved_px
+        return gray, small, kind, guard.total_motion.copy(), guard.max_moved_px, guard.relearned
 
     times, frame_of, log = [], [], []
     moved_px = 0.0
     n = n_repeat = 0
     cuts: list[float] = []
     shown: list[float] = []  # container times of the exposures since the last cut
-    repeats_here = 0
-    for k, t, (gray, small, kind, motion, moved_px) in read_frames(
+    repeats_here = relearned = 0
+    for k, t, (gray, small, kind, motion, moved_px, relearn) in read_frames(
             path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True, prepare=prepare):
         n += 1
         if kind.kind == "repeat":
@@ -91,6 +91,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             det.reset()
             cuts.append(t)
             shown, repeats_here = [], 0
+        if relearn != relearned:  # earlier repeats were counted as exposures: count afresh from here
+            shown, relearned = [], relearn
         shown.append(t)
         if repeats_here and capture_fps is None:
             t = exposure_time(shown)
@@ -139,10 +141,10 @@ def exposure_time(shown: list[float], window: int = 60) -> float:
     random (25 -> 30 frames/s shows 5 exposures in 6 frames, 1 or 2 frames each), which bends the
     path in time by up to a frame's motion. The exposures themselves were taken at an even rate, so
     their times are a straight line in their count: fitted (least squares) to the container times
-    of the last ``window`` exposures and read at the latest. Under 6 exposures the container time
-    is kept."""
+    of the last ``window`` exposures and read at the latest (from the third exposure on: the
+    container times alone err by up to a frame interval, a line through three of them by less)."""
     n = len(shown)
-    if n < 6:
+    if n < 3:
         return shown[-1]
     ts = np.asarray(shown[-window:])
     j = np.arange(len(ts), dtype=float)
