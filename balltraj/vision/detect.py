@@ -31,6 +31,11 @@ class Candidate:
     angle_rad: float
     area_px: float
     contrast: float
+    # where the candidate is in the scene as the first exposure since the last cut saw it (the view's
+    # motion undone; None: the view has not moved): a ball flies through the scene, a misregistered
+    # edge of a panned or shaken view stays in its place there
+    u_scene: float | None = None
+    v_scene: float | None = None
 
 
 def lens_magnification(camera: Camera, uv) -> np.ndarray:
@@ -111,7 +116,6 @@ class Detector:
         self.k = 0
         self._kernel = np.ones((5, 5), np.uint8)
         self._boxes = (None, None)  # half-resolution blob boxes of the last two frames
-        self._fresh = False  # the noise map is still the first guess
         self.gain = None  # per-row gain (sh, 1) that brought the current frame to the background's level
 
     @property
@@ -185,18 +189,11 @@ class Detector:
             self.bg_small = small.astype(np.float32)
             self.bg_full = gray.astype(np.float32)
             self.dev = np.full(small.shape, 2.0, np.float32)
-            self._fresh = True
             self.thr = np.full(small.shape, max(self.min_threshold, 2.0 * self.k_noise), np.uint8)
             return []
         small = self._level(small)
         bg8 = cv2.convertScaleAbs(self.bg_small)
         diff = cv2.absdiff(small, bg8)
-        if self._fresh:
-            # the first difference sets the noise map: its local median (robust to the ball and to
-            # people, which cover under half of any 15 x 15 window) -- a constant guess would leave a
-            # noisy dim scene flagged nearly everywhere until the running estimate caught up
-            self._fresh = False
-            self.dev = cv2.max(cv2.medianBlur(diff, 15).astype(np.float32), 1.0)
         thr = cv2.max(cv2.convertScaleAbs(self.dev, alpha=self.k_noise), self.min_threshold)
         self.thr = thr
         mask = cv2.compare(diff, thr, cv2.CMP_GT)
@@ -225,6 +222,10 @@ class Detector:
         # and slowly everywhere: places that always differ (edges that shake or resample, flicker)
         # must raise their own threshold even though they are always flagged
         cv2.accumulateWeighted(diff, self.dev, 0.5 * self.alpha)
+        if len(contours) > 20 * self.max_candidates:
+            # a threshold that breaks the view into hundreds of blobs is below the noise (the first
+            # guess in a noisy dim scene): the noise map takes half of this difference at once
+            cv2.accumulateWeighted(diff, self.dev, 0.5)
         cv2.accumulateWeighted(small, self.bg_small, self.alpha, mask=keep)
         if self.k % 4 == 0 and self.T is not None:
             gray = self._to_ref(gray, self.T * [[1, 1, 2], [1, 1, 2]], (self.w, self.h))

@@ -98,6 +98,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             t = exposure_time(shown)
         det.set_view(motion if moved_px > 0 else None)
         cands = det.process(None, (gray, small))
+        if moved_px > 0 and cands:
+            cands = _in_scene(cands, motion)
         trk.update(len(frame_of), t, cands)
         frame_of.append(k)
         times.append(t)
@@ -133,6 +135,18 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         warnings.append(f"the clip runs at {fps_m:.0f} frames/s; 120 or 240 frames/s tracks fast balls far better"
                         " (for slow-motion files stored time-stretched, give --capture-fps)")
     return TrackResult(flights, n, fps_m, info.width, info.height, warnings)
+
+
+def _in_scene(cands, motion):
+    """Candidates with their scene position: the view's motion since the first exposure (half
+    resolution, from the frame guard) undone at full resolution."""
+    M = np.vstack([motion * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
+    inv = np.linalg.inv(M)[:2]
+    out = []
+    for c in cands:
+        us, vs = inv @ [c.u, c.v, 1.0]
+        out.append(replace(c, u_scene=float(us), v_scene=float(vs)))
+    return out
 
 
 def exposure_time(shown: list[float], window: int = 60) -> float:
