@@ -116,7 +116,6 @@ class Detector:
         self.k = 0
         self._kernel = np.ones((5, 5), np.uint8)
         self._boxes = (None, None)  # half-resolution blob boxes of the last two frames
-        self.gain = None  # per-row gain (sh, 1) that brought the current frame to the background's level
 
     @property
     def threshold(self) -> float:
@@ -191,7 +190,6 @@ class Detector:
             self.dev = np.full(small.shape, 2.0, np.float32)
             self.thr = np.full(small.shape, max(self.min_threshold, 2.0 * self.k_noise), np.uint8)
             return []
-        small = self._level(small)
         bg8 = cv2.convertScaleAbs(self.bg_small)
         diff = cv2.absdiff(small, bg8)
         thr = cv2.max(cv2.convertScaleAbs(self.dev, alpha=self.k_noise), self.min_threshold)
@@ -240,21 +238,6 @@ class Detector:
         if len(cands) > self.max_candidates:  # lighting change or camera shake: keep the strongest
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands
-
-    def _level(self, small):
-        """The frame brought to the background's brightness row by row: mains flicker (banded by the
-        rolling shutter) and auto-exposure scale a whole row's luma (a power-law tone curve keeps
-        a gain a gain), which would flag everything. The gain of each row is the median over every
-        4th column of background / frame (the ball and people cover under half of any row), smoothed
-        over a sixteenth of the height; applied when it departs from 1 by over 1 %."""
-        b, f = self.bg_small[:, ::4], small[:, ::4].astype(np.float32)
-        g = np.median(b / np.maximum(f, 1.0), axis=1).astype(np.float32)[:, None]
-        g = cv2.blur(g, (1, max(3, self.sh // 16)))
-        if float(np.abs(g - 1.0).max()) < 0.01:
-            self.gain = None
-            return small
-        self.gain = g
-        return cv2.convertScaleAbs(small.astype(np.float32) * g)
 
     def _away_from(self, cands) -> np.ndarray:
         """Full-resolution mask (reference view) that is 0 around each candidate, 255 elsewhere."""
@@ -307,10 +290,7 @@ class Detector:
         x1, y1 = min(self.w, x + bw + pad), min(self.h, y + bh + pad)
         # soft matte |I - B| - 6 grey levels (more where the local threshold says the place is noisy),
         # clipped at zero (OpenCV calls: cheaper than numpy on tiny windows)
-        win = gray[y0:y1, x0:x1].astype(np.float32)
-        if self.gain is not None:  # the frame's row gains (see _level), at full resolution
-            win *= self.gain[np.clip(np.arange(y0, y1) // 2, 0, self.sh - 1)]
-        signed = cv2.subtract(win, self._bg_window(x0, y0, x1, y1))
+        signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
         diff = np.abs(signed)
         _, wgt = cv2.threshold(cv2.subtract(diff, max(6.0, 0.5 * t_loc - 6.0, floor)), 0.0, 0.0, cv2.THRESH_TOZERO)
         peak = float(cv2.minMaxLoc(wgt)[1])

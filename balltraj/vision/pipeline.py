@@ -71,15 +71,15 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         # the frame is (repeat, cut, view motion) -- work that overlaps the detection of earlier frames
         gray, small = det.prepare(frame)
         kind = guard.check(small)
-        return gray, small, kind, guard.total_motion.copy(), guard.max_moved_px, guard.relearned
+        return gray, small, kind, guard.total_motion.copy(), guard.max_moved_px
 
     times, frame_of, log = [], [], []
     moved_px = 0.0
     n = n_repeat = 0
     cuts: list[float] = []
     shown: list[float] = []  # container times of the exposures since the last cut
-    repeats_here = relearned = 0
-    for k, t, (gray, small, kind, motion, moved_px, relearn) in read_frames(
+    repeats_here = 0
+    for k, t, (gray, small, kind, motion, moved_px) in read_frames(
             path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True, prepare=prepare):
         n += 1
         if kind.kind == "repeat":
@@ -91,8 +91,6 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             det.reset()
             cuts.append(t)
             shown, repeats_here = [], 0
-        if relearn != relearned:  # earlier repeats were counted as exposures: count afresh from here
-            shown, relearned = [], relearn
         shown.append(t)
         if repeats_here and capture_fps is None:
             t = exposure_time(shown)
