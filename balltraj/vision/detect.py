@@ -31,6 +31,11 @@ class Candidate:
     angle_rad: float
     area_px: float
     contrast: float
+    # where the candidate is in the scene as the first exposure since the last cut saw it (the view's
+    # motion undone; None: the view has not moved): a ball flies through the scene, a misregistered
+    # edge of a panned or shaken view stays in its place there
+    u_scene: float | None = None
+    v_scene: float | None = None
 
 
 def lens_magnification(camera: Camera, uv) -> np.ndarray:
@@ -215,6 +220,10 @@ class Detector:
         # and slowly everywhere: places that always differ (edges that shake or resample, flicker)
         # must raise their own threshold even though they are always flagged
         cv2.accumulateWeighted(diff, self.dev, 0.5 * self.alpha)
+        if len(contours) > 20 * self.max_candidates:
+            # a threshold that breaks the view into hundreds of blobs is below the noise (the first
+            # guess in a noisy dim scene): the noise map takes half of this difference at once
+            cv2.accumulateWeighted(diff, self.dev, 0.5)
         cv2.accumulateWeighted(small, self.bg_small, self.alpha, mask=keep)
         if self.k % 4 == 0 and self.T is not None:
             gray = self._to_ref(gray, self.T * [[1, 1, 2], [1, 1, 2]], (self.w, self.h))

@@ -96,6 +96,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             t = exposure_time(shown)
         det.set_view(motion if moved_px > 0 else None)
         cands = det.process(None, (gray, small))
+        if moved_px > 0 and cands:
+            cands = _in_scene(cands, motion)
         trk.update(len(frame_of), t, cands)
         frame_of.append(k)
         times.append(t)
@@ -133,16 +135,28 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     return TrackResult(flights, n, fps_m, info.width, info.height, warnings)
 
 
+def _in_scene(cands, motion):
+    """Candidates with their scene position: the view's motion since the first exposure (half
+    resolution, from the frame guard) undone at full resolution."""
+    M = np.vstack([motion * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
+    inv = np.linalg.inv(M)[:2]
+    out = []
+    for c in cands:
+        us, vs = inv @ [c.u, c.v, 1.0]
+        out.append(replace(c, u_scene=float(us), v_scene=float(vs)))
+    return out
+
+
 def exposure_time(shown: list[float], window: int = 60) -> float:
     """Time [s] of the latest exposure of frame-rate-converted footage (repeated frames): the
     container time of the first frame that shows an exposure lags it by up to a frame interval, at
     random (25 -> 30 frames/s shows 5 exposures in 6 frames, 1 or 2 frames each), which bends the
     path in time by up to a frame's motion. The exposures themselves were taken at an even rate, so
     their times are a straight line in their count: fitted (least squares) to the container times
-    of the last ``window`` exposures and read at the latest. Under 6 exposures the container time
-    is kept."""
+    of the last ``window`` exposures and read at the latest (from the third exposure on: the
+    container times alone err by up to a frame interval, a line through three of them by less)."""
     n = len(shown)
-    if n < 6:
+    if n < 3:
         return shown[-1]
     ts = np.asarray(shown[-window:])
     j = np.arange(len(ts), dtype=float)

@@ -22,6 +22,15 @@ from .detect import Candidate, lens_magnification
 from .trackpoints import _Track, cut_at_false_reacquisition, smooth_part, trim_strays
 
 
+def _scene_travel(tr: _Track) -> float:
+    """How far [px] the track moved in the scene (the view's own motion undone) from its first point
+    to its last; inf where the view did not move (nothing to undo)."""
+    a, b = tr.points[0][2], tr.points[-1][2]
+    if a.u_scene is None or b.u_scene is None:
+        return np.inf
+    return float(np.hypot(b.u_scene - a.u_scene, b.v_scene - a.v_scene))
+
+
 @dataclass(frozen=True)
 class TrackedFlight:
     flight: int
@@ -385,6 +394,8 @@ class Tracker:
             uv = tr.uv()
             if np.linalg.norm(uv[-1] - uv[0]) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
                 continue
+            if _scene_travel(tr) < 0.05 * np.hypot(self.w, self.h):
+                continue  # moved only with the view (a misregistered edge of a panned view): in place in the scene
             if not smooth_enough(tr):  # a thrown ball follows a smooth curve in the image; people and flags do not
                 # (but a long throw's track may have begun on the hand before release: kept without
                 # those first points if the rest is smooth and still crosses a quarter of the view)

@@ -14,6 +14,7 @@ from balltraj.vision.clip import read_frames
 from balltraj.vision.detect import Candidate, lens_magnification
 from balltraj.vision.frames import FrameGuard
 from balltraj.vision.pipeline import slow_motion_hint, track_clip
+from balltraj.vision.track import _scene_travel
 from balltraj.vision.trackpoints import _Track
 
 LOB_CAM = Cam((6.0, -9.0, 1.5), (6.0, 0.0, 2.2), 700, (480, 270))
@@ -190,3 +191,42 @@ def test_slow_motion_message_names_the_capture_rate():
     assert msg is not None and "--capture-fps" in msg and "240" in msg and "8x" in msg
     assert slow_motion_hint(30.0, None, [9.5]) is None  # a real-time clip
     assert slow_motion_hint(30.0, 240.0, [9.81 / 64]) is None  # already re-timed
+
+
+def test_a_long_pan_is_followed_past_its_key_frames(tmp_path):
+    # a steady pan of 300 px over 1.2 s at 30 frames/s: the corners of a key frame leave the view or
+    # stop fitting one motion long before the pan ends; the view's motion must carry on from where
+    # it was (not snap back to the key frame's place)
+    path = tmp_path / "pan.mp4"
+    truth = render_shot(Shot(LOB_CAM, BASEBALL, LOB, duration_s=1.2, capture_fps=30, exposure_s=1 / 1000,
+                             shake_px=0.3, drift_px_s=(250.0, -20.0), seed=17), path)
+    guard = FrameGuard()
+    errs = []
+    s0 = np.array(truth[0]["view_shift"])
+    for k, _, g in read_frames(path, grey=True):
+        guard.check(cv2.resize(g, (g.shape[1] // 2, g.shape[0] // 2), interpolation=cv2.INTER_AREA))
+        errs.append(np.hypot(*(2 * guard.total_motion[:, 2] - (np.array(truth[k]["view_shift"]) - s0))))
+    moved = np.hypot(*(np.array(truth[-1]["view_shift"]) - s0))
+    # Source: the renderer's own record of the view's shift in each frame
+    assert moved > 250
+    # (measured: median 2.5 px, 5.8 px at the end of the 290-px pan; a view snapped back to its key
+    # frame's place is off by about as far as the pan went, 150-270 px)
+    assert np.median(errs) < 5.0 and errs[-1] < 0.05 * moved, (np.median(errs), errs[-1], moved)
+
+
+def test_a_track_that_stays_in_place_in_the_scene_is_not_a_flight():
+    # an edge of a panned view, misregistered: it moves across the frame with the view but stays in
+    # one place in the scene (its scene position constant); the same motion with a scene position
+    # that moves too is kept by this test (an invariant of the scene-travel measure)
+    def track(scene_moves):
+        pts = []
+        for i in range(12):
+            u, v = 600.0 - 10 * i, 300.0 + 4 * i
+            us, vs = (u, v) if scene_moves else (640.0, 280.0)
+            pts.append((i, i / 30, Candidate(u, v, 5.0, 2.0, 0.0, 78.0, 60.0, u_scene=us, v_scene=vs)))
+        return _Track.of(pts)
+
+    assert _scene_travel(track(False)) < 1e-9
+    assert abs(_scene_travel(track(True)) - np.hypot(110, 44)) < 1e-6
+    still_view = _Track.of([(i, i / 30, Candidate(600.0 - 10 * i, 300.0, 5.0, 2.0, 0.0, 78.0, 60.0)) for i in range(5)])
+    assert _scene_travel(still_view) == np.inf  # the view never moved: nothing to undo
