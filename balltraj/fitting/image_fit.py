@@ -286,10 +286,17 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
 
     climb_opts = options
     if options.aero_model == "auto" and not options.image_ladder:
-        climb_opts = replace(options, aero_model="catalogue")
+        # held on the catalogue rung: the drag law's own uncertainty is marginalised instead (.nuisance)
+        climb_opts = replace(options, aero_model="catalogue", drag_law_priors=True)
+    solve_kw = dict(min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR, tight=True)
+
+    def compensate(prob, res, nuisance):
+        return _drag_law_secant(prob, res, nuisance, lambda m: _ImageProblem(
+            m, t, cam_idx, uv, radius, cams, prob.sigma, prob.basis, options, fit_offsets, prob.rung), options, solve_kw)
+
     c = climb(new_problem, res0.p, climb_opts, solve=_Done(), estimate_sigma=False, noise_sigma=noise_sigma,
-              noise_source=noise_source, cols=ncol, data_cols=2,
-              solve_kw=dict(min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR, tight=True))
+              noise_source=noise_source, cols=ncol, data_cols=2, solve_kw=solve_kw,
+              compensate=compensate if climb_opts.drag_law_priors else None)
     if climb_opts is not options:
         c.model_choice["pinned"] = False
         c.model_choice["reason"] = ("image fit: the catalogue rung; in pixels the ladder is climbed only when asked "
@@ -322,6 +329,57 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
         time_offset_sigma_s=offset_sigma, launch_depth_sigma_m=depth_sigma, radius_px=radius,
         radius_scale=float(prob.radius_scale(p[None])[0]), radius_bias_px=float(prob.radius_bias(p[None])[0]),
         **common_fields(prob, res, c, prob.basis, t, options))
+
+
+def pinned_drag_model(model: FlightModel, values: dict, launch_speed: float) -> FlightModel:
+    """The catalogue model with its drag law moved by the drag-law nuisances ``values`` (name -> value of
+    :data:`.nuisance.DRAG_LAW_SIGMAS`; absent: 0), as :func:`.ladder.batch_model` would move it: C_D =
+    e^s C_D,cat(e^c Re) (Re / Re_0)^a with Re_0 at the launch speed."""
+    re0 = model.air_density * model.diameter_m / model.air_viscosity * float(launch_speed)
+    params = {"base": model.drag_model, "base_params": dict(model.drag_params),
+              "scale": math.exp(values.get("log_drag_scale", 0.0)), "re_exponent": values.get("drag_re_exponent", 0.0),
+              "reference_re": re0, "spin_slope": 0.0, "re_shift": math.exp(values.get("log_re_shift", 0.0)),
+              "offset": 0.0}
+    return replace(model, drag_model="modified", drag_params=params)
+
+
+def _drag_law_secant(prob, res, nuisance, problem_of, options, solve_kw):
+    """The compensation of the drag-law nuisances by refits, not by the tangent at the catalogue law.
+
+    A drag law differs from the catalogue's by far more than its slope there tells: a drag crisis the
+    flight does not reach under the catalogue law (tangent nearly 0) is reached when it sits 15 % higher
+    in Re. So for each drag-law nuisance b_j (prior sigma s_j) the rung is refitted with the law moved to
+    b_j = +s_j and -s_j, and A[:, j] = (theta(+s_j) - theta(-s_j)) / (2 s_j): a secant over the prior's
+    one-sigma range (the central-difference form of the compensation of :mod:`.nuisance`). A refit that
+    does not converge keeps the tangent column."""
+    from .flight_fit import solve
+    from .nuisance import DRAG_LAW_SIGMAS
+
+    if tuple(prob.rung):
+        return nuisance
+    names = nuisance["names"]
+    A = np.array(nuisance["compensation"], float)
+    cont = replace(options, max_nfev=min(options.max_nfev, 120))
+    speed = float(np.linalg.norm(res.p[3:6]))
+    for j, n in enumerate(names):
+        if n not in DRAG_LAW_SIGMAS:
+            continue
+        s = float(nuisance["prior_sigma"][j])
+        sol = []
+        for sign in (1.0, -1.0):
+            pr = problem_of(pinned_drag_model(prob.model, {n: sign * s}, speed))
+            pr.sigma, pr.mask, pr.back_s = prob.sigma.copy(), prob.mask.copy(), prob.back_s
+            pr._first_xyz = getattr(prob, "_first_xyz", None)
+            try:
+                r = solve(pr, res.p, cont, False, robust=False, **solve_kw)
+            except BallTrajError:
+                break
+            if not np.all(np.isfinite(r.p)):
+                break
+            sol.append(r.p)
+        if len(sol) == 2:
+            A[:, j] = (sol[0] - sol[1]) / (2.0 * s)
+    return {**nuisance, "compensation": A, "compensation_method": "secant refits over the drag-law priors"}
 
 
 def _robust_cost(prob: "_ImageProblem", p) -> float:
