@@ -55,8 +55,6 @@ SPIN_DRAG_SLOPE_SIGMA = 0.25
 # - drag_re_exponent, sigma 0.1: a residual local slope d ln C_D / d ln Re of the law over the flight's
 #   Re range (the ladder's own typical value; common practice).
 DRAG_LAW_SIGMAS = {"log_drag_scale": 0.2, "log_re_shift": 0.15, "drag_re_exponent": 0.1}
-# the nuisances held at their prior (A = 0) on a rung whose drag cannot vary with speed (see marginalise)
-_HELD_WITHOUT_SPEED_DRAG = ("drag_spin_split", "wind_x", "wind_y")
 
 
 def nuisance_priors(rung: tuple, options) -> dict:
@@ -117,7 +115,7 @@ def marginalise(new_problem, prob, res, priors: dict) -> dict:
     # prior stays, and the other unknowns are held (A = 0): b then moves the no-spin reference's drag
     # by b S0, and the spinning path only by b (S - S0), as the rung assumes its drag law. The drag-law
     # nuisances (DRAG_LAW_SIGMAS) are the speed dependence itself: always marginalised with the data
-    held = np.array([("drag_re_exponent" not in prob.rung) and n in _HELD_WITHOUT_SPEED_DRAG for n in names])
+    held = np.array([("drag_re_exponent" not in prob.rung) and n not in DRAG_LAW_SIGMAS for n in names])
     free = ~held
     cov, mean = np.diag(sig0**2), np.zeros(m)
     if free.any():
