@@ -29,6 +29,7 @@ PIXEL_SIGMA_FLOOR = 0.15  # px: centroids are not better than this (compression,
 RADIUS_BIAS_SIGMA_PX = 0.3  # and a common additive bias (edge threshold, blur): prior 0.3 px
 RADIUS_SCALE_SIGMA = 0.06  # a common scale error of all measured radii (blur, edge threshold): prior 6 %
 RADIUS_NOISE_FLOOR_PX = 0.15  # the per-point radius noise, estimated from the fit's radius residuals, is floored here
+SECANT_NUISANCES = ("log_re_shift",)  # drag-law nuisances compensated by refits (see _drag_law_secant)
 _CHI3_MEDIAN, _CHI2_MEDIAN = 1.5382, math.sqrt(2.0 * math.log(2.0))  # medians of 3D / 2D unit-Gaussian norms
 
 
@@ -346,12 +347,13 @@ def pinned_drag_model(model: FlightModel, values: dict, launch_speed: float) -> 
 def _drag_law_secant(prob, res, nuisance, problem_of, options, solve_kw):
     """The compensation of the drag-law nuisances by refits, not by the tangent at the catalogue law.
 
-    A drag law differs from the catalogue's by far more than its slope there tells: a drag crisis the
+    A drag crisis moves the flight by far more than its slope at the catalogue law tells: a crisis the
     flight does not reach under the catalogue law (tangent nearly 0) is reached when it sits 15 % higher
-    in Re. So for each drag-law nuisance b_j (prior sigma s_j) the rung is refitted with the law moved to
-    b_j = +s_j and -s_j, and A[:, j] = (theta(+s_j) - theta(-s_j)) / (2 s_j): a secant over the prior's
-    one-sigma range (the central-difference form of the compensation of :mod:`.nuisance`). A refit that
-    does not converge keeps the tangent column."""
+    in Re. So for the crisis position b_j (``log_re_shift``, prior sigma s_j) the rung is refitted with
+    the law moved to b_j = +s_j and -s_j, and A[:, j] = (theta(+s_j) - theta(-s_j)) / (2 s_j): a secant
+    over the prior's one-sigma range (the central-difference form of the compensation of
+    :mod:`.nuisance`). The level and the speed slope of the drag act smoothly and keep the tangent, as
+    does a column whose refit fails."""
     from .flight_fit import solve
     from .nuisance import DRAG_LAW_SIGMAS
 
@@ -362,7 +364,7 @@ def _drag_law_secant(prob, res, nuisance, problem_of, options, solve_kw):
     cont = replace(options, max_nfev=min(options.max_nfev, 120))
     speed = float(np.linalg.norm(res.p[3:6]))
     for j, n in enumerate(names):
-        if n not in DRAG_LAW_SIGMAS:
+        if n not in DRAG_LAW_SIGMAS or n not in SECANT_NUISANCES:
             continue
         s = float(nuisance["prior_sigma"][j])
         sol = []
