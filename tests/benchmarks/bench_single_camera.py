@@ -223,6 +223,7 @@ def run(n):
     rng = np.random.default_rng(20261202)
     rows = {}
     measured = detector_radius_errors()
+    rng_det = np.random.default_rng(20261203)  # its own stream: the other rows keep their draws with or without it
     tmp = Path(tempfile.mkdtemp(prefix="bench_single_"))
     t_start = time.perf_counter()
     for k in range(n):
@@ -271,7 +272,7 @@ def run(n):
             t, uv, r, _ = observations(cam, sol, R, rng, scale_sigma=RADIUS_SCALE_SIGMA, bias_sigma_px=RADIUS_BIAS_SIGMA_PX)
             e["prior-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
             if measured is not None:  # radius errors as the detector makes them on independently rendered balls
-                t, uv, r, _ = observations_detector_sized(cam, sol, R, rng, measured)
+                t, uv, r, _ = observations_detector_sized(cam, sol, R, rng_det, measured)
                 e["detector-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
                 if found.ball is not None:
                     a = choose_anchor(resting=found.ball.anchor)
