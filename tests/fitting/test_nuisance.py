@@ -97,6 +97,8 @@ def test_drag_law_nuisances_are_marginalised_on_the_catalogue_rung():
     assert np.allclose(nu["compensation"][:, 1], -np.linalg.lstsq(Jt, J[:, k + 1], rcond=None)[0])
     assert nu["covariance"][0, 0] == pytest.approx(s_split**2) and not np.any(nu["compensation"][:, 0])
     assert nu["covariance"][0, 1] == 0.0 and nu["mean"][0] == 0.0
+    # the drag law keeps the catalogue's value (its prior mean) whatever the track's pull: only its spread counts
+    assert nu["used_mean"][1] == 0.0
     # the drag-law priors join only when asked (the image fit held on the catalogue rung), never in 3-D fits
     assert set(nuisance_priors((), FitOptions())) == {"drag_spin_split"}
     asked = nuisance_priors(("log_drag_scale",), FitOptions(drag_law_priors=True))
