@@ -20,6 +20,7 @@ from ..camera.model import Camera
 from ..camera.triangulate import triangulate_observations
 from ..errors import BallTrajError, FitError
 from ..physics.flight import FlightModel
+from .drag_law import drag_law_secant
 from .flight_fit import FitOptions, _Problem, _start, common_fields, solve
 from .results import ImageFit
 
@@ -29,7 +30,6 @@ PIXEL_SIGMA_FLOOR = 0.15  # px: centroids are not better than this (compression,
 RADIUS_BIAS_SIGMA_PX = 0.3  # and a common additive bias (edge threshold, blur): prior 0.3 px
 RADIUS_SCALE_SIGMA = 0.06  # a common scale error of all measured radii (blur, edge threshold): prior 6 %
 RADIUS_NOISE_FLOOR_PX = 0.15  # the per-point radius noise, estimated from the fit's radius residuals, is floored here
-SECANT_NUISANCES = ("log_re_shift",)  # drag-law nuisances compensated by refits (see _drag_law_secant)
 _CHI3_MEDIAN, _CHI2_MEDIAN = 1.5382, math.sqrt(2.0 * math.log(2.0))  # medians of 3D / 2D unit-Gaussian norms
 
 
@@ -292,7 +292,7 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
     solve_kw = dict(min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR, tight=True)
 
     def compensate(prob, res, nuisance):
-        return _drag_law_secant(prob, res, nuisance, lambda m: _ImageProblem(
+        return drag_law_secant(prob, res, nuisance, lambda m: _ImageProblem(
             m, t, cam_idx, uv, radius, cams, prob.sigma, prob.basis, options, fit_offsets, prob.rung), options, solve_kw)
 
     c = climb(new_problem, res0.p, climb_opts, solve=_Done(), estimate_sigma=False, noise_sigma=noise_sigma,
@@ -330,58 +330,6 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
         time_offset_sigma_s=offset_sigma, launch_depth_sigma_m=depth_sigma, radius_px=radius,
         radius_scale=float(prob.radius_scale(p[None])[0]), radius_bias_px=float(prob.radius_bias(p[None])[0]),
         **common_fields(prob, res, c, prob.basis, t, options))
-
-
-def pinned_drag_model(model: FlightModel, values: dict, launch_speed: float) -> FlightModel:
-    """The catalogue model with its drag law moved by the drag-law nuisances ``values`` (name -> value of
-    :data:`.nuisance.DRAG_LAW_SIGMAS`; absent: 0), as :func:`.ladder.batch_model` would move it: C_D =
-    e^s C_D,cat(e^c Re) (Re / Re_0)^a with Re_0 at the launch speed."""
-    re0 = model.air_density * model.diameter_m / model.air_viscosity * float(launch_speed)
-    params = {"base": model.drag_model, "base_params": dict(model.drag_params),
-              "scale": math.exp(values.get("log_drag_scale", 0.0)), "re_exponent": values.get("drag_re_exponent", 0.0),
-              "reference_re": re0, "spin_slope": 0.0, "re_shift": math.exp(values.get("log_re_shift", 0.0)),
-              "offset": 0.0}
-    return replace(model, drag_model="modified", drag_params=params)
-
-
-def _drag_law_secant(prob, res, nuisance, problem_of, options, solve_kw):
-    """The compensation of the drag-law nuisances by refits, not by the tangent at the catalogue law.
-
-    A drag crisis moves the flight by far more than its slope at the catalogue law tells: a crisis the
-    flight does not reach under the catalogue law (tangent nearly 0) is reached when it sits 15 % higher
-    in Re. So for the crisis position b_j (``log_re_shift``, prior sigma s_j) the rung is refitted with
-    the law moved to b_j = +s_j and -s_j, and A[:, j] = (theta(+s_j) - theta(-s_j)) / (2 s_j): a secant
-    over the prior's one-sigma range (the central-difference form of the compensation of
-    :mod:`.nuisance`). The level and the speed slope of the drag act smoothly and keep the tangent, as
-    does a column whose refit fails."""
-    from .flight_fit import solve
-    from .nuisance import DRAG_LAW_SIGMAS
-
-    if tuple(prob.rung):
-        return nuisance
-    names = nuisance["names"]
-    A = np.array(nuisance["compensation"], float)
-    cont = replace(options, max_nfev=min(options.max_nfev, 120))
-    speed = float(np.linalg.norm(res.p[3:6]))
-    for j, n in enumerate(names):
-        if n not in DRAG_LAW_SIGMAS or n not in SECANT_NUISANCES:
-            continue
-        s = float(nuisance["prior_sigma"][j])
-        sol = []
-        for sign in (1.0, -1.0):
-            pr = problem_of(pinned_drag_model(prob.model, {n: sign * s}, speed))
-            pr.sigma, pr.mask, pr.back_s = prob.sigma.copy(), prob.mask.copy(), prob.back_s
-            pr._first_xyz = getattr(prob, "_first_xyz", None)
-            try:
-                r = solve(pr, res.p, cont, False, robust=False, **solve_kw)
-            except BallTrajError:
-                break
-            if not np.all(np.isfinite(r.p)):
-                break
-            sol.append(r.p)
-        if len(sol) == 2:
-            A[:, j] = (sol[0] - sol[1]) / (2.0 * s)
-    return {**nuisance, "compensation": A, "compensation_method": "secant refits over the drag-law priors"}
 
 
 def _robust_cost(prob: "_ImageProblem", p) -> float:

@@ -102,7 +102,7 @@ def test_observations_without_camera_file(tmp_path):
 def test_pinned_drag_model_moves_the_catalogue_law_as_the_ladder_does():
     # invariant: C_D = e^s C_D,cat(e^c Re) (Re / Re_0)^a (balltraj.physics.aero_published.drag_modified);
     # all zero gives the catalogue law back, at every Re (the soccer ball's catalogue law has a drag crisis)
-    from balltraj.fitting.image_fit import pinned_drag_model
+    from balltraj.fitting.drag_law import pinned_drag_model
     from balltraj.physics.air import air_conditions
     from balltraj.physics.balls import get_ball
     from balltraj.physics.flight import FlightModel
