@@ -64,12 +64,14 @@ def _data_residuals(prob, res, cols: int, data_cols: int):
 
 
 def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma: float, noise_source: str,
-          cols: int, data_cols: int, solve_kw: dict) -> Climbed:
+          cols: int, data_cols: int, solve_kw: dict, compensate=None) -> Climbed:
     """Solve the rungs and choose one.
 
     new_problem(rung_unknowns) -> a fresh problem; solve(prob, p0, options, estimate_sigma, ...)
     is :func:`.flight_fit.solve`; cols = residual columns per point, data_cols = how many of them
     are the measured coordinates (metres or pixels); noise_sigma = the model-free noise (same unit).
+    compensate(prob, res, nuisance) -> nuisance, optional: replaces the linearised compensation of some
+    nuisances (the image fit's secant over the drag-law priors) before they are joined.
     """
 
 
@@ -166,6 +168,8 @@ def climb(new_problem, p0, options, *, solve, estimate_sigma: bool, noise_sigma:
     }
     choice["reason"] = _reason(choice, done, target, crit_name)
     nuisance = marginalise(new_problem, prob, res, nuisance_priors(tuple(prob.rung), options))
+    if nuisance and compensate is not None:
+        nuisance = compensate(prob, res, nuisance)
     if nuisance:
         prob, p_aug, cov = augment(prob, res, cov, nuisance)
         res = _replace(res, p=p_aug)

@@ -20,6 +20,7 @@ from ..camera.model import Camera
 from ..camera.triangulate import triangulate_observations
 from ..errors import BallTrajError, FitError
 from ..physics.flight import FlightModel
+from .drag_law import drag_law_secant
 from .flight_fit import FitOptions, _Problem, _start, common_fields, solve
 from .results import ImageFit
 
@@ -286,10 +287,17 @@ def fit_flight_image(model: FlightModel, t, camera_names, uv, cameras: list[Came
 
     climb_opts = options
     if options.aero_model == "auto" and not options.image_ladder:
-        climb_opts = replace(options, aero_model="catalogue")
+        # held on the catalogue rung: the drag law's own uncertainty is marginalised instead (.nuisance)
+        climb_opts = replace(options, aero_model="catalogue", drag_law_priors=True)
+    solve_kw = dict(min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR, tight=True)
+
+    def compensate(prob, res, nuisance):
+        return drag_law_secant(prob, res, nuisance, lambda m: _ImageProblem(
+            m, t, cam_idx, uv, radius, cams, prob.sigma, prob.basis, options, fit_offsets, prob.rung), options, solve_kw)
+
     c = climb(new_problem, res0.p, climb_opts, solve=_Done(), estimate_sigma=False, noise_sigma=noise_sigma,
-              noise_source=noise_source, cols=ncol, data_cols=2,
-              solve_kw=dict(min_points=6, sigma_floor=PIXEL_SIGMA_FLOOR, tight=True))
+              noise_source=noise_source, cols=ncol, data_cols=2, solve_kw=solve_kw,
+              compensate=compensate if climb_opts.drag_law_priors else None)
     if climb_opts is not options:
         c.model_choice["pinned"] = False
         c.model_choice["reason"] = ("image fit: the catalogue rung; in pixels the ladder is climbed only when asked "

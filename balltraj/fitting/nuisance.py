@@ -43,16 +43,33 @@ import numpy as np
 # within.
 SPIN_DRAG_SLOPE_SIGMA = 0.25
 
+# Priors on the drag law itself, for fits that hold the catalogue rung without climbing the ladder (the
+# image fit from one camera: there the depth trades off against the aerodynamics, so the ladder is not
+# climbed, and a drag law other than the catalogue's moves the depth, i.e. the deflection along the
+# line of sight). Mean 0 (the catalogue law), marginalised with the track's own hold on them:
+# - log_drag_scale, sigma 0.2 (a factor e^0.2 = 1.22): the spread of the level of C_D between balls of
+#   one game, e.g. supercritical soccer balls 0.15-0.25 (Asai et al. 2007; Goff & Carre 2009, from
+#   memory), tennis balls 0.51-0.6 (Cross & Lindsey 2014; Stepanek 1988);
+# - log_re_shift, sigma 0.15: where the drag crisis falls, Re 2.2e5-3.0e5 between soccer ball designs
+#   (Asai et al. 2007, abstract), a spread of ln(3.0/2.2) = 0.31, taken as two sigma;
+# - drag_re_exponent, sigma 0.1: a residual local slope d ln C_D / d ln Re of the law over the flight's
+#   Re range (the ladder's own typical value; common practice).
+DRAG_LAW_SIGMAS = {"log_drag_scale": 0.2, "log_re_shift": 0.15, "drag_re_exponent": 0.1}
+
 
 def nuisance_priors(rung: tuple, options) -> dict:
     """Nuisance unknowns (name -> prior sigma) of a fit whose rung fits the unknowns ``rung``.
 
     The spin-drag slope always (unless the rung fits it, or the older single-model options are
     used); the horizontal wind components when the user gave a wind uncertainty
-    (``options.wind_sigma_mps`` > 0) and the rung does not fit the wind."""
+    (``options.wind_sigma_mps`` > 0) and the rung does not fit the wind; the drag law's own
+    (:data:`DRAG_LAW_SIGMAS`) when ``options.drag_law_priors`` (a fit held on a rung it did not choose)
+    and the rung does not fit them."""
     if options.legacy:
         return {}
     out = {}
+    if getattr(options, "drag_law_priors", False):
+        out.update({n: s for n, s in DRAG_LAW_SIGMAS.items() if n not in rung})
     if "drag_spin_slope" not in rung:
         out["drag_spin_split"] = SPIN_DRAG_SLOPE_SIGMA
     ws = float(getattr(options, "wind_sigma_mps", 0.0) or 0.0)
@@ -93,19 +110,32 @@ def marginalise(new_problem, prob, res, priors: dict) -> dict:
     Jp = Jb + Jt @ A
     s2 = max(float(res.s2), 1e-300)
     data_sigma = np.sqrt(np.clip(np.diag(np.linalg.pinv(Jp.T @ Jp / s2)), 0, None))
-    if "drag_re_exponent" in prob.rung:
-        cov = np.linalg.inv(np.diag(1.0 / sig0**2) + Jp.T @ Jp / s2)
-        mean = -cov @ (Jp.T @ r) / s2
+    # a rung whose drag cannot vary with speed would let b stand in for the speed dependence it lacks
+    # (b (S - S0) changes the drag as the ball slows): the track's hold on b is then an artefact. The
+    # prior stays, and the other unknowns are held (A = 0): b then moves the no-spin reference's drag
+    # by b S0, and the spinning path only by b (S - S0), as the rung assumes its drag law. The drag-law
+    # nuisances (DRAG_LAW_SIGMAS) are the speed dependence itself: always marginalised with the data
+    held = np.array([("drag_re_exponent" not in prob.rung) and n not in DRAG_LAW_SIGMAS for n in names])
+    free = ~held
+    cov, mean = np.diag(sig0**2), np.zeros(m)
+    if free.any():
+        A_f = -np.linalg.lstsq(Jt, Jb[:, free], rcond=None)[0]
+        Jp_f = Jb[:, free] + Jt @ A_f
+        c_f = np.linalg.inv(np.diag(1.0 / sig0[free] ** 2) + Jp_f.T @ Jp_f / s2)
+        cov[np.ix_(free, free)] = c_f
+        mean[free] = -c_f @ (Jp_f.T @ r) / s2
+        A = np.zeros_like(A)
+        A[:, free] = A_f
     else:
-        # a rung whose drag cannot vary with speed would let b stand in for the speed dependence it lacks
-        # (b (S - S0) changes the drag as the ball slows): the track's hold on b is then an artefact. The
-        # prior stays, and the other unknowns are held (A = 0): b then moves the no-spin reference's drag
-        # by b S0, and the spinning path only by b (S - S0), as the rung assumes its drag law
-        cov, mean, A = np.diag(sig0**2), np.zeros(m), np.zeros_like(A)
+        A = np.zeros_like(A)
     # the posterior mean is used only where the track tells more than the prior (data sigma below the
     # prior's); elsewhere the pull comes from a direction the track barely sees, where whatever the rung
     # misses leaks in (on a crosswind drive its wind means even had the wrong sign), so the prior mean stays
-    used = np.where(data_sigma < sig0, mean, 0.0)
+    # The drag-law nuisances keep their prior mean (the catalogue law) too: they stand for the rungs the
+    # image fit does not climb, because from one camera the depth trades off against the aerodynamics;
+    # their posterior mean would re-open that trade-off (a 2.6 % slower launch on the behind sample clip)
+    law = np.array([n in DRAG_LAW_SIGMAS for n in names])
+    used = np.where((data_sigma < sig0) & ~law, mean, 0.0)
     return {"names": names, "prior_sigma": sig0, "compensation": A, "covariance": cov, "mean": mean,
             "used_mean": used, "data_sigma": data_sigma, "problem": aug}
 

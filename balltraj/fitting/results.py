@@ -33,6 +33,9 @@ class FitOptions:
     image_ladder : let "auto" climb the ladder in image fits too (off by default: from one camera
         the depth trades off against the aerodynamics, and richer rungs soak up depth error; the
         image fit then stays on the catalogue rung unless a rung is pinned)
+    drag_law_priors : marginalise priors on the drag law (level, crisis position, speed slope:
+        :data:`.nuisance.DRAG_LAW_SIGMAS`) into the uncertainties; set by the image fit when it holds
+        the catalogue rung without climbing the ladder
     """
 
     fit_drag: bool = False
@@ -47,6 +50,7 @@ class FitOptions:
     wind_mps: tuple[float, float, float] | None = None
     image_ladder: bool = False
     criterion: str = "aicc"  # or "bic"; AICc suits a model set that never holds the true law (Burnham & Anderson 2002)
+    drag_law_priors: bool = False
     wind_sigma_mps: float = 0.0  # how well the user knows each horizontal wind component [m/s]; 0: as given (still air)
 
     @property

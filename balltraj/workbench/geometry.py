@@ -7,7 +7,7 @@ Pure computation (numpy, and :func:`balltraj.camera.calibrate.calibrate_scene` f
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -64,11 +64,11 @@ def landmark_world(template: str, names) -> np.ndarray:
 def turn_camera(cam: Camera, F: np.ndarray) -> Camera:
     """The same camera with the world re-expressed as X' = F X (F a rotation, shape (3, 3)).
 
-    x_cam = R X + t = (R F^T) X' + t, so R' = R F^T and t' = t.
+    x_cam = R X + t = (R F^T) X' + t, so R' = R F^T and t' = t. Everything else (lens, shutter, time
+    offset, the template and world frame it was placed on) is kept; the caller re-words the frame.
     """
     R2 = cam.R @ np.asarray(F, float).T
-    return Camera(cam.name, cam.image_size, cam.K, cam.dist, rotation_vector(R2), cam.tvec,
-                  readout_s=cam.readout_s, time_offset_s=cam.time_offset_s)
+    return replace(cam, rvec=rotation_vector(R2))
 
 
 def calibrate_clicks(template: str, clicks: dict, image_size, name: str = "camera",
@@ -101,6 +101,9 @@ def calibrate_clicks(template: str, clicks: dict, image_size, name: str = "camer
         cam = turn_camera(cam, HALF_TURN)
         frame = (frame + "; then turned half a turn about the upright axis through the origin so play runs along +x "
                  "(x = -original x, y = -original y)")
+    # the camera file's ``template`` key: the template and the frame the pose is in (a turned frame differs
+    # from the template's own, so its launch zones are not used on it: balltraj.pipeline_depth.template_zone)
+    cam = replace(cam, template=template, world_frame=frame)
     return ClickCalibration(cam, res.errors_px, res.rms_px, frame, turned)
 
 

@@ -138,6 +138,27 @@ def kick(rng, ball):
     return np.concatenate([rest, v]), spin
 
 
+def detector_radius_errors():
+    """Per-clip (scale, per-frame noise [px]) of the detector's apparent radii, measured on independently
+    rendered balls (``bench_single_camera.py detector-radius``, tests/scene_realism.py); None when the file
+    has not been made."""
+    import json
+    p = Path(__file__).resolve().parent / "detector_radius_errors.json"
+    if not p.is_file():
+        return None
+    rows = [c for c in json.loads(p.read_text())["clips"] if "scale" in c]
+    return np.array([[c["scale"], c["noise_px"]] for c in rows]) if rows else None
+
+
+def observations_detector_sized(cam, sol, R, rng, measured):
+    """Observations whose radius errors are one measured clip's (drawn at random): its scale error and
+    its per-frame scatter, not an invented distribution."""
+    scale, noise = measured[rng.integers(len(measured))]
+    t, uv, _, X = observations(cam, sol, R, rng, scale_sigma=0.0)
+    r = cam.focal_px * R / cam.depth(X) * (1 + scale) + rng.normal(0, noise, len(t))
+    return t, uv, r, X
+
+
 def observations(cam, sol, R, rng, scale_sigma=0.03, bias_sigma_px=0.0):
     t = np.arange(T_LAUNCH + 2 / FPS, T_LAUNCH + 2.5, 1 / FPS)
     X = sol(t)[:3].T
@@ -201,6 +222,8 @@ def run(n):
     R = model.radius_m
     rng = np.random.default_rng(20261202)
     rows = {}
+    measured = detector_radius_errors()
+    rng_det = np.random.default_rng(20261203)  # its own stream: the other rows keep their draws with or without it
     tmp = Path(tempfile.mkdtemp(prefix="bench_single_"))
     t_start = time.perf_counter()
     for k in range(n):
@@ -209,7 +232,7 @@ def run(n):
         sol = sols["same"]
         for label, cam in cameras(rng).items():
             e = rows.setdefault(label, {"rest": [], "none": [], "other rest": [], "other none": [], "prior-sized": [],
-                                        "found": 0, "why": []})
+                                        "detector-sized": [], "detector-sized rest": [], "found": 0, "why": []})
             rest = s0[:3]
 
             def pos(tt, sol=sol, rest=rest):
@@ -248,6 +271,13 @@ def run(n):
             # self-consistency of the one-sigma machinery: radius errors drawn as large as the fit's own priors
             t, uv, r, _ = observations(cam, sol, R, rng, scale_sigma=RADIUS_SCALE_SIGMA, bias_sigma_px=RADIUS_BIAS_SIGMA_PX)
             e["prior-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
+            if measured is not None:  # radius errors as the detector makes them on independently rendered balls
+                t, uv, r, _ = observations_detector_sized(cam, sol, R, rng_det, measured)
+                e["detector-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
+                if found.ball is not None:
+                    a = choose_anchor(resting=found.ball.anchor)
+                    e["detector-sized rest"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions(
+                        start_near=a.start_near_m, start_sigma=a.start_sigma_m))[0])
         print(f"kick {k + 1}/{n} done, {time.perf_counter() - t_start:.0f} s", flush=True)
     return rows
 
@@ -380,6 +410,10 @@ def main():
     if len(sys.argv) > 1 and sys.argv[1] == "tracked":
         main_tracked(int(sys.argv[2]) if len(sys.argv) > 2 else 2)
         return
+    if len(sys.argv) > 1 and sys.argv[1] == "detector-radius":
+        from bench_single_camera_realism import measure_radius_errors
+        measure_radius_errors(int(sys.argv[2]) if len(sys.argv) > 2 else 4)
+        return
     if len(sys.argv) > 1 and sys.argv[1] == "realism":
         from bench_single_camera_realism import main_realism
         main_realism(int(sys.argv[2]) if len(sys.argv) > 2 else 2)
@@ -414,6 +448,20 @@ def main():
               f"pooled one-sigma coverage {100 * np.mean(zc <= 1):.0f} % of {zc.size} (speed / sideways / up-down "
               + " / ".join(f"{100 * np.mean(zc[:, i] <= 1):.0f}" for i in range(3))
               + f" %; spin {100 * np.mean(zcs <= 1):.0f} %, launch depth {100 * np.mean(zcd <= 1):.0f} %)."]
+    measured = detector_radius_errors()
+    if measured is not None:
+        lines += ["", f"Radius errors as the detector makes them: each flight's apparent radii get the scale error and "
+                  f"per-frame scatter of one of {len(measured)} clips of independently rendered balls "
+                  "(tests/scene_realism.py penalty kicks tracked by balltraj.vision; scale "
+                  f"{100 * measured[:, 0].min():+.0f} to {100 * measured[:, 0].max():+.0f} %, scatter "
+                  f"{measured[:, 1].min():.2f}-{measured[:, 1].max():.2f} px; tests/benchmarks/"
+                  "detector_radius_errors.json, made by `bench_single_camera.py detector-radius 4`).", "", *HEAD]
+        lines += _accuracy_rows(rows, (("detector-sized rest", "ball at rest (ground contact)"),
+                                       ("detector-sized", "nothing (apparent size)")), n)
+        zd = [np.abs(np.array([x["z"] for x in e["detector-sized"] if x is not None])) for e in rows.values()]
+        zd = np.vstack([z for z in zd if z.size])
+        lines += ["", f"Detector-sized radius errors, no anchor, all cameras pooled: one-sigma coverage "
+                  f"{100 * np.mean(zd <= 1.0):.0f} % of {zd.size}."]
     lines += ["", f"The same kicks flown with other published laws (drag crisis C_D 0.45 → 0.15 at Re 3.0e5, Asai "
               "et al. 2007; saturating lift C_L = 1/(2.022 + 0.981/S), Stepanek 1988), fitted with the soccer "
               "ball's catalogue laws (crisis 0.47 → 0.20 at 2.6e5, C_L = S); deflection truth against the no-spin "

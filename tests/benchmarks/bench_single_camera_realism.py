@@ -9,8 +9,14 @@ that does not (apparent size only). Deflection truth: scene_realism's path minus
 the true state at the record's launch time, at the goal line x = 0.
 
 Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py realism [N]   (about 20 s a clip)
+     PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py detector-radius [N]
+        (the detector's apparent-radius errors on N penalty kicks per set-up, written to
+        tests/benchmarks/detector_radius_errors.json; bench_single_camera.py draws its "detector-sized"
+        radius errors from that file)
 """
+import json
 import math
+import os
 import sys
 import tempfile
 from dataclasses import replace
@@ -33,6 +39,9 @@ from balltraj.formats import CameraObservations, Observations  # noqa: E402
 from balltraj.pipeline import ClipInput, FitSettings, analyze_clip, fit_observations  # noqa: E402
 from balltraj.pipeline_depth import template_zone  # noqa: E402
 from bench_single_camera import stat_cells  # noqa: E402
+from balltraj.vision.pipeline import track_clip  # noqa: E402
+
+RADIUS_ERRORS = Path(__file__).resolve().parent / "detector_radius_errors.json"
 
 MARK = np.array([-11.0, 0.0, S.SOCCER.radius_m])
 START_S = 0.1
@@ -138,6 +147,55 @@ def run(n):
             clip.unlink()
         print(f"penalty {k + 1}/{n} done", flush=True)
     return rows
+
+
+def measure_radius_errors(n):
+    """The detector's apparent-radius errors on balls it did not draw: per tracked clip of scene_realism
+    (its own shading, seam, blur, noise and H.264; truth radius f R / depth times the lens magnification),
+    the common scale error (median of r_detected / r_true - 1), the common additive part left after it
+    (median of r_detected - (1 + scale) r_true, which is 0 by construction and so not kept), and the
+    per-frame scatter (1.4826 MAD of r_detected - (1 + scale) r_true) [px]. Written to RADIUS_ERRORS."""
+    rng = np.random.default_rng(9001)
+    tmp = Path(tempfile.mkdtemp(prefix="bench_radius_"))
+    out = []
+    variants = [dict(), dict(exposure_s=1 / 250), dict(sky=False), dict(noise=4.0, bitrate=1_000_000)]
+    for k in range(n):
+        speed = rng.uniform(22, 28)
+        aim_y, el = rng.uniform(-2.8, 2.8), math.radians(rng.uniform(8, 13))
+        az = math.atan2(aim_y, 11.0)
+        v0 = speed * np.array([math.cos(el) * math.cos(az), math.cos(el) * math.sin(az), math.sin(el)])
+        axis = np.array([rng.uniform(-0.2, 0.2), rng.uniform(-0.3, 0.3), rng.choice([-1.0, 1.0])])
+        axis /= np.linalg.norm(axis)
+        var = variants[k % len(variants)]
+        for j, (label, (c, tg, f)) in enumerate(SETUPS.items()):
+            shot = S.Shot(S.Cam(c, tg, f, SIZE), S.SOCCER, [(START_S, MARK, v0, axis)], duration_s=START_S + 0.62,
+                          capture_fps=FPS, seed=500 + 10 * k + j, **{"exposure_s": 1 / 1000, **var})
+            clip = tmp / f"r{k}_{j}.mp4"
+            frames = S.render_shot(shot, clip)
+            cam = look_at_camera(label, c, tg, f, SIZE)
+            res = track_clip(clip, cam, S.SOCCER.radius_m)
+            clip.unlink()
+            truth = {round(r["t"] * FPS): r["r"] for r in frames if "r" in r and not r["repeat"]}
+            pairs = [(truth[round(t * FPS)], rd) for fl in res.flights for t, rd in zip(fl.t, fl.radius_px)
+                     if round(t * FPS) in truth and np.isfinite(rd)]
+            row = {"set_up": label, "variant": ", ".join(f"{a}={b}" for a, b in var.items()) or "plain",
+                   "frames": len(pairs)}
+            if len(pairs) >= 8:
+                rt, rd = np.array(pairs).T
+                scale = float(np.median(rd / rt) - 1.0)
+                resid = rd - (1.0 + scale) * rt
+                row.update(scale=scale, noise_px=float(1.4826 * np.median(np.abs(resid - np.median(resid)))),
+                           true_radius_px_median=float(np.median(rt)))
+            out.append(row)
+            print(row, flush=True)
+    doc = {"what": "apparent-radius errors of balltraj.vision's detector on tests/scene_realism.py penalty kicks "
+                   "(scale = median r_detected / r_true - 1; noise_px = 1.4826 MAD of what is left per frame)",
+           "command": f"PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py detector-radius {n}",
+           "clips": out}
+    tmp_path = RADIUS_ERRORS.with_suffix(".tmp")
+    tmp_path.write_text(json.dumps(doc, indent=1) + "\n")
+    os.replace(tmp_path, RADIUS_ERRORS)
+    return doc
 
 
 def main_realism(n):

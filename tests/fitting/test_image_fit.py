@@ -1,3 +1,4 @@
+import math
 import json
 import subprocess
 import sys
@@ -96,3 +97,20 @@ def test_observations_without_camera_file(tmp_path):
     p = subprocess.run([sys.executable, "-m", "balltraj", "fit", str(obs), "--ball", "baseball",
                         "-o", str(tmp_path / "f.json")], capture_output=True, text=True)
     assert p.returncode == 2 and "--camera" in p.stderr
+
+
+def test_pinned_drag_model_moves_the_catalogue_law_as_the_ladder_does():
+    # invariant: C_D = e^s C_D,cat(e^c Re) (Re / Re_0)^a (balltraj.physics.aero_published.drag_modified);
+    # all zero gives the catalogue law back, at every Re (the soccer ball's catalogue law has a drag crisis)
+    from balltraj.fitting.drag_law import pinned_drag_model
+    from balltraj.physics.air import air_conditions
+    from balltraj.physics.balls import get_ball
+    from balltraj.physics.flight import FlightModel
+
+    cat = FlightModel.for_ball(get_ball("soccer"), air_conditions())
+    re = np.linspace(1.0e5, 5.0e5, 41)
+    same = pinned_drag_model(cat, {}, 27.0)
+    assert np.allclose(same.drag(re, 0.1), cat.drag(re, 0.1), rtol=1e-12)
+    moved = pinned_drag_model(cat, {"log_drag_scale": 0.2, "log_re_shift": 0.15}, 27.0)
+    assert np.allclose(moved.drag(re, 0.1), math.exp(0.2) * cat.drag(math.exp(0.15) * re, 0.1), rtol=1e-12)
+    assert not np.allclose(moved.drag(re, 0.1), cat.drag(re, 0.1))

@@ -71,6 +71,40 @@ def test_marginal_posterior_is_the_joint_gaussian_one():
     assert not np.any(nu["compensation"])
 
 
+def test_drag_law_nuisances_are_marginalised_on_the_catalogue_rung():
+    # invariant (linear Gaussian model): on a rung whose drag cannot vary with speed, a drag-law nuisance
+    # (the image fit's, nuisance.DRAG_LAW_SIGMAS) gets the marginal posterior of the joint Gaussian of theta and
+    # itself alone, while the spin-drag split keeps its prior and is held (A = 0), as before
+    from balltraj.fitting.nuisance import DRAG_LAW_SIGMAS, nuisance_priors
+
+    rng = np.random.default_rng(1)
+    M, k = 40, 4
+    J = rng.normal(size=(M, k + 2))
+    Jt = J[:, :k]
+    r0 = (np.eye(M) - Jt @ np.linalg.pinv(Jt)) @ rng.normal(size=M)
+    s2, s_split, s_drag = 0.7, 0.25, DRAG_LAW_SIGMAS["log_drag_scale"]
+    p_hat = rng.normal(size=k)
+    lin = _Linear(J, r0, np.concatenate([p_hat, np.zeros(2)]), k)
+    lin.rung = ()
+    res = SimpleNamespace(p=p_hat, jacobian=Jt, residuals=r0, s2=s2, covariance=np.eye(k))
+    nu = marginalise(lambda rung: lin, lin, res, {"drag_spin_split": s_split, "log_drag_scale": s_drag})
+    Jd = J[:, [0, 1, 2, 3, k + 1]]  # theta and the drag-law column alone
+    prec = Jd.T @ Jd / s2
+    prec[k, k] += 1 / s_drag**2
+    joint = np.linalg.inv(prec)
+    assert nu["covariance"][1, 1] == pytest.approx(joint[k, k], rel=1e-6)
+    assert nu["mean"][1] == pytest.approx((-joint @ Jd.T @ r0 / s2)[k], rel=1e-6, abs=1e-12)
+    assert np.allclose(nu["compensation"][:, 1], -np.linalg.lstsq(Jt, J[:, k + 1], rcond=None)[0])
+    assert nu["covariance"][0, 0] == pytest.approx(s_split**2) and not np.any(nu["compensation"][:, 0])
+    assert nu["covariance"][0, 1] == 0.0 and nu["mean"][0] == 0.0
+    # the drag law keeps the catalogue's value (its prior mean) whatever the track's pull: only its spread counts
+    assert nu["used_mean"][1] == 0.0
+    # the drag-law priors join only when asked (the image fit held on the catalogue rung), never in 3-D fits
+    assert set(nuisance_priors((), FitOptions())) == {"drag_spin_split"}
+    asked = nuisance_priors(("log_drag_scale",), FitOptions(drag_law_priors=True))
+    assert set(asked) == {"drag_spin_split"} | (set(DRAG_LAW_SIGMAS) - {"log_drag_scale"})
+
+
 # ---- flights made outside the code under test (solve_ivp, laws written here) -----------------------
 def _truth(ball, rho, cd, cl, s0, spin, wind=(0, 0, 0), t_eval=None, x_stop=None, spin_on=True):
     r = ball.radius_m

@@ -141,6 +141,10 @@ def test_calibration_round_trip(client, folder):
     # at x = 0, the sample's at x = 22 m, both with play along +x
     assert np.allclose(cam.centre, TRUE_CAM.centre - [GOAL_X, 0, 0], atol=1e-3)
     assert cam.focal_px == pytest.approx(TRUE_CAM.focal_px, rel=1e-6)
+    # the camera file keeps the template it was placed on and the frame in words (read back from the file)
+    saved = json.loads((folder / body["saved"]).read_text())
+    assert saved["template"] == {"name": "soccer-goal", "world_frame": TEMPLATES["soccer-goal"]["frame"]}
+    assert (cam.template, cam.world_frame) == ("soccer-goal", TEMPLATES["soccer-goal"]["frame"])
     # the saved camera reprojects the ball's true path (the render's truth) where the renderer drew it
     truth = pd.read_csv(ROOT / "sample_clips" / "free-kick-behind.truth.csv", comment="#")
     xyz = truth[["x", "y", "z"]].to_numpy() - [GOAL_X, 0, 0]
@@ -167,6 +171,31 @@ def test_turned_frame_sees_the_same_picture():
     X = np.random.default_rng(3).uniform(-5, 30, (20, 3))
     cam = turn_camera(TRUE_CAM, HALF_TURN)
     assert np.allclose(cam.project(X @ HALF_TURN.T), TRUE_CAM.project(X), atol=1e-9)
+
+
+def test_saved_camera_keeps_its_template_through_the_file(client, folder):
+    """Round trip: the workbench's saved file -> read_cameras -> to_dict -> file again keeps the ``template``
+    key; a turned frame is said in the key, so the template's launch zones are refused on it."""
+    from balltraj.camera.model import camera_from_dict
+    from balltraj.pipeline_depth import template_zone
+
+    clicks = visible_clicks()
+    for turn in (False, True):
+        body = client.post("/api/calibrate", json={"path": CLIP, "template": "soccer-goal", "clicks": clicks,
+                                                   "turn": turn, "save": True}).json()
+        path = folder / body["saved"]
+        cam = read_cameras(path)[0]
+        assert cam.template == "soccer-goal" and cam.world_frame == body["frame"]
+        assert (cam.world_frame == TEMPLATES["soccer-goal"]["frame"]) is (not turn)
+        again = camera_from_dict(cam.to_dict())
+        assert (again.template, again.world_frame) == (cam.template, cam.world_frame)
+        assert json.loads(path.read_text())["template"] == cam.to_dict()["template"]
+        # the kept camera still sees the same picture (the key changes nothing of the pose)
+        assert np.allclose(cam.project(np.array([[3.0, 1.0, 0.5]])),
+                           turn_camera(cam, np.eye(3)).project(np.array([[3.0, 1.0, 0.5]])))
+        zone, why = template_zone(cam, 0.11, [0.0, 0.01, 0.02], [[640, 400], [641, 399], [642, 398]])
+        if turn:
+            assert zone is None and "another world frame" in why
 
 
 def test_start_point_from_a_click():
