@@ -33,7 +33,7 @@ from .physics.air import AirConditions
 from .physics.balls import Ball
 from .physics.flight import FlightModel, check_launch, launch_state
 from .physics.reference import Deflection
-from .pipeline_depth import flight_anchor
+from .pipeline_depth import depth_warnings, flight_anchor
 from .pipeline_spin import FlightSurfaces, apply_surface_spin
 from .record.build import fit_record, simulate_record
 from .vision.pipeline import TrackResult, no_ball_error, track_clip
@@ -289,6 +289,7 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
         rec["clip"] = {"path": str(clip.path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
                        "end_reason": f.end_reason}
         rec["depth_anchor"] = anchor_section
+        rec["warnings"] = list(rec.get("warnings", [])) + depth_warnings(anchor)
         records.append(rec)
     if not records:
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip.path),

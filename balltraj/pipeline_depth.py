@@ -5,6 +5,7 @@ zone of the field template the camera was calibrated on, or only the ball's appa
 - :func:`template_zone` — the template's launch zone that agrees with a tracked flight, as a soft prior.
 - :func:`flight_anchor` — the anchor of one tracked flight, the observations to keep, and the
   record's ``depth_anchor`` section.
+- :func:`depth_warnings` — what the console and the record must say when only the apparent size is left.
 
 Nothing here prints; the clip is read (frames before the launch) to look for a ball at rest.
 """
@@ -139,3 +140,17 @@ def flight_anchor(clip, camera: Camera, ball_radius_m: float, f, previous=None, 
 
 
 __all__ = ["template_zone", "flight_anchor"]
+
+
+def depth_warnings(anchor) -> list[str]:
+    """Warnings for a one-camera flight whose depth rests on the ball's apparent size alone.
+
+    The radius the detector reads on small, shaded or blurred balls was measured 10-26 % small on
+    independently rendered clips (docs/validation.md, one camera), and the fit's radius-scale prior is
+    6 %: beyond it the launch speed can be off by tens of per cent with a sigma that does not show it."""
+    if anchor.name != "apparent size":
+        return []
+    return ["the depth along the camera's line of sight rests on the ball's apparent size alone: on a small, "
+            "shaded or blurred ball the measured size can be a quarter too small, and the launch speed then tens "
+            "of per cent off beyond its stated uncertainty; film the ball at rest before the kick or throw, "
+            "calibrate the camera on a field template, give --start-near, or add a second camera"]

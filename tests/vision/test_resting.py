@@ -68,3 +68,17 @@ def test_frames_overlapping_the_rest_spot_are_dropped(clip):
     b = find_resting_ball(path, CAM, R, [r["t"] for r in fl], [[r["u"], r["v"]] for r in fl]).ball
     uv = np.array([b.uv + [1.0, 0.0], b.uv + [2 * b.radius_px + 1.0, 0.0], b.uv + [2 * b.radius_px + 3.0, 0.0]])
     assert clear_of_rest_spot(b, uv, [b.radius_px] * 3).tolist() == [False, False, True]
+
+
+def test_apparent_size_alone_is_warned_about(clip):
+    # Source: invariant - a flight that did not start at the resting ball, with no hint or zone, leaves only
+    # the apparent size; the record then warns that its depth (and speed) may be far off (docs/validation.md)
+    from balltraj.pipeline_depth import depth_warnings
+    from balltraj.vision.resting import depth_anchor
+
+    path, fl = clip
+    t, radii = [r["t"] for r in fl], [r["radius_px"] for r in fl]
+    alone, _ = depth_anchor(path, CAM, R, t, [[r["u"], r["v"] - 80] for r in fl], radius_px=radii)
+    rested, _ = depth_anchor(path, CAM, R, t, [[r["u"], r["v"]] for r in fl], radius_px=radii)
+    assert alone.name == "apparent size" and rested.name == "ground contact"
+    assert "apparent size" in " ".join(depth_warnings(alone)) and depth_warnings(rested) == []
