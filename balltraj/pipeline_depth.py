@@ -139,7 +139,7 @@ def flight_anchor(clip, camera: Camera, ball_radius_m: float, f, previous=None, 
     return anchor, keep, section
 
 
-__all__ = ["template_zone", "flight_anchor"]
+__all__ = ["template_zone", "flight_anchor", "depth_warnings"]
 
 
 def depth_warnings(anchor) -> list[str]:
@@ -148,6 +148,10 @@ def depth_warnings(anchor) -> list[str]:
     The radius the detector reads on small, shaded or blurred balls was measured 10-26 % small on
     independently rendered clips (docs/validation.md, one camera), and the fit's radius-scale prior is
     6 %: beyond it the launch speed can be off by tens of per cent with a sigma that does not show it."""
+    if anchor.name == "none":
+        return ["nothing fixes the depth along the camera's line of sight (no ball at rest, bounce, field template, "
+                "start point or measured ball size): the launch speed and the deflection are rough; film the ball "
+                "at rest before the kick or throw, or add a second camera"]
     if anchor.name != "apparent size":
         return []
     return ["the depth along the camera's line of sight rests on the ball's apparent size alone: on a small, "

@@ -112,10 +112,12 @@ def marginalise(new_problem, prob, res, priors: dict) -> dict:
     data_sigma = np.sqrt(np.clip(np.diag(np.linalg.pinv(Jp.T @ Jp / s2)), 0, None))
     # a rung whose drag cannot vary with speed would let b stand in for the speed dependence it lacks
     # (b (S - S0) changes the drag as the ball slows): the track's hold on b is then an artefact. The
-    # prior stays, and the other unknowns are held (A = 0): b then moves the no-spin reference's drag
-    # by b S0, and the spinning path only by b (S - S0), as the rung assumes its drag law. The drag-law
-    # nuisances (DRAG_LAW_SIGMAS) are the speed dependence itself: always marginalised with the data
-    held = np.array([("drag_re_exponent" not in prob.rung) and n not in DRAG_LAW_SIGMAS for n in names])
+    # prior stays, and b is held (A = 0): it then moves the no-spin reference's drag by b S0, and the
+    # spinning path only by b (S - S0), as the rung assumes its drag law. Every other nuisance is always
+    # marginalised with the data: the drag-law ones (DRAG_LAW_SIGMAS) are the speed dependence itself, and a
+    # held wind would move the spinning path and its reference alike (a crosswind the fit reads as sidespin
+    # shows only when the fit may follow it)
+    held = np.array([("drag_re_exponent" not in prob.rung) and n == "drag_spin_split" for n in names])
     free = ~held
     cov, mean = np.diag(sig0**2), np.zeros(m)
     if free.any():

@@ -238,6 +238,18 @@ def _fit_warnings(fit: FlightFit, ball: Ball, model: FlightModel, val, rate: flo
     return warnings
 
 
+# why one flight cannot tell each prior's unknown (fitting/nuisance.py), in words for the warning
+_PRIOR_REASONS = {
+    "drag_spin_split": "how much of the ball's drag comes from its spin (the no-spin reference needs the drag "
+                       "without it; published slopes dC_D/dS run from 0 to about 0.5)",
+    "wind_x": "the head or tail wind, known only to the stated uncertainty (it changes the drop)",
+    "wind_y": "the crosswind, known only to the stated uncertainty (from one track it looks like sidespin)",
+    "log_drag_scale": "the ball's drag level (the catalogue law's coefficient is known to about 20 %)",
+    "log_re_shift": "where the ball's drag crisis falls (the speed at which its drag drops)",
+    "drag_re_exponent": "how the ball's drag changes with speed",
+}
+
+
 def _prior_warnings(sig: dict) -> list[str]:
     """A warning for each deflection component whose variance comes mostly from a prior on what one
     flight cannot tell (fitting/nuisance.py)."""
@@ -246,9 +258,7 @@ def _prior_warnings(sig: dict) -> list[str]:
         total = sig[key]
         for name, part in sig.get("deflection_from_priors_m", {}).items():
             if total > 0 and part[i] ** 2 > 0.5 * total**2:
-                why = ("how much of the ball's drag comes from its spin (the no-spin reference needs the drag "
-                       "without it; published slopes dC_D/dS run from 0 to about 0.5)" if name == "drag_spin_split"
-                       else "the wind, known only to the stated uncertainty (a head or tail wind changes the drop, a crosswind looks like sidespin)")
+                why = _PRIOR_REASONS.get(name, name.replace("_", " "))
                 out.append(f"the {comp} deflection's uncertainty (± {100 * total:.1f} cm) is mostly what one flight "
                            f"cannot tell: {why}")
     return out

@@ -114,3 +114,35 @@ def test_pinned_drag_model_moves_the_catalogue_law_as_the_ladder_does():
     moved = pinned_drag_model(cat, {"log_drag_scale": 0.2, "log_re_shift": 0.15}, 27.0)
     assert np.allclose(moved.drag(re, 0.1), math.exp(0.2) * cat.drag(math.exp(0.15) * re, 0.1), rtol=1e-12)
     assert not np.allclose(moved.drag(re, 0.1), cat.drag(re, 0.1))
+
+
+def test_drag_crisis_position_is_compensated_by_independent_refits():
+    # Source: invariant (central difference) - the image fit held on the catalogue rung compensates the drag
+    # crisis position by refits at +-1 prior sigma; fitting the same pixels afresh with the law moved to +s and
+    # -s (pinned_drag_model, full fits from scratch) must give the same launch-velocity column (theta+ - theta-) / 2s
+    from balltraj.fitting.drag_law import pinned_drag_model
+    from balltraj.fitting.nuisance import DRAG_LAW_SIGMAS
+
+    t, xyz, truth = make_track("soccer", noise_m=0.0, seed=2)  # the soccer ball's catalogue law has a drag crisis
+    cam = look_at_camera("side", [12, -18, 1.5], [12, 0, 2.0], 1400, (1280, 720))
+    rng = np.random.default_rng(2)
+    uv = cam.project(xyz) + rng.normal(0, 0.5, (len(t), 2))
+    r = cam.focal_px * truth["model"].radius_m / cam.depth(xyz) + rng.normal(0, 0.3, len(t))
+    c = ["side"] * len(t)
+    opts = FitOptions(start_near=(0, 0, 0.11), start_sigma=0.1)
+    fit = fit_flight_image(truth["model"], t, c, uv, [cam], radius_px=r, options=opts)
+    assert fit.success, fit.message
+    nu = fit.nuisance
+    assert set(DRAG_LAW_SIGMAS) <= set(nu["names"]) and nu["compensation_method"].startswith("secant")
+    j, s = nu["names"].index("log_re_shift"), DRAG_LAW_SIGMAS["log_re_shift"]
+    speed = float(np.linalg.norm(fit.state0[3:6]))
+    v = []
+    for sign in (1.0, -1.0):
+        moved = fit_flight_image(pinned_drag_model(truth["model"], {"log_re_shift": sign * s}, speed), t, c, uv, [cam],
+                                 radius_px=r, options=opts)
+        assert moved.success, moved.message
+        v.append(np.asarray(moved.state0[3:6]))
+    ref = (v[0] - v[1]) / (2 * s)
+    col = np.asarray(nu["compensation"])[3:6, j]
+    assert np.linalg.norm(ref) > 0.05  # the crisis is within reach: moving it moves the launch velocity
+    assert np.linalg.norm(col - ref) < 0.2 * np.linalg.norm(ref)

@@ -208,3 +208,18 @@ def test_the_record_names_the_priors_and_their_part_of_the_sigma():
         assert u["same_drag_sigma_m"][i] ** 2 + part[i] ** 2 == pytest.approx(u[key] ** 2, rel=1e-9, abs=1e-12)
     dominated = any(part[i] ** 2 > 0.5 * u[k] ** 2 for i, k in enumerate(("horizontal_m", "vertical_m")))
     assert dominated == any("cannot tell" in w for w in rec["warnings"])
+
+
+def test_every_prior_is_named_for_what_it_is():
+    # Source: invariant - the warning names the unknown whose prior carries the variance; a drag-law prior
+    # is never blamed on the wind, and the crosswind is said for the sideways part
+    from balltraj.fitting.nuisance import DRAG_LAW_SIGMAS
+    from balltraj.record.build import _PRIOR_REASONS, _prior_warnings
+
+    assert set(DRAG_LAW_SIGMAS) | {"drag_spin_split", "wind_x", "wind_y"} <= set(_PRIOR_REASONS)
+    sig = {"deflection_horizontal_m": 0.10, "deflection_vertical_m": 0.02,
+           "deflection_from_priors_m": {"log_re_shift": [0.09, 0.0], "wind_y": [0.0, 0.001]}}
+    (w,) = _prior_warnings(sig)
+    assert w.startswith("the sideways") and "drag crisis" in w and "wind" not in w
+    sig["deflection_from_priors_m"] = {"wind_y": [0.09, 0.0]}
+    assert "crosswind" in _prior_warnings(sig)[0]

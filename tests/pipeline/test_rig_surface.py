@@ -103,6 +103,7 @@ def test_analyze_rig_reads_the_full_spin_from_the_fast_clip(rig):
     assert axis_err < 5.0
     vhat = np.array([math.cos(math.radians(-1)), 0.0, math.sin(math.radians(-1))])
     assert S["gyro_rate_rpm"] == pytest.approx(float(spin @ vhat) / RPM, abs=max(60.0, 3 * U["gyro_rate_rpm"]))
+    assert U["gyro_rate_rpm"] < 0.3 * float(spin @ vhat) / RPM  # a gyro part read, not a wide sigma around nothing
     for k in ("rate_rpm", "gyro_rate_rpm", "transverse_rate_rpm", "axis_deg"):
         assert U[k] is not None and 0 < U[k] < math.inf, k
     # the agreement check: both readings are of the same truth, so they must agree and be combined

@@ -190,12 +190,11 @@ def test_saved_camera_keeps_its_template_through_the_file(client, folder):
         again = camera_from_dict(cam.to_dict())
         assert (again.template, again.world_frame) == (cam.template, cam.world_frame)
         assert json.loads(path.read_text())["template"] == cam.to_dict()["template"]
-        # the kept camera still sees the same picture (the key changes nothing of the pose)
-        assert np.allclose(cam.project(np.array([[3.0, 1.0, 0.5]])),
-                           turn_camera(cam, np.eye(3)).project(np.array([[3.0, 1.0, 0.5]])))
         zone, why = template_zone(cam, 0.11, [0.0, 0.01, 0.02], [[640, 400], [641, 399], [642, 398]])
         if turn:
             assert zone is None and "another world frame" in why
+        else:
+            assert "another world frame" not in why
 
 
 def test_start_point_from_a_click():
