@@ -406,6 +406,13 @@ HEAD = ["| camera | depth from | resting ball found | fits converged (budget sto
         "sideways / up-down deflection) |", "|---|---|---|---|---|---|---|---|"]
 
 
+def _pooled(rows, key):
+    """Pooled one-sigma coverage of the |error| / sigma of every fit of ``key`` in all set-ups, in words."""
+    z = [np.abs(np.array([x["z"] for x in e[key] if x is not None])) for e in rows.values()]
+    z = np.vstack([a for a in z if a.size])
+    return f"one-sigma coverage {100 * np.mean(z <= 1.0):.0f} % of {z.size}"
+
+
 def main():
     if len(sys.argv) > 1 and sys.argv[1] == "tracked":
         main_tracked(int(sys.argv[2]) if len(sys.argv) > 2 else 2)
@@ -458,20 +465,14 @@ def main():
                   "detector_radius_errors.json, made by `bench_single_camera.py detector-radius 4`).", "", *HEAD]
         lines += _accuracy_rows(rows, (("detector-sized rest", "ball at rest (ground contact)"),
                                        ("detector-sized", "nothing (apparent size)")), n)
-        zd = [np.abs(np.array([x["z"] for x in e["detector-sized"] if x is not None])) for e in rows.values()]
-        zd = np.vstack([z for z in zd if z.size])
-        lines += ["", f"Detector-sized radius errors, no anchor, all cameras pooled: one-sigma coverage "
-                  f"{100 * np.mean(zd <= 1.0):.0f} % of {zd.size}."]
+        lines += ["", f"Detector-sized radius errors, no anchor, all cameras pooled: {_pooled(rows, 'detector-sized')}."]
     lines += ["", f"The same kicks flown with other published laws (drag crisis C_D 0.45 → 0.15 at Re 3.0e5, Asai "
               "et al. 2007; saturating lift C_L = 1/(2.022 + 0.981/S), Stepanek 1988), fitted with the soccer "
               "ball's catalogue laws (crisis 0.47 → 0.20 at 2.6e5, C_L = S); deflection truth against the no-spin "
               f"path of the same (true) drag law. {cmd}", "", *HEAD]
     lines += _accuracy_rows(rows, (("other rest", "ball at rest (ground contact)"),
                                    ("other none", "nothing (apparent size)")), n)
-    zo = [np.abs(np.array([x["z"] for x in e["other none"] if x is not None])) for e in rows.values()]
-    zo = np.vstack([z for z in zo if z.size])
-    lines += ["", f"Other laws, no anchor, all cameras pooled: one-sigma coverage {100 * np.mean(zo <= 1.0):.0f} % "
-              f"of {zo.size}."]
+    lines += ["", f"Other laws, no anchor, all cameras pooled: {_pooled(rows, 'other none')}."]
     whys = sorted({w for e in rows.values() for w in e["why"]})
     if whys:
         lines += ["", "Not found / not fitted: " + "; ".join(whys[:6])]

@@ -120,20 +120,25 @@ def test_overlay_does_not_change_what_is_tracked(repeated, tmp_path):
     assert (np.abs(patch[..., 2] - patch[..., 0]) > 80).any()
 
 
-def test_camera_drift_is_measured_and_compensated(tmp_path):
-    path = tmp_path / "drift.mp4"
+def _view_motion_errors(path, shake_px, drift_px_s, seed):
+    """Per frame, how far the tracker's measured view motion is from the renderer's own record of the
+    view's shift [px, full frame], how far the view moved in all, and the renderer's truth."""
     truth = render_shot(Shot(LOB_CAM, BASEBALL, LOB, duration_s=1.2, capture_fps=30, exposure_s=1 / 1000,
-                             shake_px=0.6, drift_px_s=(15.0, -4.0), seed=15), path)
+                             shake_px=shake_px, drift_px_s=drift_px_s, seed=seed), path)
     guard = FrameGuard()
     errs = []
     s0 = np.array(truth[0]["view_shift"])
     for k, _, g in read_frames(path, grey=True):
         guard.check(cv2.resize(g, (g.shape[1] // 2, g.shape[0] // 2), interpolation=cv2.INTER_AREA))
-        true_shift = np.array(truth[k]["view_shift"]) - s0
-        errs.append(np.hypot(*(2 * guard.total_motion[:, 2] - true_shift)))
+        errs.append(np.hypot(*(2 * guard.total_motion[:, 2] - (np.array(truth[k]["view_shift"]) - s0))))
+    return errs, float(np.hypot(*(np.array(truth[-1]["view_shift"]) - s0))), truth
+
+
+def test_camera_drift_is_measured_and_compensated(tmp_path):
+    path = tmp_path / "drift.mp4"
+    errs, moved, truth = _view_motion_errors(path, shake_px=0.6, drift_px_s=(15.0, -4.0), seed=15)
     # Source: the renderer's own record of the view's shift in each frame
     assert np.median(errs) < 0.5 and np.max(errs) < 2.0
-    moved = np.hypot(*(np.array(truth[-1]["view_shift"]) - s0))
     assert moved > 10  # the view really drifted
     res = track_clip(path, None, BASEBALL.radius_m)
     recall, precision = _matches(truth, res)
@@ -197,16 +202,7 @@ def test_a_long_pan_is_followed_past_its_key_frames(tmp_path):
     # a steady pan of 300 px over 1.2 s at 30 frames/s: the corners of a key frame leave the view or
     # stop fitting one motion long before the pan ends; the view's motion must carry on from where
     # it was (not snap back to the key frame's place)
-    path = tmp_path / "pan.mp4"
-    truth = render_shot(Shot(LOB_CAM, BASEBALL, LOB, duration_s=1.2, capture_fps=30, exposure_s=1 / 1000,
-                             shake_px=0.3, drift_px_s=(250.0, -20.0), seed=17), path)
-    guard = FrameGuard()
-    errs = []
-    s0 = np.array(truth[0]["view_shift"])
-    for k, _, g in read_frames(path, grey=True):
-        guard.check(cv2.resize(g, (g.shape[1] // 2, g.shape[0] // 2), interpolation=cv2.INTER_AREA))
-        errs.append(np.hypot(*(2 * guard.total_motion[:, 2] - (np.array(truth[k]["view_shift"]) - s0))))
-    moved = np.hypot(*(np.array(truth[-1]["view_shift"]) - s0))
+    errs, moved, _ = _view_motion_errors(tmp_path / "pan.mp4", shake_px=0.3, drift_px_s=(250.0, -20.0), seed=17)
     # Source: the renderer's own record of the view's shift in each frame
     assert moved > 250
     # (measured: median 2.5 px, 5.8 px at the end of the 290-px pan; a view snapped back to its key
