@@ -64,11 +64,18 @@ def test_marginal_posterior_is_the_joint_gaussian_one():
     assert np.allclose(nu["covariance"], joint[k:, k:], rtol=1e-6)
     assert np.allclose(nu["mean"], (-joint @ J.T @ r0 / s2)[k:], rtol=1e-6, atol=1e-12)
     assert np.allclose(nu["compensation"], -np.linalg.lstsq(Jt, J[:, k:], rcond=None)[0])
-    # on a rung whose drag cannot vary with speed the track's hold on b is not trusted: the prior stays
+    # on a rung whose drag cannot vary with speed the track's hold on the spin-drag split is not trusted:
+    # its prior stays and it is held (A = 0); a stated wind is still marginalised with the data (a held
+    # crosswind would move the spinning path and its no-spin reference alike and hide what it can do)
     lin.rung = ()
-    nu = marginalise(lambda rung: lin, lin, res, {"a": sig0[0], "b": sig0[1]})
-    assert np.allclose(nu["covariance"], np.diag(sig0**2)) and not np.any(nu["used_mean"])
-    assert not np.any(nu["compensation"])
+    nu = marginalise(lambda rung: lin, lin, res, {"drag_spin_split": sig0[0], "wind_y": sig0[1]})
+    assert nu["covariance"][0, 0] == pytest.approx(sig0[0] ** 2) and nu["used_mean"][0] == 0.0
+    assert not np.any(nu["compensation"][:, 0]) and nu["covariance"][0, 1] == 0.0
+    Jw = J[:, [0, 1, 2, 3, k + 1]]  # theta and the wind's column alone
+    prec_w = Jw.T @ Jw / s2
+    prec_w[k, k] += 1 / sig0[1] ** 2
+    assert nu["covariance"][1, 1] == pytest.approx(np.linalg.inv(prec_w)[k, k], rel=1e-6)
+    assert np.allclose(nu["compensation"][:, 1], -np.linalg.lstsq(Jt, J[:, k + 1], rcond=None)[0])
 
 
 def test_drag_law_nuisances_are_marginalised_on_the_catalogue_rung():
