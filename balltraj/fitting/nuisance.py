@@ -119,17 +119,13 @@ def marginalise(new_problem, prob, res, priors: dict) -> dict:
     # shows only when the fit may follow it)
     held = np.array([("drag_re_exponent" not in prob.rung) and n == "drag_spin_split" for n in names])
     free = ~held
+    A = A * free  # a held nuisance is not compensated (least squares solves each column on its own)
     cov, mean = np.diag(sig0**2), np.zeros(m)
     if free.any():
-        A_f = -np.linalg.lstsq(Jt, Jb[:, free], rcond=None)[0]
-        Jp_f = Jb[:, free] + Jt @ A_f
+        Jp_f = Jp[:, free]
         c_f = np.linalg.inv(np.diag(1.0 / sig0[free] ** 2) + Jp_f.T @ Jp_f / s2)
         cov[np.ix_(free, free)] = c_f
         mean[free] = -c_f @ (Jp_f.T @ r) / s2
-        A = np.zeros_like(A)
-        A[:, free] = A_f
-    else:
-        A = np.zeros_like(A)
     # the posterior mean is used only where the track tells more than the prior (data sigma below the
     # prior's); elsewhere the pull comes from a direction the track barely sees, where whatever the rung
     # misses leaks in (on a crosswind drive its wind means even had the wrong sign), so the prior mean stays

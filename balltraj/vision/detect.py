@@ -221,7 +221,7 @@ class Detector:
         # must raise their own threshold even though they are always flagged
         cv2.accumulateWeighted(diff, self.dev, 0.5 * self.alpha)
         if len(contours) > 20 * self.max_candidates:
-            # a threshold that breaks the view into hundreds of blobs is below the noise (the first
+            # a threshold that splits the view into hundreds of blobs is below the noise (the first
             # guess in a noisy dim scene): the noise map takes half of this difference at once
             cv2.accumulateWeighted(diff, self.dev, 0.5)
         cv2.accumulateWeighted(small, self.bg_small, self.alpha, mask=keep)

@@ -47,7 +47,7 @@ def _close_clip(tr, spin, ball_r, path):
     coef = np.linalg.lstsq(A, uv, rcond=None)[0]
     assert np.abs(uv - A @ coef).max() < 1.0  # drag and the fall along the line of sight: under a pixel
     # the renderer draws the ball orthographically (the same face wherever it is in the image); through
-    # the camera model the view turns with the ray to the ball, at d x dd/dt: render the true spin less that
+    # the camera model the view turns with the ray to the ball, at d x dd/dt: render the flown spin less that
     d = (xyz - cam.centre) @ cam.R.T
     d /= np.linalg.norm(d, axis=1, keepdims=True)
     ray_rate = np.mean(np.cross(d[:-1], np.diff(d, axis=0)), axis=0) * CLOSE_FPS
