@@ -86,13 +86,23 @@ def pair_scores(fa: SurfaceFrame, fb: SurfaceFrame, R, level: str, sel) -> np.nd
     da, db = (va - ma[:, None]) * w, (vb - mb[:, None]) * w
     den = np.sqrt((da * da).sum(1) * (db * db).sum(1))
     ncc = np.where(den > 0, (da * db).sum(1) / np.maximum(den, 1e-12), -1.0)
-    enough = nw >= max(25, 0.25 * len(n))
+    enough = nw >= _least_overlap(len(n))
     return np.where(enough, ncc, -1.0), np.where(enough, nw, 0.0)
 
 
-def joint_scores(frames, pairs, omegas, level, sels, chunk=4000):
-    """NCC over ``pairs`` (weighted by the overlap; pairs that do not overlap left out) for constant spins
-    ``omegas`` (B, 3) [rad/s]."""
+def _least_overlap(n_points: int) -> float:
+    """The fewest points seen in both frames that a comparison of ``n_points`` sample points needs."""
+    return max(25, 0.25 * n_points)
+
+
+def joint_scores(frames, pairs, omegas, level, sels, chunk=4000, all_pairs=False):
+    """NCC over ``pairs`` (weighted by the overlap) for constant spins ``omegas`` (B, 3) [rad/s].
+
+    Pairs that do not overlap under a spin are left out, unless ``all_pairs``: then such a pair counts
+    as no match (NCC 0) with the least overlap a comparison needs. Use it where the pairs are alike
+    (the same frame gap), so a constant spin must map every one of them: otherwise a spin that keeps
+    one pair barely overlapping scores on that pair's few points alone (where a chance match of a
+    smoothed surface is easy) as high as the true spin does on all of them."""
     out = np.zeros(len(omegas))
     for s in range(0, len(omegas), chunk):
         om = omegas[s:s + chunk]
@@ -100,6 +110,9 @@ def joint_scores(frames, pairs, omegas, level, sels, chunk=4000):
         for (a, b), sel in zip(pairs, sels):
             R = rotation_matrices(om * (frames[b].t - frames[a].t))
             ncc, nw = pair_scores(frames[a], frames[b], R, level, sel)
+            if all_pairs:
+                missing = nw == 0
+                ncc, nw = np.where(missing, 0.0, ncc), np.where(missing, _least_overlap(len(sel)), nw)
             acc += ncc * nw
             wsum += nw
         out[s:s + chunk] = np.where(wsum > 0, acc / np.maximum(wsum, 1e-9), -1.0)

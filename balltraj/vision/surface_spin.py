@@ -234,7 +234,7 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
     ax = np.arange(-phi_max, phi_max + 1e-9, h)
     grid = np.stack(np.meshgrid(ax, ax, ax, indexing="ij"), -1).reshape(-1, 3)
     grid = grid[np.linalg.norm(grid, axis=1) <= phi_max]
-    sc = joint_scores(fr, g1c, grid / dt1, "coarse", sels_c)
+    sc = joint_scores(fr, g1c, grid / dt1, "coarse", sels_c, all_pairs=True)
     order = np.argsort(-sc)
     cands = []
     for i in order:
@@ -285,8 +285,10 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
         nccs.append(v)
     base.update(n_pairs=len(est), match=float(np.mean(nccs)) if nccs else math.nan)
     if sum(1 for a, b in used if b - a == 1) < 3:
-        return _no("the ball turns too far between frames to compare its surface (or the surface did not match): "
-                   "film at a higher frame rate", **base)
+        # the overlap of consecutive surfaces depends on the turn a frame and its axis, not on pixels
+        return _no(f"the ball turns too far between frames to compare its surface (the best match turns it "
+                   f"{math.degrees(rate0 * dt1):.0f} degrees a frame, and fewer than 3 consecutive frames then show "
+                   "a quarter of the same surface; or the match is false): film at a higher frame rate", **base)
     # 4. one constant spin: per-frame orientations from the pairs, a straight line through them
     omega, cov, x, tk = _orientation_line(used, np.array(est), omega0, times)
     # a second estimate of the same error: the scatter of the consecutive-frame spins over their number;

@@ -11,6 +11,8 @@ window; noise 2 grey levels unless stated. Coverage: how often the rate error is
 per-component axis sigma: the radius of a 2-D Gaussian, a Rayleigh law).
 
 Run: python tests/benchmarks/bench_surface_spin.py          (about 6 minutes, two worker processes)
+One row while iterating (prints each clip, writes nothing):
+     python tests/benchmarks/bench_surface_spin.py --row "radius 30 px" [--seeds 0,3]
 """
 import math
 import multiprocessing
@@ -60,9 +62,11 @@ def run_case(fps=240.0, radius=14.0, exposure=1 / 8000, noise=2.0, crf=None, tex
             e_axis = math.degrees(math.acos(max(-1.0, min(1.0, cosang))))
             z = abs(e_rate / 100 * rate * RPM_PER_RADPS) / res.rate_sigma_rpm
             out.append(dict(read=True, rate=e_rate, axis=e_axis, z=z, z_axis=e_axis / res.axis_sigma_deg, s=dt,
-                            reason=""))
+                            reason="", sigma=100 * res.rate_sigma_rpm / res.rate_rpm, axis_sigma=res.axis_sigma_deg,
+                            match=res.match))
         else:
-            out.append(dict(read=False, reason=res.reason.split(":")[0].split("(")[0].strip(), s=dt))
+            out.append(dict(read=False, reason=res.reason.split(":")[0].split("(")[0].strip(), s=dt,
+                            full_reason=res.reason, match=res.match))
     return out
 
 
@@ -150,5 +154,28 @@ def main():
     publish("surface-spin", lines)
 
 
+def main_row(label, seeds=None):
+    """One row of the table, clip by clip (for iterating; nothing written)."""
+    found = [c for c in _cases() if f"{c[0]} {c[1]}" == label or c[1] == label]
+    if not found:
+        raise SystemExit(f"no row {label!r}; rows: " + ", ".join(c[1] for c in _cases()))
+    _, _, kw, row_seeds = found[0]
+    for seed in seeds if seeds is not None else row_seeds:
+        r = run_case(**kw, seeds=(seed,))[0]
+        if r["read"]:
+            print(f"{label} seed {seed}: rate {r['rate']:+.2f} % (sigma {r['sigma']:.2f} %, z {r['z']:.2f}), "
+                  f"axis {r['axis']:.2f} deg (sigma {r['axis_sigma']:.2f}), match {r['match']:.3f}, {r['s']:.0f} s",
+                  flush=True)
+        else:
+            print(f"{label} seed {seed}: not read: {r['full_reason']} (match {r['match']:.3f}), {r['s']:.0f} s",
+                  flush=True)
+
+
 if __name__ == "__main__":
-    main()
+    if "--row" in sys.argv:
+        _init()
+        main_row(sys.argv[sys.argv.index("--row") + 1],
+                 [int(k) for k in sys.argv[sys.argv.index("--seeds") + 1].split(",")] if "--seeds" in sys.argv
+                 else None)
+    else:
+        main()
