@@ -7,12 +7,14 @@ and k + g the surface turns by R = exp(omega dt): a point n of frame k is seen a
 The spin omega is found by registering the surfaces on the sphere (normalised cross-correlation of
 the band-passed albedo at n in frame k and at R n in frame k + g):
 
-1. a coarse grid over all rotations per frame up to half a turn, on smoothed patches, gap 1;
+1. a coarse grid over all rotations per frame up to half a turn, on smoothed patches, gap 1 (a pair
+   whose surfaces do not overlap under a spin counts as no match for it);
 2. the best few candidates refined on every pair of frames 1, 2 and 3 apart at once (a constant
    spin must map all of them; a false match of a symmetric texture does not);
 3. every pair refined on its own from that spin, giving one spin estimate per pair, and a robust
    (Huber) weighted mean of them: one constant spin vector over the window (optionally a decay);
-   the covariance from the scatter of the independent gap-1 estimates;
+   the covariance from the scatter of the independent gap-1 estimates, plus the apparent radius's
+   scatter, the centre's and a measured allowance for the ball's movement during the exposure;
 4. the answer is withheld, with a reason, when the ball is too small, shows no texture, the surface
    does not match between frames, the frame gaps disagree, the turn per frame is near half a turn
    (aliasing), or the spin is too uncertain.
