@@ -122,9 +122,18 @@ def downward_acceleration(tr: _Track, camera, ball_radius_m: float, with_sigma: 
     return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
 
 
+def _extent_px(uv: np.ndarray) -> float:
+    """How far [px] a track reached: the diagonal of its points' bounding box. Its net displacement
+    (first to last point) would say nothing of a ball juggled or thrown straight up, which comes
+    back down where it rose; a blob jittering in place or a jump onto a parked blob reaches no
+    further by this measure than by that."""
+    return float(np.hypot(*np.ptp(uv, axis=0)))
+
+
 def _net_speed(tr: _Track) -> float:
+    """The track's reach (:func:`_extent_px`) over its duration [px/s]."""
     ts, uv = tr.times(), tr.uv()
-    return float(np.linalg.norm(uv[-1] - uv[0]) / max(ts[-1] - ts[0], 1e-9))
+    return _extent_px(uv) / max(ts[-1] - ts[0], 1e-9)
 
 
 def _path_smoothness_px(uv: np.ndarray) -> float:
