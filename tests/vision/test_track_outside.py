@@ -1,0 +1,50 @@
+"""Tracking on short clips from the second, separately written renderer (tests/scene_outside.py), scored
+against that renderer's own truth (its integrator, camera and per-frame ball centre)."""
+import math
+
+import numpy as np
+import pytest
+from scene_outside import FOOTBALL, Lens, Person, Shot, Style, fly, render_shot
+
+from balltraj.vision.pipeline import track_clip
+
+pytest.importorskip("av")
+
+
+def _scores(truth, res):
+    """(recall, precision): the share of distinct exposures with the ball in flight and wholly in view
+    that carry a flight observation within max(2 px, 0.5 r) of the true centre, and the share of
+    flight observations that are such a match (one on a repeated frame counts as wrong)."""
+    tt = np.array([r["t"] for r in truth])
+    hit, good, n = set(), 0, 0
+    for f in res.flights:
+        for t, (u, v) in zip(f.t, f.uv):
+            row = truth[int(np.argmin(np.abs(tt - t)))]
+            n += 1
+            if row["visible"] and not row["repeat"] and math.hypot(u - row["u"], v - row["v"]) <= max(2.0, 0.5 * row["r"]):
+                good += 1
+                hit.add(row["exposure"])
+    visible = {r["exposure"] for r in truth if r["visible"]}
+    return len(hit & visible) / max(1, len(visible)), good / max(1, n)
+
+
+def test_a_large_ball_juggled_in_a_dark_room_is_found(tmp_path):
+    # a football juggled in front of a fixed camera in a dim room with mains flicker: a 45-px ball rising
+    # and falling where it rose, 30 frames/s, H.264. The flicker and coding noise split the first
+    # frames' difference into hundreds of blobs (a frame given up whole, the noise map raised inside
+    # the ball), and each arc comes back down where it began (no net displacement)
+    kicks = ((0.32, (-0.12, 0.05, 3.7)), (0.32, (0.15, -0.05, 3.9)))
+    p0, v0 = (0.05, -0.25, 0.32), (0.08, 0.0, 3.8)
+    tt, _, seg = fly(FOOTBALL, p0, v0, 0.15, 2.0, kicks)
+    juggler = Person(-0.38, 0.45, 0, 0, 1.78, (0.1, 0.25, 0.6), (0.05, 0.05, 0.07), cadence=0.8, stride=0.0,
+                     arm_swing=0.4, kicks=(0.1,) + tuple(tt[1:][np.diff(seg) > 0]))
+    shot = Shot(Lens((640, 360), 550, (0, -2.9, 0.6), pitch=10, k1=-0.04), FOOTBALL, p0, v0, 0.15, 1.9, 30, 30,
+                shutter=1 / 100, readout=0.028, kicks=kicks, style=Style("floor", "dark", 4.0, sun=(0.3, -0.5, 0.8)),
+                people=(juggler,), flicker=0.03, read_noise=0.012, bitrate=1_500_000, seed=21)
+    path = tmp_path / "juggle.mp4"
+    truth = render_shot(shot, path)
+    assert 40 < 2 * max(r["r"] for r in truth if r["visible"]) < 55  # Source: the renderer's own radius
+    recall, precision = _scores(truth, track_clip(path, None, FOOTBALL.radius_m))
+    # (measured: recall 0.51, precision 0.93; before the changes to the detector's noisy-frame handling
+    # and the reach test: no flight at all)
+    assert recall >= 0.35 and precision >= 0.8, (recall, precision)
