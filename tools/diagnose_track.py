@@ -66,7 +66,7 @@ def main(argv: list[str]) -> int:
         hit = fl is not None and np.hypot(fl[1] - row["u"], fl[2] - row["v"]) <= tol
         n_hit += hit
         if k % every == 0:
-            near = (f"nearest {d[j]:6.1f} px r={cands[j].radius_px:5.1f} s={cands[j].streak_px:5.1f} "
+            near = (f"nearest {d[j]:6.1f} px ({cands[j].u - row['u']:+5.1f},{cands[j].v - row['v']:+5.1f}) r={cands[j].radius_px:5.1f} s={cands[j].streak_px:5.1f} "
                     f"c={cands[j].contrast:5.1f}") if j >= 0 else "no candidate"
             print(f"{k:4d} t={row['t']:.3f} truth ({row['u']:7.1f},{row['v']:6.1f}) r={row['r']:5.1f} "
                   f"n={len(cands):2d} {near} {'DET' if det else '   '} {'HIT' if hit else ''}"
