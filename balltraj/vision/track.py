@@ -280,8 +280,11 @@ class Tracker:
         if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)):
             return False
         if self.focal_px and self.ball_radius_m:
-            ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
-            if not self.min_ball_speed <= ws <= self.max_ball_speed:
+            # too fast by its typical speed; too slow only if never fast: a ball juggled or thrown
+            # up is slow near the top of its arc, for much of its track
+            if world_speed(tr, self.focal_px, self.ball_radius_m, self.camera) > self.max_ball_speed:
+                return False
+            if world_speed(tr, self.focal_px, self.ball_radius_m, self.camera, 90.0) < self.min_ball_speed:
                 return False
         if self.ball_radius_m:
             c = (self.w / 2, self.h / 2) if self.camera is None else (self.camera.K[0][2], self.camera.K[1][2])
