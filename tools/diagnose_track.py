@@ -27,6 +27,11 @@ def _shot(kind: str, i: int, seed: int):
         shot = replace(shot, seed=shot.seed + 100 * seed)
         from scene_outside import render_shot
         return name, shot, render_shot, shot.ball.radius_m
+    if kind == "juggle":  # the clip of tests/vision/test_track_outside.py
+        sys.path.insert(0, str(ROOT / "tests" / "vision"))
+        from scene_outside import FOOTBALL, render_shot
+        from test_track_outside import juggle_shot
+        return "juggle (test clip)", juggle_shot(), render_shot, FOOTBALL.radius_m
     import bench_track_realism as b
     name, shot, _ = b.shots()[i]
     from scene_realism import render_shot
