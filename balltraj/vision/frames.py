@@ -71,11 +71,12 @@ class FrameGuard:
         typical = float(np.median(self._diffs)) if len(self._diffs) >= 3 else None
         if mean <= 1e-3 or (typical is not None and mean < self.repeat_fraction * typical):
             return FrameKind("repeat", IDENTITY, 0.0)
-        if typical is not None and mean < 0.4 * typical and tail < 0.3 * float(np.median(self._tails)):
-            # a repeat re-coded at a low bitrate: its mean difference from the original can reach a third
-            # of two exposures' (coding noise spread everywhere), but nothing in it differs much
-            # -- the tail of the differences stays at the coding noise, where two exposures differ by
-            # tens of grey levels wherever something moved
+        if len(self._tails) >= 3 and tail < 0.3 * float(np.percentile(self._tails, 75)):
+            # a repeat re-coded at a low bitrate: its mean difference from the original can reach most
+            # of two exposures' (coding noise spread everywhere), but nothing in it differs much -- the
+            # tail of the differences stays at the coding noise, where two exposures differ by tens of
+            # grey levels wherever something moved. (The upper quartile of recent exposures' tails: a
+            # few repeats not yet recognised, at the start, do not drag it down.)
             return FrameKind("repeat", IDENTITY, 0.0)
         big_change = max(20.0, 6.0 * typical) if typical is not None else None
         if big_change is not None and mean >= self.cut_share * big_change:  # necessary for a cut: cheap test first
