@@ -5,11 +5,14 @@ and how the view moved since the last exposure.
   more; a re-encoded repeat differs from its original only by the encoder's small refinements, far
   less than two real exposures differ by sensor noise and motion (measured on H.264 and mp4v clips:
   repeats 0.001-0.01 grey levels mean absolute difference at half resolution, distinct exposures
-  0.07-4). A frame is a repeat when that mean is under 15 % of the median over recent exposures.
-  (Known gap: a repeat re-coded at a key frame in a noisy low-bitrate clip differs from its original
-  by as much as two exposures do; a test on block means -- coding noise averages out over a block,
-  motion does not -- found those, but also took for repeats the exposures of a clean clip in which
-  only a small far ball moved, so it is not used.)
+  0.07-4). A frame is a repeat when that mean is under 15 % of the median over recent exposures, or
+  when the tail of its differences (the 99.9th percentile) is under 0.3 of the upper quartile of
+  recent exposures' tails: a repeat re-coded in a noisy low-bitrate clip can differ from its original
+  by most of what two exposures differ by on average, but only by coding noise (measured on 640x360
+  H.264 at 800-900 kbit/s: tails of 1-8 grey levels for repeats, 31-51 for exposures). (A test on
+  block means -- coding noise averages out over a block, motion does not -- also found those, but
+  took for repeats the exposures of a clean clip in which only a small far ball moved, so it is not
+  used.)
 * Scene cuts. Most of the picture changes at once: a large share of the half-resolution pixels
   differ by far more than the typical frame-to-frame change.
 * View motion (hand-held drift, slight pans). Corners (Shi-Tomasi) of the last exposure are followed
