@@ -6,9 +6,9 @@ and how the view moved since the last exposure.
   less than two real exposures differ by sensor noise and motion (measured on H.264 and mp4v clips:
   repeats 0.001-0.01 grey levels mean absolute difference at half resolution, distinct exposures
   0.07-4). A frame is a repeat when that mean is under 15 % of the median over recent exposures, or
-  when the tail of its differences (the 99.9th percentile) is under 0.3 of the upper quartile of
-  recent exposures' tails: a repeat re-coded in a noisy low-bitrate clip can differ from its original
-  by most of what two exposures differ by on average, but only by coding noise (measured on 640x360
+  when its mean is under half that median and the tail of its differences (the 99.9th percentile) is
+  under 0.3 of the upper quartile of recent exposures' tails: a repeat re-coded in a noisy low-bitrate clip can differ from its original
+  by half of what two exposures differ by on average, but only by coding noise (measured on 640x360
   H.264 at 800-900 kbit/s: tails of 1-8 grey levels for repeats, 31-51 for exposures). (A test on
   block means -- coding noise averages out over a block, motion does not -- also found those, but
   took for repeats the exposures of a clean clip in which only a small far ball moved, so it is not
@@ -74,12 +74,15 @@ class FrameGuard:
         typical = float(np.median(self._diffs)) if len(self._diffs) >= 3 else None
         if mean <= 1e-3 or (typical is not None and mean < self.repeat_fraction * typical):
             return FrameKind("repeat", IDENTITY, 0.0)
-        if len(self._tails) >= 3 and tail < 0.3 * float(np.percentile(self._tails, 75)):
-            # a repeat re-coded at a low bitrate: its mean difference from the original can reach most
+        if typical is not None and mean < 0.5 * typical and tail < 0.3 * float(np.percentile(self._tails, 75)):
+            # a repeat re-coded at a low bitrate: its mean difference from the original can reach half
             # of two exposures' (coding noise spread everywhere), but nothing in it differs much -- the
             # tail of the differences stays at the coding noise, where two exposures differ by tens of
             # grey levels wherever something moved. (The upper quartile of recent exposures' tails: a
-            # few repeats not yet recognised, at the start, do not drag it down.)
+            # few repeats not yet recognised, at the start, do not drag it down. The mean must be low
+            # too: in a clean clip where only a small ball moves, the tail of two exposures' differences
+            # is itself at the noise in many frames -- tested on tail alone, over half of such a
+            # clip's exposures were taken for repeats.)
             return FrameKind("repeat", IDENTITY, 0.0)
         big_change = max(20.0, 6.0 * typical) if typical is not None else None
         if big_change is not None and mean >= self.cut_share * big_change:  # necessary for a cut: cheap test first
