@@ -33,9 +33,10 @@ def _robust_line(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.array([slope, float(np.median(y - slope * x))])
 
 
-def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) -> float:
-    """Typical speed [m/s] the track would have if it were the ball: depth from the apparent
-    radius (f R / r, fitted by a straight line in time), sideways speed from the image motion."""
+def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None, percentile: float = 50.0) -> float:
+    """Speed [m/s] the track would have if it were the ball, at the given percentile over its points
+    (50: typical; 90: near its fastest): depth from the apparent radius (f R / r, fitted by a
+    straight line in time), sideways speed from the image motion."""
     ts, uv = tr.times(), tr.uv()
     r = np.array([p[2].radius_px for p in tr.points])
     tt = ts - ts.mean()
@@ -47,7 +48,7 @@ def world_speed(tr: _Track, focal_px: float, ball_radius_m: float, camera=None) 
     uc = [np.polyfit(tt, uv[:, k], min(3, len(ts) - 1)) for k in range(2)]
     du = np.hypot(np.polyval(np.polyder(uc[0]), tt), np.polyval(np.polyder(uc[1]), tt))
     lateral = du * np.maximum(d_s, 0.1) / (focal_px * mag)
-    return float(np.median(np.hypot(lateral, radial)))
+    return float(np.percentile(np.hypot(lateral, radial), percentile))
 
 
 def _blur_consistent(tr: _Track) -> bool:
@@ -122,9 +123,18 @@ def downward_acceleration(tr: _Track, camera, ball_radius_m: float, with_sigma: 
     return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
 
 
+def _extent_px(uv: np.ndarray) -> float:
+    """How far [px] a track reached: the diagonal of its points' bounding box. Its net displacement
+    (first to last point) would say nothing of a ball juggled or thrown straight up, which comes
+    back down where it rose; a blob jittering in place or a jump onto a parked blob reaches no
+    further by this measure than by that."""
+    return float(np.hypot(*np.ptp(uv, axis=0)))
+
+
 def _net_speed(tr: _Track) -> float:
+    """The track's reach (:func:`_extent_px`) over its duration [px/s]."""
     ts, uv = tr.times(), tr.uv()
-    return float(np.linalg.norm(uv[-1] - uv[0]) / max(ts[-1] - ts[0], 1e-9))
+    return _extent_px(uv) / max(ts[-1] - ts[0], 1e-9)
 
 
 def _path_smoothness_px(uv: np.ndarray) -> float:

@@ -115,6 +115,7 @@ class Detector:
         self._origin = np.eye(3)  # the caller's view motion at the reference frame
         self.k = 0
         self._kernel = np.ones((5, 5), np.uint8)
+        self._kernel3 = np.ones((3, 3), np.uint8)
         self._boxes = (None, None)  # half-resolution blob boxes of the last two frames
 
     @property
@@ -196,6 +197,17 @@ class Detector:
         self.thr = thr
         mask = cv2.compare(diff, thr, cv2.CMP_GT)
         contours, _ = cv2.findContours(mask, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+        noisy = len(contours) > 20 * self.max_candidates
+        first_mask = mask
+        for _ in range(2):
+            if len(contours) <= 20 * self.max_candidates:
+                break
+            # a threshold that splits the view into hundreds of blobs is below this frame's noise (a
+            # flicker, a burst of coding noise): look again at twice the threshold rather than give up
+            # the frame -- a ball that stands out well above the noise is still there
+            thr = cv2.add(thr, thr)
+            mask = cv2.compare(diff, thr, cv2.CMP_GT)
+            contours, _ = cv2.findContours(mask, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
         cands: list[Candidate] = []
         boxes = []
         if len(contours) <= 20 * self.max_candidates:
@@ -220,10 +232,14 @@ class Detector:
         # and slowly everywhere: places that always differ (edges that shake or resample, flicker)
         # must raise their own threshold even though they are always flagged
         cv2.accumulateWeighted(diff, self.dev, 0.5 * self.alpha)
-        if len(contours) > 20 * self.max_candidates:
+        if noisy:
             # a threshold that splits the view into hundreds of blobs is below the noise (the first
-            # guess in a noisy dim scene): the noise map takes half of this difference at once
-            cv2.accumulateWeighted(diff, self.dev, 0.5)
+            # guess in a noisy dim scene): the noise map takes half of this difference at once, but
+            # not inside solid blobs (what survives an opening of the mask: a large ball, a person),
+            # which are things, not noise -- a large ball there would raise its own threshold above
+            # its contrast for good
+            solid = cv2.dilate(cv2.morphologyEx(first_mask, cv2.MORPH_OPEN, self._kernel3), self._kernel)
+            cv2.accumulateWeighted(diff, self.dev, 0.5, mask=cv2.bitwise_not(solid))
         cv2.accumulateWeighted(small, self.bg_small, self.alpha, mask=keep)
         if self.k % 4 == 0 and self.T is not None:
             gray = self._to_ref(gray, self.T * [[1, 1, 2], [1, 1, 2]], (self.w, self.h))

@@ -5,11 +5,14 @@ and how the view moved since the last exposure.
   more; a re-encoded repeat differs from its original only by the encoder's small refinements, far
   less than two real exposures differ by sensor noise and motion (measured on H.264 and mp4v clips:
   repeats 0.001-0.01 grey levels mean absolute difference at half resolution, distinct exposures
-  0.07-4). A frame is a repeat when that mean is under 15 % of the median over recent exposures.
-  (Known gap: a repeat re-coded at a key frame in a noisy low-bitrate clip differs from its original
-  by as much as two exposures do; a test on block means -- coding noise averages out over a block,
-  motion does not -- found those, but also took for repeats the exposures of a clean clip in which
-  only a small far ball moved, so it is not used.)
+  0.07-4). A frame is a repeat when that mean is under 15 % of the median over recent exposures, or
+  when its mean is under half that median and the tail of its differences (the 99.9th percentile) is
+  under 0.3 of the upper quartile of recent exposures' tails: a repeat re-coded in a noisy low-bitrate clip can differ from its original
+  by half of what two exposures differ by on average, but only by coding noise (measured on 640x360
+  H.264 at 800-900 kbit/s: tails of 1-8 grey levels for repeats, 31-51 for exposures). (A test on
+  block means -- coding noise averages out over a block, motion does not -- also found those, but
+  took for repeats the exposures of a clean clip in which only a small far ball moved, so it is not
+  used.)
 * Scene cuts. Most of the picture changes at once: a large share of the half-resolution pixels
   differ by far more than the typical frame-to-frame change.
 * View motion (hand-held drift, slight pans). Corners (Shi-Tomasi) of the last exposure are followed
@@ -35,6 +38,12 @@ class FrameKind:
     moved_px: float  # how far the view centre moved since the last exposure [full-resolution px]
 
 
+def _tail_level(d: np.ndarray) -> float:
+    """The 99.9th percentile [grey levels] of an 8-bit difference image (from its histogram)."""
+    hist = cv2.calcHist([np.ascontiguousarray(d)], [0], None, [256], [0, 256]).ravel()
+    return float(np.searchsorted(np.cumsum(hist), 0.999 * d.size))
+
+
 class FrameGuard:
     """Stateful; call :meth:`check` with the half-resolution grey image of every decoded frame."""
 
@@ -44,6 +53,7 @@ class FrameGuard:
         self.motion = motion
         self._prev_small = None  # half-resolution grey of the last exposure
         self._diffs: list[float] = []  # mean absolute differences between recent exposures
+        self._tails: list[float] = []  # and the 99.9th percentile of those differences [grey levels]
         self._pts = None
         self._key = None  # key frame the corners were found in, and the view motion at it
         self._key_T = IDENTITY.copy()
@@ -58,9 +68,21 @@ class FrameGuard:
             self._prev_small = small
             return FrameKind("new", IDENTITY, 0.0)
         a, b = small[::4], self._prev_small[::4]  # every 4th row (a view: no copy) is plenty for a mean
-        mean = float(cv2.norm(a, b, cv2.NORM_L1)) / a.size
+        d = cv2.absdiff(a, b)
+        mean = float(cv2.sumElems(d)[0]) / a.size
+        tail = _tail_level(d)
         typical = float(np.median(self._diffs)) if len(self._diffs) >= 3 else None
         if mean <= 1e-3 or (typical is not None and mean < self.repeat_fraction * typical):
+            return FrameKind("repeat", IDENTITY, 0.0)
+        if typical is not None and mean < 0.5 * typical and tail < 0.3 * float(np.percentile(self._tails, 75)):
+            # a repeat re-coded at a low bitrate: its mean difference from the original can reach half
+            # of two exposures' (coding noise spread everywhere), but nothing in it differs much -- the
+            # tail of the differences stays at the coding noise, where two exposures differ by tens of
+            # grey levels wherever something moved. (The upper quartile of recent exposures' tails: a
+            # few repeats not yet recognised, at the start, do not drag it down. The mean must be low
+            # too: in a clean clip where only a small ball moves, the tail of two exposures' differences
+            # is itself at the noise in many frames -- tested on tail alone, over half of such a
+            # clip's exposures were taken for repeats.)
             return FrameKind("repeat", IDENTITY, 0.0)
         big_change = max(20.0, 6.0 * typical) if typical is not None else None
         if big_change is not None and mean >= self.cut_share * big_change:  # necessary for a cut: cheap test first
@@ -69,6 +91,7 @@ class FrameGuard:
                 self._reset(small)
                 return FrameKind("cut", IDENTITY, 0.0)
         self._diffs = (self._diffs + [mean])[-31:]
+        self._tails = (self._tails + [tail])[-31:]
         A = self._estimate_motion(small) if self.motion else IDENTITY
         self._prev_small = small
         c = np.array([w / 2, h / 2])
@@ -84,6 +107,7 @@ class FrameGuard:
         self.total_motion = IDENTITY.copy()
         self._key = None
         self._diffs = []
+        self._tails = []
 
     def _corners(self, img):
         """Up to 6 corners in each cell of a 4 x 4 grid: no single textured object (a person's shirt)

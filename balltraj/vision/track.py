@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .checks import (_blur_consistent, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
+from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
                      downward_acceleration, sideways_motion, smooth_enough, world_speed)
 from .detect import Candidate, lens_magnification
 from .trackpoints import _Track, cut_at_false_reacquisition, smooth_part, trim_strays
@@ -280,8 +280,11 @@ class Tracker:
         if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)):
             return False
         if self.focal_px and self.ball_radius_m:
-            ws = world_speed(tr, self.focal_px, self.ball_radius_m, self.camera)
-            if not self.min_ball_speed <= ws <= self.max_ball_speed:
+            # too fast by its typical speed; too slow only if never fast: a ball juggled or thrown
+            # up is slow near the top of its arc, for much of its track
+            if world_speed(tr, self.focal_px, self.ball_radius_m, self.camera) > self.max_ball_speed:
+                return False
+            if world_speed(tr, self.focal_px, self.ball_radius_m, self.camera, 90.0) < self.min_ball_speed:
                 return False
         if self.ball_radius_m:
             c = (self.w / 2, self.h / 2) if self.camera is None else (self.camera.K[0][2], self.camera.K[1][2])
@@ -392,7 +395,7 @@ class Tracker:
             if not tr.confirmed or len(tr.points) < min_points:
                 continue
             uv = tr.uv()
-            if np.linalg.norm(uv[-1] - uv[0]) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
+            if _extent_px(uv) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
                 continue
             if _scene_travel(tr) < 0.05 * np.hypot(self.w, self.h):
                 continue  # moved only with the view (a misregistered edge of a panned view): in place in the scene
@@ -400,7 +403,7 @@ class Tracker:
                 # (but a long throw's track may have begun on the hand before release: kept without
                 # those first points if the rest is smooth and still crosses a quarter of the view)
                 tr = smooth_part(tr, min_points)
-                if tr is None or np.linalg.norm(tr.uv()[-1] - tr.uv()[0]) < 0.25 * np.hypot(self.w, self.h):
+                if tr is None or _extent_px(tr.uv()) < 0.25 * np.hypot(self.w, self.h):
                     continue
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball

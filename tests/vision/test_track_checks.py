@@ -9,7 +9,8 @@ import math
 import numpy as np
 import pytest
 
-from balltraj.vision.checks import _speed_consistent, _streak_consistent, sideways_motion
+from balltraj.vision.checks import (_extent_px, _net_speed, _speed_consistent, _streak_consistent, sideways_motion,
+                                   world_speed)
 from balltraj.vision.detect import Candidate, Detector
 from balltraj.vision.pipeline import exposure_time
 from balltraj.vision.trackpoints import _Track, cut_at_false_reacquisition
@@ -130,3 +131,30 @@ def test_a_ball_touching_a_person_is_found_by_its_core():
     best = min(cands, key=lambda c: math.hypot(c.u - cu, c.v - cv))
     assert math.hypot(best.u - cu, best.v - cv) < 1.0
     assert best.radius_px == pytest.approx(r, rel=0.25)
+
+
+def test_reach_of_a_ball_that_comes_back_down_where_it_rose():
+    # invariant: a ball thrown straight up and caught where it left the hand has no net displacement,
+    # but it reached as high as it went
+    pts = [(i, i / 30, Candidate(320.0, 300.0 - 120 * math.sin(math.pi * i / 20), 20.0, 3.0, 0.0, 1200.0, 80.0))
+           for i in range(21)]
+    tr = _Track.of(pts)
+    assert np.hypot(*(tr.uv()[-1] - tr.uv()[0])) < 1e-9
+    assert _extent_px(tr.uv()) == pytest.approx(120.0, abs=1e-6)
+    assert _net_speed(tr) == pytest.approx(120.0 / (20 / 30), rel=1e-9)
+
+
+def test_world_speed_percentiles_of_a_ball_thrown_straight_up():
+    # Source: free fall, v(t) = v0 - g t (closed form). A ball thrown up at 4 m/s at a constant 5 m from
+    # the camera (constant apparent radius): its typical (median) speed is under 3 m/s, its speed
+    # near the fastest (90th percentile) over it -- the minimum-speed test must use the latter
+    f, R, Z, v0, g = 1000.0, 0.11, 5.0, 4.0, 9.81
+    ts = np.arange(0, 2 * v0 / g, 1 / 60)
+    r = f * R / Z
+    pts = [(i, t, Candidate(500.0, 400.0 - (v0 * t - 0.5 * g * t * t) * f / Z, r, 1.0, 0.0, 3 * r * r, 80.0))
+           for i, t in enumerate(ts)]
+    tr = _Track.of(pts)
+    speeds = np.abs(v0 - g * ts)
+    assert world_speed(tr, f, R) == pytest.approx(np.median(speeds), abs=0.02)
+    assert world_speed(tr, f, R, None, 90.0) == pytest.approx(np.percentile(speeds, 90), abs=0.02)
+    assert world_speed(tr, f, R) < 3.0 < world_speed(tr, f, R, None, 90.0)

@@ -1,0 +1,96 @@
+"""Tracking on short clips from the second, separately written renderer (tests/scene_outside.py), scored
+against that renderer's own truth (its integrator, camera and per-frame ball centre)."""
+import math
+
+import cv2
+import numpy as np
+import pytest
+from scene_outside import FOOTBALL, Lens, Person, Shot, Style, fly, render_shot
+
+from balltraj.camera.model import Camera, rotation_vector
+from balltraj.vision.clip import read_frames
+from balltraj.vision.frames import FrameGuard
+from balltraj.vision.pipeline import track_clip
+
+pytest.importorskip("av")
+
+
+def _scores(truth, res):
+    """(recall, precision): the share of distinct exposures with the ball in flight and wholly in view
+    that carry a flight observation within max(2 px, 0.5 r) of the true centre, and the share of
+    flight observations that are such a match (one on a repeated frame counts as wrong)."""
+    tt = np.array([r["t"] for r in truth])
+    hit, good, n = set(), 0, 0
+    for f in res.flights:
+        for t, (u, v) in zip(f.t, f.uv):
+            row = truth[int(np.argmin(np.abs(tt - t)))]
+            n += 1
+            if row["visible"] and not row["repeat"] and math.hypot(u - row["u"], v - row["v"]) <= max(2.0, 0.5 * row["r"]):
+                good += 1
+                hit.add(row["exposure"])
+    visible = {r["exposure"] for r in truth if r["visible"]}
+    return len(hit & visible) / max(1, len(visible)), good / max(1, n)
+
+
+def _camera(shot):
+    """The renderer's camera as balltraj's camera model (same axes: x right, y down, z forward)."""
+    lens = shot.lens
+    rot = lens.rotation()
+    k = [[lens.f, 0, lens.centre[0]], [0, lens.f, lens.centre[1]], [0, 0, 1]]
+    return Camera("outside", lens.size, np.array(k), np.array([lens.k1, lens.k2, 0, 0, 0]), rotation_vector(rot),
+                  -rot @ np.asarray(lens.pos), readout_s=shot.readout)
+
+
+def juggle_shot():
+    """A football juggled in front of a fixed camera in a dim room with mains flicker: a 45-px ball rising
+    and falling where it rose, 30 frames/s, H.264."""
+    kicks = ((0.32, (-0.12, 0.05, 3.7)), (0.32, (0.15, -0.05, 3.9)))
+    p0, v0 = (0.05, -0.25, 0.32), (0.08, 0.0, 3.8)
+    tt, _, seg = fly(FOOTBALL, p0, v0, 0.15, 2.0, kicks)
+    juggler = Person(-0.38, 0.45, 0, 0, 1.78, (0.1, 0.25, 0.6), (0.05, 0.05, 0.07), cadence=0.8, stride=0.0,
+                     arm_swing=0.4, kicks=(0.1,) + tuple(tt[1:][np.diff(seg) > 0]))
+    return Shot(Lens((640, 360), 550, (0, -2.9, 0.6), pitch=10, k1=-0.04), FOOTBALL, p0, v0, 0.15, 1.9, 30, 30,
+                shutter=1 / 100, readout=0.028, kicks=kicks, style=Style("floor", "dark", 4.0, sun=(0.3, -0.5, 0.8)),
+                people=(juggler,), flicker=0.03, read_noise=0.012, bitrate=1_500_000, seed=21)
+
+
+def test_a_large_ball_juggled_in_a_dark_room_is_found(tmp_path):
+    # the flicker and coding noise split the first frames' difference into hundreds of blobs (a frame
+    # given up whole, the noise map raised inside the ball), and each arc comes back down where it
+    # began (no net displacement)
+    path = tmp_path / "juggle.mp4"
+    shot = juggle_shot()
+    truth = render_shot(shot, path)
+    assert 40 < 2 * max(r["r"] for r in truth if r["visible"]) < 55  # Source: the renderer's own radius
+    recall, precision = _scores(truth, track_clip(path, None, FOOTBALL.radius_m))
+    # (measured: recall 0.60, precision 0.78 -- the centroid of a ball lit from above sits 4-8 px above the
+    # true centre, its shadowed lower half hardly differing from the dark room; before the detector's
+    # retry of noisy frames and the reach test: recall 0.15, precision 0.73)
+    assert recall >= 0.45 and precision >= 0.7, (recall, precision)
+    # with the renderer's camera as a camera file: the ball is slow near the top of each arc, for much
+    # of its track, but fast at its ends (measured: recall 0.42, precision 0.71; when its typical
+    # speed had to pass 3 m/s: no flight)
+    recall, precision = _scores(truth, track_clip(path, _camera(shot), FOOTBALL.radius_m))
+    assert recall >= 0.3 and precision >= 0.6, (recall, precision)
+
+
+def test_low_bitrate_repeats_are_recognised(tmp_path):
+    # 12 images a second shown unevenly at 29.97 frames/s (each repeated 1-4 times), hand-held, H.264 at
+    # 900 kbit/s: a re-coded repeat differs from its original by up to most of what two exposures differ
+    # by on average, but nowhere by much
+    shot = Shot(Lens((640, 360), 520, (0, -1.0, 1.2), pitch=8, k1=-0.06), FOOTBALL, (-3.0, 9.0, 0.11),
+                (5.0, 0.3, 9.0), 0.2, 1.4, 12, 30000 / 1001, shutter=1 / 250, readout=0.03, uneven=0.35,
+                style=Style("grass", "trees", 35.0), shake_px=0.6,
+                people=(Person(2.0, 12.0, -1.4, 0, shirt=(0.7, 0.7, 0.2)),), bitrate=900_000, seed=23)
+    path = tmp_path / "uneven.mp4"
+    truth = render_shot(shot, path)
+    guard = FrameGuard()
+    kinds = [guard.check(cv2.resize(g, (g.shape[1] // 2, g.shape[0] // 2), interpolation=cv2.INTER_AREA)).kind
+             for _, _, g in read_frames(path, grey=True)]
+    # Source: the renderer's own record of which frames repeat the exposure before
+    rep = np.array([r["repeat"] for r in truth])
+    found = np.array([k == "repeat" for k in kinds])
+    assert len(rep) == len(found)
+    # (measured: 18 of the 25 repeats found, none of the 17 exposures taken for one; by the mean difference
+    # alone, 4 of 25)
+    assert found[rep].mean() >= 0.6 and not found[~rep].any(), (found[rep].mean(), np.flatnonzero(found & ~rep))
