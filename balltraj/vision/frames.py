@@ -29,6 +29,10 @@ import cv2
 import numpy as np
 
 IDENTITY = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])
+# Most inexact repeats in a row that frame-rate conversion makes (12 images a second shown at 29.97
+# repeat an image up to 3 times; 24 -> 60 and 25 -> 30 once or twice) (common practice). Exact repeats have no
+# limit; after a run this long the frame is taken for an exposure (a busy stretch that ended, not a repeat).
+MAX_REPEAT_RUN = 3
 
 
 @dataclass(frozen=True)
@@ -58,6 +62,7 @@ class FrameGuard:
         self._key = None  # key frame the corners were found in, and the view motion at it
         self._key_T = IDENTITY.copy()
         self._still = 0  # consecutive checks that found the view standing still
+        self._run = 0  # consecutive frames taken for inexact repeats
         self._k = 0
         self.total_motion = IDENTITY.copy()  # first exposure -> current (half-resolution px)
         self.max_moved_px = 0.0  # largest displacement of the view centre from the first frame [px]
@@ -71,19 +76,18 @@ class FrameGuard:
         d = cv2.absdiff(a, b)
         mean = float(cv2.sumElems(d)[0]) / a.size
         tail = _tail_level(d)
+        if mean <= 1e-3:
+            return FrameKind("repeat", IDENTITY, 0.0)
         typical = float(np.median(self._diffs)) if len(self._diffs) >= 3 else None
-        if mean <= 1e-3 or (typical is not None and mean < self.repeat_fraction * typical):
-            return FrameKind("repeat", IDENTITY, 0.0)
-        if typical is not None and mean < 0.5 * typical and tail < 0.3 * float(np.percentile(self._tails, 75)):
-            # a repeat re-coded at a low bitrate: its mean difference from the original can reach half
-            # of two exposures' (coding noise spread everywhere), but nothing in it differs much -- the
-            # tail of the differences stays at the coding noise, where two exposures differ by tens of
-            # grey levels wherever something moved. (The upper quartile of recent exposures' tails: a
-            # few repeats not yet recognised, at the start, do not drag it down. The mean must be low
-            # too: in a clean clip where only a small ball moves, the tail of two exposures' differences
-            # is itself at the noise in many frames -- tested on tail alone, over half of such a
-            # clip's exposures were taken for repeats.)
-            return FrameKind("repeat", IDENTITY, 0.0)
+        if typical is not None and self._looks_repeated(mean, tail, typical):
+            if self._run < MAX_REPEAT_RUN:
+                self._run += 1
+                return FrameKind("repeat", IDENTITY, 0.0)
+            # more inexact repeats in a row than frame-rate conversion makes: the scene has calmed down
+            # since the recent exposures (a person walked out of view, flicker stopped), so their
+            # differences are no measure any more -- this frame is an exposure, and the measure restarts
+            self._diffs, self._tails, typical = [], [], None
+        self._run = 0
         big_change = max(20.0, 6.0 * typical) if typical is not None else None
         if big_change is not None and mean >= self.cut_share * big_change:  # necessary for a cut: cheap test first
             _, big = cv2.threshold(cv2.absdiff(small, self._prev_small), big_change, 255, cv2.THRESH_BINARY)
@@ -101,6 +105,19 @@ class FrameGuard:
         self.max_moved_px = max(self.max_moved_px,
                                 2.0 * float(np.hypot(*(self.total_motion[:, :2] @ c + self.total_motion[:, 2] - c))))
         return FrameKind("new", A, moved)
+
+    def _looks_repeated(self, mean: float, tail: float, typical: float) -> bool:
+        """A frame that repeats the last exposure inexactly: far less changed than exposures usually
+        differ, or a repeat re-coded at a low bitrate -- its mean difference from the original can reach
+        half of two exposures' (coding noise spread everywhere), but nothing in it differs much: the
+        tail of the differences stays at the coding noise, where two exposures differ by tens of grey
+        levels wherever something moved. (The upper quartile of recent exposures' tails: a few repeats
+        not yet recognised, at the start, do not drag it down. The mean must be low too: in a clean clip
+        where only a small ball moves, the tail of two exposures' differences is itself at the noise in
+        many frames -- tested on tail alone, over half of such a clip's exposures were taken for repeats.)"""
+        if mean < self.repeat_fraction * typical:
+            return True
+        return mean < 0.5 * typical and tail < 0.3 * float(np.percentile(self._tails, 75))
 
     def _reset(self, small):
         self._prev_small = small

@@ -94,3 +94,26 @@ def test_low_bitrate_repeats_are_recognised(tmp_path):
     # (measured: 18 of the 25 repeats found, none of the 17 exposures taken for one; by the mean difference
     # alone, 4 of 25)
     assert found[rep].mean() >= 0.6 and not found[~rep].any(), (found[rep].mean(), np.flatnonzero(found & ~rep))
+
+
+def test_no_exposure_is_taken_for_a_repeat_once_a_busy_stretch_ends():
+    # A large bright shape (a person) leaves a noisy textured view while a small ball flies on: the
+    # recent exposures' differences were large, so every later exposure looks calm beside them. Before
+    # the run limit every frame after the person left was taken for a repeat (52 of 52). Invariant: no
+    # frame is repeated here at all, so at most MAX_REPEAT_RUN exposures may be lost, once.
+    from balltraj.vision.frames import MAX_REPEAT_RUN
+    rng = np.random.default_rng(1)
+    h, w = 360, 640
+    scene = cv2.GaussianBlur(rng.uniform(40, 200, (h, w)).astype(np.float32), (0, 0), 2)
+    guard = FrameGuard(motion=False)
+    kinds = []
+    for k in range(70):
+        img = scene.copy()
+        x = 300 + 20 * k
+        if x < w:
+            img[100:340, x:x + 60] = 210
+        cv2.circle(img, (int(80 + 7 * k), int(250 - 5 * k + 0.12 * k * k)), 4, 250, -1)
+        img = np.clip(img + rng.normal(0, 2.0, img.shape), 0, 255).astype(np.uint8)
+        kinds.append(guard.check(img).kind)
+    assert kinds.count("repeat") <= MAX_REPEAT_RUN, "".join(k[0] for k in kinds)
+    assert all(k == "new" for k in kinds[-40:])
