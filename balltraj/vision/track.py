@@ -23,12 +23,13 @@ from .trackpoints import _Track, cut_at_false_reacquisition, smooth_part, trim_s
 
 
 def _scene_travel(tr: _Track) -> float:
-    """How far [px] the track moved in the scene (the view's own motion undone) from its first point
-    to its last; inf where the view did not move (nothing to undo)."""
-    a, b = tr.points[0][2], tr.points[-1][2]
-    if a.u_scene is None or b.u_scene is None:
+    """How far [px] the track reached in the scene (the view's own motion undone): the diagonal of the
+    box around its scene positions, so a ball that comes back down where it rose (a juggle, an up-down
+    throw filmed hand-held) still reaches; inf where the view did not move (nothing to undo)."""
+    pts = [(c.u_scene, c.v_scene) for _, _, c in tr.points if c.u_scene is not None]
+    if len(pts) < 2:
         return np.inf
-    return float(np.hypot(b.u_scene - a.u_scene, b.v_scene - a.v_scene))
+    return _extent_px(np.asarray(pts, float))
 
 
 @dataclass(frozen=True)

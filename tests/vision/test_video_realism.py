@@ -224,5 +224,11 @@ def test_a_track_that_stays_in_place_in_the_scene_is_not_a_flight():
 
     assert _scene_travel(track(False)) < 1e-9
     assert abs(_scene_travel(track(True)) - np.hypot(110, 44)) < 1e-6
+    # a ball thrown up and caught where it rose, filmed hand-held: back at its start in the scene, but it
+    # reached 60 px up (its first-to-last travel would be 0)
+    up_down = _Track.of([(i, i / 30, Candidate(600.0 - 10 * i, 300.0, 5.0, 2.0, 0.0, 78.0, 60.0,
+                                               u_scene=640.0, v_scene=300.0 - 60 * (1 - ((i - 6) / 6) ** 2)))
+                         for i in range(13)])
+    assert abs(_scene_travel(up_down) - 60.0) < 1e-6
     still_view = _Track.of([(i, i / 30, Candidate(600.0 - 10 * i, 300.0, 5.0, 2.0, 0.0, 78.0, 60.0)) for i in range(5)])
     assert _scene_travel(still_view) == np.inf  # the view never moved: nothing to undo
