@@ -9,8 +9,8 @@ Per clip: the scale error (median r / r_true - 1), the per-frame scatter (1.4826
 r_true) [px], the share of refined frames within their stated one-sigma of the truth, and the wall time of
 tracking with and without the refinement against decoding alone (same run, same file).
 
-Fixed-camera shots of bench_track_outside.py (their camera file applies), seeds 0 and 1.
-Run: PYTHONPATH=$PWD python tests/benchmarks/bench_ball_size.py [--no-publish]
+Fixed-camera shots of bench_track_outside.py (their camera file applies), seeds 0 and 1 (or --seeds 0,...).
+Run: PYTHONPATH=$PWD python tests/benchmarks/bench_ball_size.py [--no-publish] [--seeds 0]
 """
 import sys
 import tempfile
@@ -77,13 +77,16 @@ def _cell(s, key, fmt):
     return "–" if s is None else fmt.format(s[key])
 
 
+SEEDS = [int(k) for k in sys.argv[sys.argv.index("--seeds") + 1].split(",")] if "--seeds" in sys.argv else [0, 1]
+
+
 def main():
     rows = []
     with tempfile.TemporaryDirectory() as d:
         for i, (name, shot) in enumerate(shots()):
             if shot.follow or shot.shake_px > 0.5:
                 continue  # hand-held: no camera file applies
-            for k in (0, 1):
+            for k in SEEDS:
                 r = run_clip(replace(shot, seed=shot.seed + 100 * k), Path(d) / f"size{i}_{k}.mp4")
                 rows.append(f"| {name} (seed {k}) | {r['r'][0]:.1f}–{r['r'][1]:.1f} | {r['n_ref']}/{r['n']} | "
                             f"{_cell(r['det'], 'scale', '{:+.1%}')} ({_cell(r['det'], 'noise', '{:.2f}')}) | "
@@ -92,7 +95,8 @@ def main():
                 print(rows[-1], flush=True)
     lines = ["The ball's apparent radius on clips of the second renderer (tests/scene_outside.py), fixed-camera shots "
              "tracked with their camera file; truth the renderer's radius (f R / depth times its lens magnification). "
-             "Command: `PYTHONPATH=$PWD python tests/benchmarks/bench_ball_size.py`", "",
+             f"Command: `PYTHONPATH=$PWD python tests/benchmarks/bench_ball_size.py --seeds {','.join(map(str, SEEDS))}`",
+             "",
              "| shot | true radius px | frames refined / on the ball | detector: scale (scatter px) | refined: scale "
              "(scatter px) | refined within one sigma | wall time / decode only: tracking / tracking + refinement |",
              "|---|---|---|---|---|---|---|", *rows]
