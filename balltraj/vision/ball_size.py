@@ -151,6 +151,13 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     e = np.asarray(direction, float)
     e = e / max(float(np.hypot(*e)), 1e-9)
     c0, r0 = np.asarray(centre_guess, float), float(radius_guess)
+    if background is not None:  # start from the area that differs from the background (the dim limb included)
+        d_full = z_img - np.asarray(background, float)
+        dev = np.abs(d_full - np.median(d_full))
+        sd = max(1.0, 1.4826 * float(np.median(dev)))
+        near = np.hypot(xs - c0[0], ys - c0[1]) < 2.0 * r0 + 0.5 * blur_guess + 2
+        r_area = math.sqrt(float(((dev > 3 * sd) & near).sum()) / math.pi)
+        r0 = max(r0, min(r_area, 1.5 * r0))
     # every pixel near the edge (where centre and radius are decided), every third one elsewhere
     rel0 = X - c0
     along = np.clip(rel0 @ e, -0.5 * blur_guess, 0.5 * blur_guess)
@@ -240,9 +247,7 @@ def _light_guess(X, z, c, r):
     a = np.linalg.lstsq(A, z[m], rcond=None)[0][1:]
     if np.linalg.norm(a) < 1e-9:
         return 0.5, 0.0
-    if a[2] < 0:  # a ball darker than its background: the lit side is the less dark one
-        a = -a
-    a = a / np.linalg.norm(a)
+    a = a / np.linalg.norm(a)  # brightness grows toward the light whatever the background (no sign flip)
     return min(math.acos(float(np.clip(a[2], -1, 1))), 0.55 * math.pi), math.atan2(a[1], a[0])
 
 

@@ -102,3 +102,46 @@ def test_lens_magnification_matches_the_projected_size_of_a_small_circle():
         assert lens_magnification(cam, np.array(uv, float)) == pytest.approx(m, rel=1e-4)
     assert lens_magnification(cam, np.array([480.0, 270.0])) == pytest.approx(1.0, abs=1e-3)
     assert lens_magnification(cam, np.array([900.0, 500.0])) < 0.99  # barrel: smaller toward the corner
+
+
+def test_refined_radii_of_a_clip_carry_the_lens_magnification_out(tmp_path):
+    # round trip: a clip of the independently rendered ball, read back through the codec, refined through a
+    # camera whose lens shrinks the image where the ball is; the refined radius times the lens's local
+    # magnification at its centre is the ball's pixel radius (the renderer's), the refined one f R / depth
+    from types import SimpleNamespace
+
+    import cv2
+
+    from balltraj.vision.ball_size import REFINED, refine_flight_radii
+
+    frames, truth, _ = _clip(6.0, seed=7)
+    h, w = frames[0].shape
+    path = tmp_path / "ball.avi"
+    out = cv2.VideoWriter(str(path), cv2.VideoWriter_fourcc(*"FFV1"), 240.0, (w, h))  # lossless
+    for f in frames:
+        out.write(cv2.cvtColor(f, cv2.COLOR_GRAY2BGR))
+    out.release()
+    cam = look_at_camera("c", np.array([0.0, -5.0, 1.0]), [0.0, 0.0, 1.0], 70, (w, h), dist=(-0.25, 0.05, 0, 0, 0))
+    n = len(frames)
+    flight = SimpleNamespace(t=truth["t"], frame=np.arange(n), uv=truth["centres"], radius_px=np.full(n, 5.2),
+                             streak_px=np.zeros(n))
+    ref = refine_flight_radii(path, [flight], cam)[0]
+    ok = ref.source == REFINED
+    assert ok.sum() >= 6
+    mag = lens_magnification(cam, truth["centres"])
+    assert mag.min() < 0.93  # the lens matters here
+    assert np.median(ref.radius_px[ok] * mag[ok]) == pytest.approx(6.0, rel=0.04)
+    assert np.median(ref.radius_px[ok] / 6.0) > 1.0 / np.median(mag[ok]) - 0.04  # f R / depth: the shrinking undone
+    assert np.all(np.isfinite(ref.radius_sigma_px[ok])) and np.all(ref.radius_sigma_px[ok] > 0)
+
+
+def test_depth_warning_names_the_radius_method():
+    # invariant: with the apparent size alone the warning says how large the size error can be, by method
+    from balltraj.camera.anchors import choose_anchor
+    from balltraj.pipeline_depth import depth_warnings
+
+    alone = choose_anchor(radii_observed=True)
+    assert alone.name == "apparent size"
+    edge = " ".join(depth_warnings(alone, {"refined": 90, "scaled": 5, "kept": 5}))
+    blob = " ".join(depth_warnings(alone, {"method": "detector"}))
+    assert "edge" in edge and "quarter" not in edge and "quarter" in blob
