@@ -289,7 +289,9 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
         rec["clip"] = {"path": str(clip.path), "flight": f.flight, "frames": len(f.t), "bounce": f.bounce,
                        "end_reason": f.end_reason}
         rec["depth_anchor"] = anchor_section
-        rec["warnings"] = list(rec.get("warnings", [])) + depth_warnings(anchor)
+        radius = res.radii[i].summary() if res.radii else None  # how the apparent radii were measured
+        rec["clip"]["radius"] = radius or {"method": "detector"}
+        rec["warnings"] = list(rec.get("warnings", [])) + depth_warnings(anchor, radius)
         records.append(rec)
     if not records:
         raise InputError("the tracked flight(s) could not be fitted: " + "; ".join(failures), path=str(clip.path),

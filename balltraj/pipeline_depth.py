@@ -20,7 +20,8 @@ from .camera.model import Camera
 from .vision.resting import clear_of_rest_spot, depth_anchor
 
 # The apparent size is only a loose check of a zone: the detector's radius was measured 24 % small to 1 %
-# large on rendered balls (shading, blur; docs/validation.md, one camera), so a zone is refused only when
+# large on rendered balls (shading, blur; docs/validation.md, one camera; the edge-fit radius of
+# vision/ball_size.py is closer, but a flight may keep detector radii where it fails), so a zone is refused only when
 # the ball looks more than 40 % off the size of a ball there (it then tells an 11 m kick from a 20 m one).
 ZONE_RADIUS_GATE = 0.40
 ZONE_RAY_M = 0.10  # the rays of the backward-extended path must pass within 3 zone sigmas + this [m]
@@ -142,18 +143,26 @@ def flight_anchor(clip, camera: Camera, ball_radius_m: float, f, previous=None, 
 __all__ = ["template_zone", "flight_anchor", "depth_warnings"]
 
 
-def depth_warnings(anchor) -> list[str]:
+def depth_warnings(anchor, radius: dict | None = None) -> list[str]:
     """Warnings for a one-camera flight whose depth rests on the ball's apparent size alone.
 
-    The radius the detector reads on small, shaded or blurred balls was measured 10-26 % small on
-    independently rendered clips (docs/validation.md, one camera), and the fit's radius-scale prior is
-    6 %: beyond it the launch speed can be off by tens of per cent with a sigma that does not show it."""
+    ``radius``: the flight's radius summary (``RadiusRefinement.summary()``), None when the radii were
+    not refined. The detector's radius on small, shaded or blurred balls was measured 10-26 % small on
+    independently rendered clips, the edge-fit radius (``vision/ball_size.py``) within 5 % on both
+    renderers for balls of 2.5 px radius and more (docs/validation.md, one camera); the fit's radius-scale prior is 6 %: beyond it the
+    launch speed can be off by tens of per cent with a sigma that does not show it."""
     if anchor.name == "none":
         return ["nothing fixes the depth along the camera's line of sight (no ball at rest, bounce, field template, "
                 "start point or measured ball size): the launch speed and the deflection are rough; film the ball "
                 "at rest before the kick or throw, or add a second camera"]
     if anchor.name != "apparent size":
         return []
+    if radius is not None and radius.get("refined", 0) >= 0.5 * max(1, sum(radius.get(k, 0) for k in
+                                                                         ("refined", "scaled", "kept"))):
+        return ["the depth along the camera's line of sight rests on the ball's apparent size alone (measured from "
+                "its edge): a few per cent of size error is a few per cent of launch speed; film the ball at rest "
+                "before the kick or throw, calibrate the camera on a field template, give --start-near, or add a "
+                "second camera"]
     return ["the depth along the camera's line of sight rests on the ball's apparent size alone: on a small, "
             "shaded or blurred ball the measured size can be a quarter too small, and the launch speed then tens "
             "of per cent off beyond its stated uncertainty; film the ball at rest before the kick or throw, "

@@ -3,13 +3,14 @@
 from __future__ import annotations
 
 from contextlib import contextmanager
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import cv2
 import numpy as np
 
 from ..camera.model import Camera
 from ..errors import InputError
+from .ball_size import RadiusRefinement, apply_refinement, refine_flight_radii
 from .clip import clip_info, read_frames
 from .detect import Detector, radius_gate_map
 from .frames import FrameGuard
@@ -25,6 +26,7 @@ class TrackResult:
     width: int
     height: int
     warnings: list[str]
+    radii: list[RadiusRefinement] = field(default_factory=list)  # per flight, when the radii were refined
 
 
 @contextmanager
@@ -43,7 +45,7 @@ def _opencv_single_threaded():
 @_opencv_single_threaded()
 def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None = None, *,
                capture_fps: float | None = None, start_s: float = 0.0, end_s: float | None = None,
-               progress=None, overlay_path=None, on_exposure=None) -> TrackResult:
+               progress=None, overlay_path=None, on_exposure=None, refine_radius: bool = True) -> TrackResult:
     """Find and link the ball in a clip.
 
     Every frame is read as the decoder's luma plane (the same pixels whether or not an overlay is
@@ -53,7 +55,9 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
 
     ``overlay_path``: also write a video with each flight in its own colour, its number and time,
     and rejected candidates drawn faintly (a second decoding pass). ``on_exposure(frame_index,
-    time_s, candidates)``, if given, is called for every exposure.
+    time_s, candidates)``, if given, is called for every exposure. ``refine_radius`` (with a camera):
+    each flight's apparent radii are measured again from the ball's edge (``ball_size.py``, one more
+    decoding pass over the flights' frames); ``TrackResult.radii`` says which were.
     """
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):
@@ -108,6 +112,11 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         if progress is not None and n % 16 == 0:
             progress(n, info.frame_count)
     flights = [replace(f, frame=np.asarray(frame_of)[f.frame]) for f in trk.finish()]
+    radii = []
+    if refine_radius and camera is not None and flights:  # hook: the radius from the ball's edge (ball_size.py)
+        radii = refine_flight_radii(path, flights, camera, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
+                                    view_moved=moved_px > 0.5)
+        flights = apply_refinement(flights, radii)
     if overlay_path is not None:
         write_overlay(path, overlay_path, flights, log, fps=info.nominal_fps, start_s=start_s, end_s=end_s,
                       capture_fps=capture_fps)
@@ -132,7 +141,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     elif 0 < fps_m < 90 and capture_fps is None:
         warnings.append(f"the clip runs at {fps_m:.0f} frames/s; 120 or 240 frames/s tracks fast balls far better"
                         " (for slow-motion files stored time-stretched, give --capture-fps)")
-    return TrackResult(flights, n, fps_m, info.width, info.height, warnings)
+    return TrackResult(flights, n, fps_m, info.width, info.height, warnings, radii)
 
 
 def _in_scene(cands, motion):

@@ -138,12 +138,13 @@ def kick(rng, ball):
     return np.concatenate([rest, v]), spin
 
 
-def detector_radius_errors():
-    """Per-clip (scale, per-frame noise [px]) of the detector's apparent radii, measured on independently
+def detector_radius_errors(name="detector_radius_errors.json"):
+    """Per-clip (scale, per-frame noise [px]) of the detector's apparent radii (or, with
+    ``refined_radius_errors.json``, of the edge-fit radii the flights now carry), measured on independently
     rendered balls (``bench_single_camera.py detector-radius``, tests/scene_realism.py); None when the file
     has not been made."""
     import json
-    p = Path(__file__).resolve().parent / "detector_radius_errors.json"
+    p = Path(__file__).resolve().parent / name
     if not p.is_file():
         return None
     rows = [c for c in json.loads(p.read_text())["clips"] if "scale" in c]
@@ -223,7 +224,9 @@ def run(n):
     rng = np.random.default_rng(20261202)
     rows = {}
     measured = detector_radius_errors()
+    refined = detector_radius_errors("refined_radius_errors.json")
     rng_det = np.random.default_rng(20261203)  # its own stream: the other rows keep their draws with or without it
+    rng_ref = np.random.default_rng(20261204)  # and the refined radii theirs
     tmp = Path(tempfile.mkdtemp(prefix="bench_single_"))
     t_start = time.perf_counter()
     for k in range(n):
@@ -232,7 +235,8 @@ def run(n):
         sol = sols["same"]
         for label, cam in cameras(rng).items():
             e = rows.setdefault(label, {"rest": [], "none": [], "other rest": [], "other none": [], "prior-sized": [],
-                                        "detector-sized": [], "detector-sized rest": [], "found": 0, "why": []})
+                                        "detector-sized": [], "detector-sized rest": [], "refined-sized": [],
+                                        "refined-sized rest": [], "found": 0, "why": []})
             rest = s0[:3]
 
             def pos(tt, sol=sol, rest=rest):
@@ -277,6 +281,13 @@ def run(n):
                 if found.ball is not None:
                     a = choose_anchor(resting=found.ball.anchor)
                     e["detector-sized rest"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions(
+                        start_near=a.start_near_m, start_sigma=a.start_sigma_m))[0])
+            if refined is not None:  # radius errors as the edge fit (vision/ball_size.py) makes them on the same clips
+                t, uv, r, _ = observations_detector_sized(cam, sol, R, rng_ref, refined)
+                e["refined-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
+                if found.ball is not None:
+                    a = choose_anchor(resting=found.ball.anchor)
+                    e["refined-sized rest"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions(
                         start_near=a.start_near_m, start_sigma=a.start_sigma_m))[0])
         print(f"kick {k + 1}/{n} done, {time.perf_counter() - t_start:.0f} s", flush=True)
     return rows
@@ -466,6 +477,16 @@ def main():
         lines += _accuracy_rows(rows, (("detector-sized rest", "ball at rest (ground contact)"),
                                        ("detector-sized", "nothing (apparent size)")), n)
         lines += ["", f"Detector-sized radius errors, no anchor, all cameras pooled: {_pooled(rows, 'detector-sized')}."]
+    refined = detector_radius_errors("refined_radius_errors.json")
+    if refined is not None:
+        lines += ["", f"Radius errors as the edge fit makes them (`vision/ball_size.py`, what tracked flights now carry): "
+                  f"the scale error and per-frame scatter of one of {len(refined)} clips, the same scene_realism penalty "
+                  f"kicks (scale {100 * refined[:, 0].min():+.1f} to {100 * refined[:, 0].max():+.1f} %, scatter "
+                  f"{refined[:, 1].min():.2f}-{refined[:, 1].max():.2f} px; tests/benchmarks/refined_radius_errors.json, "
+                  "made by `bench_single_camera.py detector-radius 4`).", "", *HEAD]
+        lines += _accuracy_rows(rows, (("refined-sized rest", "ball at rest (ground contact)"),
+                                       ("refined-sized", "nothing (apparent size)")), n)
+        lines += ["", f"Refined-sized radius errors, no anchor, all cameras pooled: {_pooled(rows, 'refined-sized')}."]
     lines += ["", f"The same kicks flown with other published laws (drag crisis C_D 0.45 → 0.15 at Re 3.0e5, Asai "
               "et al. 2007; saturating lift C_L = 1/(2.022 + 0.981/S), Stepanek 1988), fitted with the soccer "
               "ball's catalogue laws (crisis 0.47 → 0.20 at 2.6e5, C_L = S); deflection truth against the no-spin "
