@@ -227,6 +227,10 @@ class Detector:
         self._boxes = (self._boxes[1], set(boxes))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
         # everywhere so that objects put down for good join the background
+        # (from the last threshold's mask, after a retry: the first threshold's mask, which would keep a
+        # ball's dim parts between the two thresholds out of the background too, was tried and lost the
+        # juggled ball in a dark room -- recall 65 % -> 31 % in tests/vision/test_track_outside.py: it
+        # also freezes the background across much of a noisy view)
         keep = cv2.bitwise_not(cv2.dilate(mask, self._kernel))
         cv2.accumulateWeighted(diff, self.dev, 2 * self.alpha, mask=keep)
         # and slowly everywhere: places that always differ (edges that shake or resample, flicker)

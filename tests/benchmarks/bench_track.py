@@ -49,7 +49,9 @@ def main():
             c_dec.append(time.process_time() - c0)
             t_dec.append(t)
             t0, c0 = time.perf_counter(), time.process_time()
-            res = track_clip(clip, cam, model.radius_m)
+            # tracking alone: the edge-fit radius pass that follows with a camera (``refine_radius``) has
+            # its own cost figures in bench_ball_size.py
+            res = track_clip(clip, cam, model.radius_m, refine_radius=False)
             t_trk.append(time.perf_counter() - t0)
             c_trk.append(time.process_time() - c0)
         t_dec, t_trk, c_dec, c_trk = min(t_dec), min(t_trk), min(c_dec), min(c_trk)
