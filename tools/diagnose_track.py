@@ -4,6 +4,7 @@ off was the nearest one, and did a flight carry it.
 
 Run: PYTHONPATH=$PWD python tools/diagnose_track.py outside 0 [--seed 0] [--every 1]
      PYTHONPATH=$PWD python tools/diagnose_track.py realism 3
+     PYTHONPATH=$PWD python tools/diagnose_track.py juggle
 """
 
 from __future__ import annotations
@@ -38,12 +39,44 @@ def _shot(kind: str, i: int, seed: int):
     return name, shot, render_shot, shot.ball.radius_m
 
 
+class _Usage(Exception):
+    pass
+
+
+def _arguments(argv: list[str]):
+    """(kind, clip index, seed, every) from the command line; _Usage with a one-line reason if bad."""
+    def number(flag, default):
+        if flag not in argv:
+            return default
+        j = argv.index(flag) + 1
+        if j >= len(argv) or not argv[j].isdigit():
+            raise _Usage(f"{flag} needs a whole number")
+        return int(argv[j])
+
+    if not argv or argv[0] not in ("outside", "realism", "juggle"):
+        raise _Usage("the first argument must be outside, realism or juggle")
+    kind = argv[0]
+    if kind == "juggle":
+        i = 0
+    else:
+        if len(argv) < 2 or not argv[1].isdigit():
+            raise _Usage(f"{kind} needs a clip number (0, 1, ...)")
+        i = int(argv[1])
+        if kind == "outside":
+            import bench_track_outside as b
+            n = len(b.shots())
+        else:
+            import bench_track_realism as b
+            n = len(b.shots())
+        if i >= n:
+            raise _Usage(f"{kind} has clips 0 to {n - 1}, not {i}")
+    return kind, i, number("--seed", 0), max(1, number("--every", 1))
+
+
 def main(argv: list[str]) -> int:
     from balltraj.vision.pipeline import track_clip
 
-    kind, i = argv[0], int(argv[1])
-    seed = int(argv[argv.index("--seed") + 1]) if "--seed" in argv else 0
-    every = int(argv[argv.index("--every") + 1]) if "--every" in argv else 1
+    kind, i, seed, every = _arguments(argv)
     name, shot, render, radius_m = _shot(kind, i, seed)
     with tempfile.TemporaryDirectory() as d:
         path = Path(d) / "clip.mp4"
@@ -84,4 +117,8 @@ def main(argv: list[str]) -> int:
 
 
 if __name__ == "__main__":
-    sys.exit(main(sys.argv[1:]))
+    try:
+        sys.exit(main(sys.argv[1:]))
+    except _Usage as e:
+        print(f"diagnose_track: {e}", file=sys.stderr)
+        sys.exit(2)
