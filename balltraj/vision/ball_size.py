@@ -224,7 +224,7 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     fit = EdgeFit(q[:2].copy(), float(q[2]), r_sig, float(q[3]), float(q[4]), contrast, noise, True, "",
                   (float(q[5]), float(q[6])))
     why = ""
-    if not sol.success and sol.status != 0:
+    if not sol.success:  # (status 0: stopped at its evaluation limit)
         why = "edge fit did not converge"
     elif contrast < 4 * max(noise, 0.5):
         why = "ball hardly differs from the background"
@@ -284,7 +284,8 @@ def _neighbours(flight, boxes, i, most=NEIGHBOURS, reach=16):
 
 
 def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float = 0.0, end_s: float | None = None,
-                        capture_fps: float | None = None, view_moved: bool = False) -> list[RadiusRefinement]:
+                        capture_fps: float | None = None, view_moved: bool = False,
+                        progress=None, total_frames: int | None = None) -> list[RadiusRefinement]:
     """Refined radii of every tracked flight of a clip (one more decoding pass over the flights' frames).
 
     Parameters
@@ -296,6 +297,9 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
     view_moved : bool
         The view moved during the clip: other frames do not show the same background, so each patch's
         own plane is used instead.
+    progress : callable, optional
+        Called as ``progress(frame_index, total_frames)`` as the fits go through the flights' frames
+        (the slow part of this second pass over the clip).
 
     Returns
     -------
@@ -346,8 +350,10 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
         if n:
             vel = np.gradient(uv, axis=0) if n > 1 else np.zeros((n, 2))
             for i in range(n):
+                if progress is not None and i % 8 == 0:
+                    progress(int(f.frame[i]), total_frames)
                 p = patches.get((fi, i))
-                if p is None:
+                if p is None or not math.isfinite(float(det[i])):
                     continue
                 bl = bgs.get((fi, i), [])
                 bg = np.median(np.stack(bl), 0) if len(bl) >= 2 else None
@@ -369,7 +375,9 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
         if ok.any():
             q = rad[ok] / np.where(det_f[ok] > 0, det_f[ok], np.nan)
             ratio = float(np.nanmedian(q))
-        if ok.sum() >= MIN_REFINED and math.isfinite(ratio):
+        if ok.sum() < MIN_REFINED:  # too few to scale the rest by: one kind of radius for the whole flight
+            rad, sig, src = det_f.copy(), np.full(n, math.nan), np.full(n, DETECTOR, int)
+        elif math.isfinite(ratio):
             spread = 1.4826 * float(np.nanmedian(np.abs(q - ratio)))
             kept = ~ok & np.isfinite(det_f)
             rad[kept] = det_f[kept] * ratio

@@ -57,7 +57,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     and rejected candidates drawn faintly (a second decoding pass). ``on_exposure(frame_index,
     time_s, candidates)``, if given, is called for every exposure. ``refine_radius`` (with a camera):
     each flight's apparent radii are measured again from the ball's edge (``ball_size.py``, one more
-    decoding pass over the flights' frames); ``TrackResult.radii`` says which were.
+    decoding pass over the flights' frames, reported through ``progress`` as a second run through the
+    clip's frames); ``TrackResult.radii`` says which were.
     """
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):
@@ -115,7 +116,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     radii = []
     if refine_radius and camera is not None and flights:  # hook: the radius from the ball's edge (ball_size.py)
         radii = refine_flight_radii(path, flights, camera, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
-                                    view_moved=moved_px > 0.5)
+                                    view_moved=moved_px > 0.5, progress=progress, total_frames=info.frame_count)
         flights = apply_refinement(flights, radii)
     if overlay_path is not None:
         write_overlay(path, overlay_path, flights, log, fps=info.nominal_fps, start_s=start_s, end_s=end_s,

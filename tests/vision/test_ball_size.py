@@ -125,7 +125,11 @@ def test_refined_radii_of_a_clip_carry_the_lens_magnification_out(tmp_path):
     n = len(frames)
     flight = SimpleNamespace(t=truth["t"], frame=np.arange(n), uv=truth["centres"], radius_px=np.full(n, 5.2),
                              streak_px=np.zeros(n))
-    ref = refine_flight_radii(path, [flight], cam)[0]
+    calls = []
+    ref = refine_flight_radii(path, [flight], cam, progress=lambda k, total: calls.append((k, total)),
+                              total_frames=n)[0]
+    # the long part reports its progress through the clip's frames, in order
+    assert calls and all(total == n for _, total in calls) and [k for k, _ in calls] == sorted(k for k, _ in calls)
     ok = ref.source == REFINED
     assert ok.sum() >= 6
     mag = lens_magnification(cam, truth["centres"])
@@ -133,6 +137,31 @@ def test_refined_radii_of_a_clip_carry_the_lens_magnification_out(tmp_path):
     assert np.median(ref.radius_px[ok] * mag[ok]) == pytest.approx(6.0, rel=0.04)
     assert np.median(ref.radius_px[ok] / 6.0) > 1.0 / np.median(mag[ok]) - 0.04  # f R / depth: the shrinking undone
     assert np.all(np.isfinite(ref.radius_sigma_px[ok])) and np.all(ref.radius_sigma_px[ok] > 0)
+
+
+def test_a_flight_with_too_few_edge_fits_keeps_one_kind_of_radius(tmp_path):
+    # invariant: a flight whose edge fits worked in fewer than MIN_REFINED frames keeps the detector's radii
+    # (magnification divided out) in every frame -- no step between refined and unscaled blob radii
+    from types import SimpleNamespace
+
+    import cv2
+
+    from balltraj.vision.ball_size import DETECTOR, MIN_REFINED, refine_flight_radii
+
+    frames, truth, _ = _clip(6.0, seed=7)
+    h, w = frames[0].shape
+    path = tmp_path / "ball.avi"
+    out = cv2.VideoWriter(str(path), cv2.VideoWriter_fourcc(*"FFV1"), 240.0, (w, h))
+    for f in frames:
+        out.write(cv2.cvtColor(f, cv2.COLOR_GRAY2BGR))
+    out.release()
+    cam = look_at_camera("c", np.array([0.0, -5.0, 1.0]), [0.0, 0.0, 1.0], 70, (w, h), dist=(-0.25, 0.05, 0, 0, 0))
+    k = np.arange(MIN_REFINED - 1)
+    flight = SimpleNamespace(t=truth["t"][k], frame=k, uv=truth["centres"][k], radius_px=np.full(len(k), 5.2),
+                             streak_px=np.zeros(len(k)))
+    ref = refine_flight_radii(path, [flight], cam)[0]
+    assert np.all(ref.source == DETECTOR)
+    assert np.allclose(ref.radius_px, 5.2 / lens_magnification(cam, truth["centres"][k]))
 
 
 def test_depth_warning_names_the_radius_method():
