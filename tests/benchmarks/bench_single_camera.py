@@ -275,19 +275,16 @@ def run(n):
             # self-consistency of the one-sigma machinery: radius errors drawn as large as the fit's own priors
             t, uv, r, _ = observations(cam, sol, R, rng, scale_sigma=RADIUS_SCALE_SIGMA, bias_sigma_px=RADIUS_BIAS_SIGMA_PX)
             e["prior-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
-            if measured is not None:  # radius errors as the detector makes them on independently rendered balls
-                t, uv, r, _ = observations_detector_sized(cam, sol, R, rng_det, measured)
-                e["detector-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
+            # radius errors as the detector, and as the edge fit (vision/ball_size.py), make them on
+            # independently rendered balls (the same clips)
+            for name, errors, rng_e in (("detector-sized", measured, rng_det), ("refined-sized", refined, rng_ref)):
+                if errors is None:
+                    continue
+                t, uv, r, _ = observations_detector_sized(cam, sol, R, rng_e, errors)
+                e[name].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
                 if found.ball is not None:
                     a = choose_anchor(resting=found.ball.anchor)
-                    e["detector-sized rest"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions(
-                        start_near=a.start_near_m, start_sigma=a.start_sigma_m))[0])
-            if refined is not None:  # radius errors as the edge fit (vision/ball_size.py) makes them on the same clips
-                t, uv, r, _ = observations_detector_sized(cam, sol, R, rng_ref, refined)
-                e["refined-sized"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions())[0])
-                if found.ball is not None:
-                    a = choose_anchor(resting=found.ball.anchor)
-                    e["refined-sized rest"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions(
+                    e[f"{name} rest"].append(fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, FitOptions(
                         start_near=a.start_near_m, start_sigma=a.start_sigma_m))[0])
         print(f"kick {k + 1}/{n} done, {time.perf_counter() - t_start:.0f} s", flush=True)
     return rows

@@ -33,25 +33,16 @@ HERE = Path(__file__).resolve()
 sys.path.insert(0, str(HERE.parents[2]))
 sys.path.insert(0, str(HERE.parents[1]))
 
+from outside_camera import camera_file  # noqa: E402
 from scene_outside import (BASEBALL, FOOTBALL, SOFTBALL, TENNIS, Lens, Person, Shot, Style,  # noqa: E402
                            fly, render_shot)
 
-from balltraj.camera.model import Camera, rotation_vector  # noqa: E402
 from balltraj.vision.clip import decode_only  # noqa: E402
 from balltraj.vision.pipeline import track_clip  # noqa: E402
 
 PITCH_LINES = (((-30, 20), (30, 20)), ((0, 8), (0, 40)), ((-30, 35), (30, 35)))
 COURT_LINES = (((-12, 4), (12, 4)), ((-12, 8.5), (12, 8.5)), ((0, 4), (0, 8.5)), ((-6.4, 4), (-6.4, 8.5)),
                ((6.4, 4), (6.4, 8.5)))
-
-
-def camera_file(shot):
-    """The renderer's base camera as balltraj's camera model (same axes: x right, y down, z forward)."""
-    lens = shot.lens
-    rot = lens.rotation()
-    k = [[lens.f, 0, lens.centre[0]], [0, lens.f, lens.centre[1]], [0, 0, 1]]
-    return Camera("outside", lens.size, np.array(k), np.array([lens.k1, lens.k2, 0, 0, 0]), rotation_vector(rot),
-                  -rot @ np.asarray(lens.pos), readout_s=shot.readout)
 
 
 def kick_times(ball, p0, v0, t0, t1, kicks):

@@ -5,9 +5,9 @@ import math
 import cv2
 import numpy as np
 import pytest
+from outside_camera import camera_file
 from scene_outside import FOOTBALL, Lens, Person, Shot, Style, fly, render_shot
 
-from balltraj.camera.model import Camera, rotation_vector
 from balltraj.vision.clip import read_frames
 from balltraj.vision.frames import FrameGuard
 from balltraj.vision.pipeline import track_clip
@@ -30,15 +30,6 @@ def _scores(truth, res):
                 hit.add(row["exposure"])
     visible = {r["exposure"] for r in truth if r["visible"]}
     return len(hit & visible) / max(1, len(visible)), good / max(1, n)
-
-
-def _camera(shot):
-    """The renderer's camera as balltraj's camera model (same axes: x right, y down, z forward)."""
-    lens = shot.lens
-    rot = lens.rotation()
-    k = [[lens.f, 0, lens.centre[0]], [0, lens.f, lens.centre[1]], [0, 0, 1]]
-    return Camera("outside", lens.size, np.array(k), np.array([lens.k1, lens.k2, 0, 0, 0]), rotation_vector(rot),
-                  -rot @ np.asarray(lens.pos), readout_s=shot.readout)
 
 
 def juggle_shot():
@@ -70,7 +61,7 @@ def test_a_large_ball_juggled_in_a_dark_room_is_found(tmp_path):
     # with the renderer's camera as a camera file: the ball is slow near the top of each arc, for much
     # of its track, but fast at its ends (measured: recall 0.42, precision 0.71; when its typical
     # speed had to pass 3 m/s: no flight)
-    recall, precision = _scores(truth, track_clip(path, _camera(shot), FOOTBALL.radius_m))
+    recall, precision = _scores(truth, track_clip(path, camera_file(shot), FOOTBALL.radius_m))
     assert recall >= 0.3 and precision >= 0.6, (recall, precision)
 
 
