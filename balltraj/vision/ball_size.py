@@ -350,7 +350,7 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
         if n:
             vel = np.gradient(uv, axis=0) if n > 1 else np.zeros((n, 2))
             for i in range(n):
-                if progress is not None and i % 8 == 0:
+                if progress is not None and i % 8 == 0:  # the fits are the slow part
                     progress(int(f.frame[i]), total_frames)
                 p = patches.get((fi, i))
                 if p is None or not math.isfinite(float(det[i])):

@@ -14,7 +14,8 @@ the band-passed albedo at n in frame k and at R n in frame k + g):
 3. every pair refined on its own from that spin, giving one spin estimate per pair, and a robust
    (Huber) weighted mean of them: one constant spin vector over the window (optionally a decay);
    the covariance from the scatter of the independent gap-1 estimates, plus the apparent radius's
-   scatter, the centre's and an allowance (fitted to the benchmark's renders) for the ball's movement during the exposure;
+   scatter, the centre's and an allowance (fitted to the benchmark's renders) for the ball's
+   movement during the exposure;
 4. the answer is withheld, with a reason, when the ball is too small, shows no texture, the surface
    does not match between frames, the frame gaps disagree, the turn per frame is near half a turn
    (aliasing), or the spin is too uncertain.
@@ -43,8 +44,8 @@ _MAX_SMEAR = 0.3  # largest motion blur read, in radii (beyond it the smear bias
 # symmetric in the image is not on the sphere (the image-to-sphere map curves towards the limb), so to
 # second order each marking's centroid moves by about (smear / radius)^2. Its size is fitted to one
 # renderer's clips, not derived: 1.5-2 % low at 0.24 radii (1/4000 s) and no bias seen at 0.12 radii
-# (1/8000 s) in bench_surface_spin (tests/surface_render.py), so a systematic sigma of this coefficient times (smear / radius)^2 of the rate
-# is added in every direction (1.4 % at 0.24 radii, 0.35 % at 0.12)
+# (1/8000 s) in bench_surface_spin (tests/surface_render.py), so a systematic sigma of this coefficient
+# times (smear / radius)^2 of the rate is added in every direction (1.4 % at 0.24 radii, 0.35 % at 0.12)
 _SMEAR_SIGMA = 0.25
 _MAX_TURN = math.radians(75)  # longest baseline used: the surfaces of both frames still overlap
 
