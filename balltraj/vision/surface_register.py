@@ -102,7 +102,7 @@ def joint_scores(frames, pairs, omegas, level, sels, chunk=4000, all_pairs=False
     as no match (NCC 0) with the least overlap a comparison needs. Use it where the pairs are alike
     (the same frame gap), so a constant spin must map every one of them: otherwise a spin that keeps
     one pair barely overlapping scores on that pair's few points alone (where a chance match of a
-    smoothed surface is easy) as high as the true spin does on all of them."""
+    smoothed surface is easy) as high as the ball's actual spin does on all of them."""
     out = np.zeros(len(omegas))
     for s in range(0, len(omegas), chunk):
         om = omegas[s:s + chunk]
