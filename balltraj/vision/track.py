@@ -26,9 +26,12 @@ def _scene_travel(tr: _Track) -> float:
     """How far [px] the track reached in the scene (the view's own motion undone): the diagonal of the
     box around its scene positions, so a ball that comes back down where it rose (a juggle, an up-down
     throw filmed hand-held) still reaches; inf where the view did not move (nothing to undo)."""
-    pts = [(c.u_scene, c.v_scene) for _, _, c in tr.points if c.u_scene is not None]
-    if len(pts) < 2:
+    if all(c.u_scene is None for _, _, c in tr.points):
         return np.inf
+    # a point without a scene position was seen before the view first moved: its scene position is its
+    # image position (leaving such points out took a whole pitch for a track in place when the view
+    # began to shake near its end)
+    pts = [(c.u, c.v) if c.u_scene is None else (c.u_scene, c.v_scene) for _, _, c in tr.points]
     return _extent_px(np.asarray(pts, float))
 
 

@@ -230,5 +230,11 @@ def test_a_track_that_stays_in_place_in_the_scene_is_not_a_flight():
                                                u_scene=640.0, v_scene=300.0 - 60 * (1 - ((i - 6) / 6) ** 2)))
                          for i in range(13)])
     assert abs(_scene_travel(up_down) - 60.0) < 1e-6
+    # the view first moved near the end of a pitch: the points before have no scene position, which is then
+    # their image position (the pitch reached 200 px, not the few px of its last points)
+    late = _Track.of([(i, i / 30, Candidate(600.0 - 20 * i, 300.0, 5.0, 2.0, 0.0, 78.0, 60.0,
+                                            **({"u_scene": 600.0 - 20 * i, "v_scene": 300.0} if i >= 9 else {})))
+                      for i in range(11)])
+    assert abs(_scene_travel(late) - 200.0) < 1e-6
     still_view = _Track.of([(i, i / 30, Candidate(600.0 - 10 * i, 300.0, 5.0, 2.0, 0.0, 78.0, 60.0)) for i in range(5)])
     assert _scene_travel(still_view) == np.inf  # the view never moved: nothing to undo
