@@ -9,10 +9,10 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .detect import lens_magnification
+from .frames import _median
 
 if TYPE_CHECKING:
     from .trackpoints import _Track
-
 
 
 def running_median(x, half: int = 2) -> np.ndarray:
@@ -21,13 +21,7 @@ def running_median(x, half: int = 2) -> np.ndarray:
     sorting plain floats: numpy's per-call cost dominated these 5-value medians, taken for every
     point of every track."""
     v = [float(a) for a in x]
-    n = len(v)
-    out = np.empty(n)
-    for i in range(n):
-        w = sorted(v[max(0, i - half):i + half + 1])
-        m = len(w)
-        out[i] = w[m // 2] if m % 2 else (w[m // 2 - 1] + w[m // 2]) / 2
-    return out
+    return np.array([_median(v[max(0, i - half):i + half + 1]) for i in range(len(v))])
 
 def _robust_line(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Theil-Sen straight line (slope the median of pairwise slopes, intercept the median offset):
