@@ -238,6 +238,22 @@ class _Busy(Exception):
     pass
 
 
+def _schema_version(conn: sqlite3.Connection, path) -> int:
+    """The library's schema version, 0 for an empty file. One statement, so one snapshot: reading
+    "is there a meta table" and "is the file empty" separately let another process's schema land in
+    between, and a half-seen schema was taken for a foreign SQLite file."""
+    names = {r[0] for r in conn.execute("SELECT name FROM sqlite_master")}
+    if "meta" in names:
+        # meta and its version row are written in one transaction, so a seen meta table has its row
+        row = conn.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
+        return int(row[0]) if row else 0
+    if names:
+        conn.close()
+        raise InputError("this SQLite file is not a balltraj library", path=str(path),
+                         hint="give a new file name to create a library")
+    return 0
+
+
 def _open_library(path, *, create: bool) -> Library:
     p = Path(path)
     _check_sqlite_file(p)
@@ -253,15 +269,7 @@ def _open_library(path, *, create: bool) -> Library:
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute("PRAGMA foreign_keys=ON")
         conn.execute("PRAGMA busy_timeout=10000")
-        has_meta = conn.execute("SELECT name FROM sqlite_master WHERE type='table' AND name='meta'").fetchone()
-        version = 0
-        if has_meta:
-            row = conn.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
-            version = int(row[0]) if row else 0
-        elif conn.execute("SELECT count(*) FROM sqlite_master").fetchone()[0] > 0:
-            conn.close()
-            raise InputError("this SQLite file is not a balltraj library", path=str(path),
-                             hint="give a new file name to create a library")
+        version = _schema_version(conn, path)
     except sqlite3.DatabaseError as e:
         if conn is not None:
             conn.close()
@@ -275,6 +283,9 @@ def _open_library(path, *, create: bool) -> Library:
     if version < SCHEMA_VERSION:
         try:
             conn.execute("BEGIN IMMEDIATE")
+            # Another process may have made or migrated the schema since the read above: read it again
+            # inside the write transaction, which no other writer can enter.
+            version = _schema_version(conn, path)
             for v in range(version + 1, SCHEMA_VERSION + 1):
                 for stmt in MIGRATIONS[v]:
                     conn.execute(stmt)

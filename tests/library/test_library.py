@@ -166,3 +166,32 @@ def test_locked_library_is_reported(tmp_path):
     finally:
         holder.rollback()
         holder.close()
+
+
+def test_many_openers_of_a_new_library_all_see_one_schema(tmp_path):
+    """Invariant: openers racing on a new file all get a library of the current schema. Threads, so
+    the race is real (sqlite3 releases the GIL); the old code read "is there a meta table" and "is the
+    file empty" in two statements and, under load, took another opener's just-made schema for a
+    foreign SQLite file."""
+    import threading
+
+    for k in range(25):
+        path = tmp_path / f"lib{k}.db"
+        barrier = threading.Barrier(6)
+        errors, versions = [], []
+
+        def opener():
+            barrier.wait()
+            try:
+                with open_library(path) as lib:
+                    versions.append(int(lib.conn.execute(
+                        "SELECT value FROM meta WHERE key='schema_version'").fetchone()[0]))
+            except Exception as e:  # noqa: BLE001 - any failure is the defect under test
+                errors.append(repr(e))
+
+        threads = [threading.Thread(target=opener) for _ in range(6)]
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join()
+        assert errors == [] and versions == [SCHEMA_VERSION] * 6, (k, errors)
