@@ -88,6 +88,13 @@ class RadiusRefinement:
         The tracker's radius, unchanged.
     ratio : float
         Median refined / detected radius of the flight (NaN when none was refined).
+    centre_px : ndarray, shape (N, 2) [px], optional
+        The silhouette's centre (the middle of its blur segment: the ball's mean place over the
+        exposure) where the edge fit was kept; elsewhere the detector's centre moved by the flight's
+        median offset refined - detected (the shading's pull, which the light keeps nearly constant
+        over a flight), or unchanged when too few frames were refined. Pixels of the distorted image.
+    centre_offset_px : ndarray, shape (2,) [px], optional
+        That median offset (NaN when too few frames were refined).
     """
 
     radius_px: np.ndarray
@@ -95,6 +102,8 @@ class RadiusRefinement:
     source: np.ndarray
     detector_radius_px: np.ndarray
     ratio: float
+    centre_px: np.ndarray | None = None
+    centre_offset_px: np.ndarray | None = None
 
     @property
     def n_refined(self) -> int:
@@ -347,6 +356,7 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
         det_f = det / mag_det  # the detector's radius as f R / depth
         rad, sig = det_f.copy(), np.full(n, math.nan)
         src = np.full(n, DETECTOR, int)
+        cen = uv.copy()
         if n:
             vel = np.gradient(uv, axis=0) if n > 1 else np.zeros((n, 2))
             for i in range(n):
@@ -368,23 +378,46 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
                     continue
                 mag = 1.0 if camera is None else float(lens_magnification(camera, fit.centre_px + [x0, y0]))
                 rad[i], sig[i], src[i] = fit.radius_px / mag, fit.radius_sigma_px / mag, REFINED
+                cen[i] = fit.centre_px + [x0, y0]
         _trend_check(np.asarray(f.t, float), rad, sig, src)
+        _shift_check(cen - uv, src)
         ok = src == REFINED
         rad[~ok], sig[~ok] = det_f[~ok], math.nan
+        cen[~ok] = uv[~ok]
         ratio = math.nan
         if ok.any():
             q = rad[ok] / np.where(det_f[ok] > 0, det_f[ok], np.nan)
             ratio = float(np.nanmedian(q))
+        offset = np.full(2, math.nan)
         if ok.sum() < MIN_REFINED:  # too few to scale the rest by: one kind of radius for the whole flight
             rad, sig, src = det_f.copy(), np.full(n, math.nan), np.full(n, DETECTOR, int)
+            cen = uv.copy()
         elif math.isfinite(ratio):
             spread = 1.4826 * float(np.nanmedian(np.abs(q - ratio)))
             kept = ~ok & np.isfinite(det_f)
             rad[kept] = det_f[kept] * ratio
             sig[kept] = det_f[kept] * spread
             src[kept] = DETECTOR_SCALED
-        out.append(RadiusRefinement(rad, sig, src, det, ratio))
+            offset = np.median(cen[ok] - uv[ok], axis=0)
+            cen[~ok] = uv[~ok] + offset
+        out.append(RadiusRefinement(rad, sig, src, det, ratio, cen, offset))
     return out
+
+
+def _shift_check(shift, src, k_out: float = 4.0, floor_px: float = 0.5) -> None:
+    """In place: a refined frame whose centre lies far from the detector's, moved by the flight's median
+    shift, goes back to the detector (``src``). The shift refined - detected is the shading's pull toward
+    the lit side, nearly constant over a flight, plus the detector's own scatter; a fit that lands more than
+    ``k_out`` robust scatters (at least ``floor_px``) off it is a fit on something else (a shadow, a figure
+    crossing, the edge of the patch), whatever its radius."""
+    ok = src == REFINED
+    if ok.sum() < 5:
+        return
+    d = shift[ok] - np.median(shift[ok], axis=0)
+    dist = np.hypot(d[:, 0], d[:, 1])
+    scatter = float(np.median(dist)) / 1.1774  # per axis: the median of a 2D normal's norm is 1.1774 sigma
+    idx = np.flatnonzero(ok)
+    src[idx[dist > k_out * max(scatter, floor_px)]] = DETECTOR
 
 
 def _trend_check(t, rad, sig, src, k_out: float = 4.0) -> None:
@@ -412,5 +445,7 @@ def _trend_check(t, rad, sig, src, k_out: float = 4.0) -> None:
 
 
 def apply_refinement(flights, refinements):
-    """The flights with their refined radii in ``radius_px`` (TrackedFlight is frozen: copies)."""
-    return [replace(f, radius_px=r.radius_px) for f, r in zip(flights, refinements)]
+    """The flights with their refined radii in ``radius_px`` and centres in ``uv`` (TrackedFlight is
+    frozen: copies)."""
+    return [replace(f, radius_px=r.radius_px, uv=f.uv if r.centre_px is None else r.centre_px)
+            for f, r in zip(flights, refinements)]
