@@ -271,7 +271,8 @@ def analyze_clip(clip: ClipInput, settings: FitSettings, *, progress: Progress =
     cam = clip.camera
     hint = None if settings.start_near_m is None else (settings.start_near_m, settings.start_sigma_m)
     records, failures = [], []
-    surfaces = FlightSurfaces(clip.path, res.flights, cam, capture_fps=clip.capture_fps)  # windows decoded once
+    surfaces = FlightSurfaces(clip.path, res.flights, cam, capture_fps=clip.capture_fps,  # windows decoded once
+                              refinements=res.radii)
     for i, f in enumerate(res.flights):
         # the depth along the line of sight: a ball at rest where the flight starts, a bounce that
         # starts it, the user's hint, the template's launch zone, or only the apparent size (said in the record)
@@ -318,7 +319,8 @@ def analyze_rig(clips: Sequence[ClipInput], settings: FitSettings, *, progress: 
     if not results[0].flights:
         raise no_ball_error(clips[0].path, results[0])
     records, failures = [], []
-    readers = [FlightSurfaces(c.path, r.flights, c.camera, capture_fps=c.capture_fps) for c, r in zip(clips, results)]
+    readers = [FlightSurfaces(c.path, r.flights, c.camera, capture_fps=c.capture_fps, refinements=r.radii)
+               for c, r in zip(clips, results)]
     first = replace(clips[0].camera, time_offset_s=0.0)  # times and the launch on the first camera's clock
     for f in results[0].flights:
         cams, seen = [first], [(0, f)]

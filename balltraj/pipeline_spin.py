@@ -74,11 +74,17 @@ class FlightSurfaces:
         True capture rate of a time-stretched slow-motion file.
     window_s : float [s]
         The surface is read over this long a window from each flight's first tracked frame.
+    refinements : sequence of RadiusRefinement, optional
+        The flights' edge fits (``vision/ball_size.py``), in the same order: their silhouette centres start
+        the surface reader's disc fits (the blob centroid of a shaded ball sits up to a third of a radius
+        toward its lit side, outside the disc fit's reach; docs/validation.md).
     """
 
     def __init__(self, path, flights, camera: Camera, *, capture_fps: float | None = None,
-                 window_s: float = WINDOW_S):
+                 window_s: float = WINDOW_S, refinements=None):
         self.path, self.camera, self.capture_fps, self.window_s = path, camera, capture_fps, window_s
+        self._centres = {f.flight: r.centre_px for f, r in zip(flights, refinements or [])
+                         if getattr(r, "centre_px", None) is not None}
         self._plans = {f.flight: _plan(f, window_s) for f in flights}
         self._times = {f.flight: np.asarray(f.t, float) for f in flights}
         self._frames: dict | None = None
@@ -103,7 +109,7 @@ class FlightSurfaces:
         # every frame of the window (a frame the tracker missed keeps the frame gaps honest): the centre and
         # radius of the tracked neighbours, interpolated
         keep = (index >= frame_idx[0]) & (index <= frame_idx[-1])
-        uv = np.asarray(flight.uv, float)[win]
+        uv = np.asarray(self._centres.get(flight.flight, flight.uv), float)[win]
         radius = np.asarray(flight.radius_px, float)[win]
         k = index[keep]
         centres = np.stack([np.interp(k, frame_idx, uv[:, 0]), np.interp(k, frame_idx, uv[:, 1])], 1)

@@ -93,6 +93,9 @@ class RadiusRefinement:
         exposure) where the edge fit was kept; elsewhere the detector's centre moved by the flight's
         median offset refined - detected (the shading's pull, which the light keeps nearly constant
         over a flight), or unchanged when too few frames were refined. Pixels of the distorted image.
+        The surface reader starts from these (``pipeline_spin.FlightSurfaces``); the flight fit keeps the
+        detector's centres (measured both ways in docs/validation.md: near the ground the ball's shadow
+        pulls the edge fit, which moved the launch more than the shading's pull did).
     centre_offset_px : ndarray, shape (2,) [px], optional
         That median offset (NaN when too few frames were refined).
     """
@@ -445,7 +448,5 @@ def _trend_check(t, rad, sig, src, k_out: float = 4.0) -> None:
 
 
 def apply_refinement(flights, refinements):
-    """The flights with their refined radii in ``radius_px`` and centres in ``uv`` (TrackedFlight is
-    frozen: copies)."""
-    return [replace(f, radius_px=r.radius_px, uv=f.uv if r.centre_px is None else r.centre_px)
-            for f, r in zip(flights, refinements)]
+    """The flights with their refined radii in ``radius_px`` (TrackedFlight is frozen: copies)."""
+    return [replace(f, radius_px=r.radius_px) for f, r in zip(flights, refinements)]
