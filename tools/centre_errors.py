@@ -1,0 +1,85 @@
+"""The ball's image centre, detector against the edge fit (vision/ball_size.py), against the truth of the two
+independent renderers (tests/scene_realism.py penalty kicks, tests/scene_outside.py fixed-camera shots).
+
+Per clip: the median error vector (bias) and the median and RMS distance to the true centre, over every tracked
+point on the ball and over the refined points only.
+Run: PYTHONPATH=$PWD python tools/centre_errors.py realism 2     (kicks; plain and dark ground alternately)
+     PYTHONPATH=$PWD python tools/centre_errors.py outside 0     (seeds, comma-separated)
+"""
+import math
+import sys
+import tempfile
+from dataclasses import replace
+from pathlib import Path
+import numpy as np
+ROOT = Path.cwd()
+sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "tests/benchmarks")]
+from balltraj.vision.pipeline import track_clip
+from balltraj.vision.ball_size import refine_flight_radii, apply_refinement, REFINED
+from balltraj.camera.model import look_at_camera
+
+def stats(err):
+    if len(err) < 5:
+        return "n<5"
+    e = np.array(err)
+    d = np.hypot(e[:, 0], e[:, 1])
+    return f"n={len(e)} bias=({np.median(e[:,0]):+.2f},{np.median(e[:,1]):+.2f}) med|e|={np.median(d):.2f} rms={np.sqrt(np.mean(d**2)):.2f}"
+
+def compare(path, cam, R, truth_uv, label):
+    res = track_clip(path, cam, R, refine_radius=False)
+    refs = refine_flight_radii(path, res.flights, cam)
+    new = apply_refinement(res.flights, refs)
+    det, ref, refonly_det, refonly_ref = [], [], [], []
+    for f0, f1, rr in zip(res.flights, new, refs):
+        for i, k in enumerate(f0.frame):
+            tu = truth_uv(f0, i, int(k))
+            if tu is None:
+                continue
+            u, v, r = tu
+            if np.hypot(*(f0.uv[i] - [u, v])) > max(2.0, 0.5 * r) and np.hypot(*(rr.centre_px[i] - [u, v])) > max(2.0, 0.5 * r):
+                continue
+            det.append(f0.uv[i] - [u, v]); ref.append(rr.centre_px[i] - [u, v])
+            if rr.source[i] == REFINED:
+                refonly_det.append(f0.uv[i] - [u, v]); refonly_ref.append(rr.centre_px[i] - [u, v])
+    print(f"{label}: detector {stats(det)} | refined {stats(ref)} || refined frames only: det {stats(refonly_det)} ref {stats(refonly_ref)}", flush=True)
+
+which = sys.argv[1]
+tmp = Path(tempfile.mkdtemp())
+if which == "outside":
+    from bench_track_outside import camera_file, shots
+    from scene_outside import render_shot
+    for i, (name, shot) in enumerate(shots()):
+        if shot.follow or shot.shake_px > 0.5:
+            continue
+        for k in [int(a) for a in sys.argv[2].split(",")]:
+            sh = replace(shot, seed=shot.seed + 100 * k)
+            p = tmp / f"o{i}_{k}.mp4"
+            truth = render_shot(sh, p)
+            by = {r["frame"]: r for r in truth if r["visible"] and not r["repeat"]}
+            def tu(f, i_, kk, by=by):
+                r = by.get(kk)
+                return None if r is None else (r["u"], r["v"], r["r"])
+            compare(p, camera_file(sh), sh.ball.radius_m, tu, f"outside {name[:40]} s{k}")
+else:
+    import scene_realism as S
+    from bench_single_camera_realism import SETUPS, FPS, START_S, MARK, SIZE
+    rng = np.random.default_rng(9001)
+    variants = [dict(), dict(sky=False)]
+    for k in range(int(sys.argv[2])):
+        speed = rng.uniform(22, 28)
+        aim_y, el = rng.uniform(-2.8, 2.8), math.radians(rng.uniform(8, 13))
+        az = math.atan2(aim_y, 11.0)
+        v0 = speed * np.array([math.cos(el) * math.cos(az), math.cos(el) * math.sin(az), math.sin(el)])
+        axis = np.array([rng.uniform(-0.2, 0.2), rng.uniform(-0.3, 0.3), rng.choice([-1.0, 1.0])]); axis /= np.linalg.norm(axis)
+        var = variants[k % len(variants)]
+        for j, (label, (c, tg, f)) in enumerate(SETUPS.items()):
+            shot = S.Shot(S.Cam(c, tg, f, SIZE), S.SOCCER, [(START_S, MARK, v0, axis)], duration_s=START_S + 0.62,
+                          capture_fps=FPS, seed=500 + 10 * k + j, **{"exposure_s": 1 / 1000, **var})
+            p = tmp / f"r{k}_{j}.mp4"
+            frames = S.render_shot(shot, p)
+            cam = look_at_camera(label, c, tg, f, SIZE)
+            truth = {round(r["t"] * FPS): r for r in frames if "r" in r and not r["repeat"]}
+            def tu(fl, i_, kk, truth=truth):
+                r = truth.get(round(fl.t[i_] * FPS))
+                return None if r is None else (r["u"], r["v"], r["r"])
+            compare(p, cam, S.SOCCER.radius_m, tu, f"realism {label} {var or 'plain'} k{k}")
