@@ -47,6 +47,7 @@ _MAX_SMEAR = 0.3  # largest motion blur read, in radii (beyond it the smear bias
 # (1/8000 s) in bench_surface_spin (tests/surface_render.py), so a systematic sigma of this coefficient
 # times (smear / radius)^2 of the rate is added in every direction (1.4 % at 0.24 radii, 0.35 % at 0.12)
 _SMEAR_SIGMA = 0.25
+_MODE = "ivm"
 _MAX_TURN = math.radians(75)  # longest baseline used: the surfaces of both frames still overlap
 
 
@@ -382,7 +383,7 @@ def _combine_joint_and_line(fr, longp, sels_l, used, est, omega_joint, omega_lin
         if sum(1 for i in uk if used[i][1] - used[i][0] == 1) < 2 or len(pk) < 2:
             continue
         jk, _ = local_grid(lambda om: joint_scores(fr, [longp[i] for i in pk], om, "fine", [sels_l[i] for i in pk]),
-                           omega_joint, np.array([0.005, 0.002, 0.0008]) / dt_long)
+                           omega_joint, np.array([0.03, 0.012, 0.005, 0.002, 0.0008]) / dt_long)
         lk = _orientation_line([used[i] for i in uk], est[uk], omega0, times)[0]
         thetas.append(np.concatenate([jk, lk]))
     if len(thetas) < 5:
@@ -390,9 +391,15 @@ def _combine_joint_and_line(fr, longp, sels_l, used, est, omega_joint, omega_lin
     th = np.array(thetas)
     m = len(th)
     S = (m - 1) / m * (th - th.mean(0)).T @ (th - th.mean(0))
-    w, C = gls_same_quantity(np.stack([omega_joint, omega_line]), S)
     scale = max(1.0, float(np.trace(cov_line)) / max(float(np.trace(S[3:, 3:])), 1e-300))
-    return w, C * scale
+    if _MODE == "gls":
+        w, C = gls_same_quantity(np.stack([omega_joint, omega_line]), S)
+        return w, C * scale
+    CJ, CL = S[:3, :3] * scale, S[3:, 3:] * scale
+    CL = cov_line if np.trace(cov_line) > np.trace(CL) else CL
+    a = float(np.trace(CL)) / (float(np.trace(CJ)) + float(np.trace(CL)))
+    # Var(a J + (1 - a) L) <= a Var J + (1 - a) Var L for any correlation (convexity of the square)
+    return a * omega_joint + (1 - a) * omega_line, a * CJ + (1 - a) * CL
 
 
 def gls_same_quantity(estimates, cov):
