@@ -47,7 +47,6 @@ _MAX_SMEAR = 0.3  # largest motion blur read, in radii (beyond it the smear bias
 # (1/8000 s) in bench_surface_spin (tests/surface_render.py), so a systematic sigma of this coefficient
 # times (smear / radius)^2 of the rate is added in every direction (1.4 % at 0.24 radii, 0.35 % at 0.12)
 _SMEAR_SIGMA = 0.25
-_MODE = "ivm"
 _MAX_TURN = math.radians(75)  # longest baseline used: the surfaces of both frames still overlap
 
 
@@ -137,7 +136,7 @@ def _no(reason, **kw) -> SurfaceSpin:
 def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera: Camera | None = None,
                           blur_px=None, exposure_s: float | None = None, max_rate_rpm: float | None = None,
                           min_radius_px: float = 6.0, max_gap: int = 3, fit_decay: bool = False,
-                          seed: int = 0, combine: bool = True) -> SurfaceSpin:
+                          seed: int = 0) -> SurfaceSpin:
     """Read one constant spin vector from the ball's surface over a short window of frames.
 
     Parameters
@@ -166,9 +165,6 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
         Also fit an exponential decay of the rate over the window.
     seed : int
         Seeds the subsampling of surface points (the result is deterministic).
-    combine : bool
-        Combine the joint fit with the line through the orientations (generalised least squares with
-        their joint covariance from a jackknife over frames); False keeps the line fit alone.
 
     Returns
     -------
@@ -285,7 +281,6 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
     dt_long = max(times[b] - times[a] for a, b in longp)
     omega0, _ = local_grid(lambda om: joint_scores(fr, longp, om, "fine", sels_l), omega0,
                            np.array([0.03, 0.012, 0.005, 0.002, 0.0008]) / dt_long)
-    omega_joint = omega0.copy()
     est, used, nccs = [], [], []
     for (a, b), sel in zip(longp, sels_l):
         dt = fr[b].t - fr[a].t
@@ -313,9 +308,6 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
     cov_pairs = np.cov(p1.T) / len(p1)
     if np.trace(cov_pairs) > np.trace(cov):
         cov = cov_pairs
-    if combine:
-        omega, cov = _combine_joint_and_line(fr, longp, sels_l, used, np.array(est), omega_joint, omega, cov,
-                                             omega0, times, ok, dt_long)
     # the apparent radius is the scale of every turn: its frame-to-frame scatter scales the rate
     radius_rel = float(np.std([discs[k].radius_px for k in ok], ddof=1)) / r_med
     cov = cov + radius_rel ** 2 * np.outer(omega, omega)
@@ -368,64 +360,6 @@ def estimate_surface_spin(frames, times, centres=None, radius_px=None, *, camera
                        decay_sigma_s=decay_sig, **base)
 
 
-def _combine_joint_and_line(fr, longp, sels_l, used, est, omega_joint, omega_line, cov_line, omega0, times, ok,
-                            dt_long):
-    """Generalised least squares of the two estimates of one spin: the joint fit (the constant spin that
-    best maps all pairs at once) and the line through the per-frame orientations. Their joint 6 x 6
-    covariance comes from a jackknife over frames (both estimators recomputed with each frame left out).
-    The combined covariance is scaled up by the ratio of the stated line covariance to its jackknife
-    value when that is above one, so it is never smaller than the one the line fit alone would state.
-    Falls back to the line fit when fewer than five leave-one-out subsets can be computed."""
-    thetas = []
-    for k in ok:
-        pk = [i for i, p in enumerate(longp) if k not in p]
-        uk = [i for i, p in enumerate(used) if k not in p]
-        if sum(1 for i in uk if used[i][1] - used[i][0] == 1) < 2 or len(pk) < 2:
-            continue
-        jk, _ = local_grid(lambda om: joint_scores(fr, [longp[i] for i in pk], om, "fine", [sels_l[i] for i in pk]),
-                           omega_joint, np.array([0.03, 0.012, 0.005, 0.002, 0.0008]) / dt_long)
-        lk = _orientation_line([used[i] for i in uk], est[uk], omega0, times)[0]
-        thetas.append(np.concatenate([jk, lk]))
-    if len(thetas) < 5:
-        return omega_line, cov_line
-    th = np.array(thetas)
-    m = len(th)
-    S = (m - 1) / m * (th - th.mean(0)).T @ (th - th.mean(0))
-    scale = max(1.0, float(np.trace(cov_line)) / max(float(np.trace(S[3:, 3:])), 1e-300))
-    if _MODE == "gls":
-        w, C = gls_same_quantity(np.stack([omega_joint, omega_line]), S)
-        return w, C * scale
-    CJ, CL = S[:3, :3] * scale, S[3:, 3:] * scale
-    CL = cov_line if np.trace(cov_line) > np.trace(CL) else CL
-    a = float(np.trace(CL)) / (float(np.trace(CJ)) + float(np.trace(CL)))
-    # Var(a J + (1 - a) L) <= a Var J + (1 - a) Var L for any correlation (convexity of the square)
-    return a * omega_joint + (1 - a) * omega_line, a * CJ + (1 - a) * CL
-
-
-def gls_same_quantity(estimates, cov):
-    """Best linear unbiased combination of K estimates of one d-vector (Aitken 1935).
-
-    Parameters
-    ----------
-    estimates : array_like, shape (K, d)
-    cov : array_like, shape (K d, K d)
-        Joint covariance of the stacked estimates (cross-covariances included).
-
-    Returns
-    -------
-    x : ndarray, shape (d,)
-        Minimiser of (y - H x)^T cov^-1 (y - H x) with y the stacked estimates and H K stacked identities.
-    cov_x : ndarray, shape (d, d)
-        (H^T cov^-1 H)^-1.
-    """
-    E = np.asarray(estimates, float)
-    K, d = E.shape
-    H = np.tile(np.eye(d), (K, 1))
-    Wi = np.linalg.pinv(np.asarray(cov, float).reshape(K * d, K * d), hermitian=True)
-    cov_x = np.linalg.pinv(H.T @ Wi @ H, hermitian=True)
-    return cov_x @ H.T @ Wi @ E.reshape(-1), cov_x
-
-
 def _patch_noise(d: BallDisc) -> float:
     """The pixel noise of the surface patch (relative albedo): the fit's noise over the shading, median over
     the part of the disc the registration uses."""
@@ -463,25 +397,11 @@ def _orientation_line(pairs, phis, omega0, times, c=2.0, iterations=8):
         s = max(1.4826 * float(np.median(e)), 1e-6)
         w = 1.0 / np.maximum(1.0, e / (c * s))
     t = np.array([times[k] for k in frames])
-    # one intercept per connected part of the pair graph (a frame left out of a chain splits it): the
-    # orientations of separate parts are known only up to a constant each
-    comp = list(range(len(frames)))
-
-    def root(i):
-        while comp[i] != i:
-            i = comp[i]
-        return i
-    for a, b in pairs:
-        comp[root(col[a])] = root(col[b])
-    labels = np.array([root(i) for i in range(len(frames))])
-    parts = np.unique(labels)
-    A = np.column_stack([(labels == u).astype(float) for u in parts] + [t - t.mean()])
+    A = np.stack([np.ones_like(t), t - t.mean()], 1)
     coef = np.linalg.lstsq(A, x, rcond=None)[0]
-    coef = np.vstack([coef[:-1].mean(0), coef[-1]])
-    res = x - A @ np.linalg.lstsq(A, x, rcond=None)[0]
-    n = len(t) - (len(parts) - 1)
-    tw = t - np.array([t[labels == u].mean() for u in labels])  # time about its part's mean
-    cov = (res.T @ res) / max(n - 2, 1) / max(float((tw ** 2).sum()), 1e-300)
+    res = x - A @ coef
+    n = len(t)
+    cov = (res.T @ res) / max(n - 2, 1) / float(((t - t.mean()) ** 2).sum())
     # orientation errors of neighbouring frames are alike when the surface hardly moves between them:
     # inflate by the AR(1) factor (1 + r1) / (1 - r1) of the residuals' lag-1 correlation (Bartlett 1946)
     if n > 4:
