@@ -108,13 +108,119 @@ class RadiusRefinement:
                 "ratio_to_detector": None if not math.isfinite(self.ratio) else round(self.ratio, 4)}
 
 
-def _coverage(X, c, r, beta, sig):
-    s = (np.arange(_BLUR_SAMPLES) + 0.5) / _BLUR_SAMPLES - 0.5
-    dx = (X[:, 0][None] - (c[0] + s[:, None] * beta[0])) / r
-    dy = (X[:, 1][None] - (c[1] + s[:, None] * beta[1])) / r
-    d = np.sqrt(dx * dx + dy * dy)
-    cov_j = 0.5 * erfc((d - 1.0) * (r / (math.sqrt(2) * sig)))
-    return cov_j.mean(0), cov_j, dx, dy
+_S = (np.arange(_BLUR_SAMPLES) + 0.5) / _BLUR_SAMPLES - 0.5  # positions along the blur, in blur lengths
+_NZ_FLOOR = 0.1  # the limb's sqrt singularity: d nz / d q taken at nz >= this (the model's values are exact)
+
+
+class _DiscResiduals:
+    """Residuals of the shaded, blurred disc model with its linear coefficients projected out (variable
+    projection) and their analytic Jacobian over q = (cx, cy, r, L, sigma, theta, phi).
+
+    ``X`` (N, 2) pixel positions, ``z`` (N,) grey values, ``B`` (N,) background or None (a plane instead),
+    ``e`` the unit blur direction, ``rel`` (N, 2) the plane's scaled coordinates. One evaluation is kept so
+    that the Jacobian at the point just evaluated reuses its coverage and projection."""
+
+    def __init__(self, X, z, B, e, rel):
+        self.x, self.y, self.z, self.B, self.e, self.rel = X[:, 0], X[:, 1], z, B, e, rel
+        self._key = None
+
+    def _eval(self, q):
+        key = q.tobytes()
+        if key == self._key:
+            return self._st
+        cx, cy, r, L, sig, th, ph = q
+        e, s = self.e, _S[:, None]
+        px = self.x[None] - (cx + s * (L * e[0]))
+        py = self.y[None] - (cy + s * (L * e[1]))
+        rho = np.sqrt(px * px + py * py)
+        k = 1.0 / (math.sqrt(2.0) * sig)
+        u = (rho - r) * k
+        cov_j = 0.5 * erfc(u)
+        cov = cov_j.mean(0)
+        dx, dy = px / r, py / r
+        nz = np.sqrt(np.clip(1 - dx * dx - dy * dy, 0, None))
+        st, ct, sp, cp = math.sin(th), math.cos(th), math.sin(ph), math.cos(ph)
+        lit_raw = dx * (st * cp) + dy * (st * sp) + nz * ct
+        lit = np.clip(lit_raw, 0, None)
+        shade = (cov_j * lit).mean(0)
+        out = 1 - cov
+        cols = [out] + ([] if self.B is not None else [out * self.rel[:, 0], out * self.rel[:, 1]]) + [cov, shade]
+        A = np.stack(cols, 1)
+        t = self.z if self.B is None else self.z - self.B * out
+        # least squares through the columns' Gram matrix, columns scaled to unit norm (the pseudo-inverse of
+        # numpy's lstsq where the columns are independent; near-dependent directions cut at 1e-10)
+        nrm = np.sqrt((A * A).sum(0))
+        nrm[nrm == 0] = 1.0
+        An = A / nrm
+        w, V = np.linalg.eigh(An.T @ An)
+        good = w > 1e-10 * max(float(w[-1]), 1e-300)
+        Gp = (V[:, good] / w[good]) @ V[:, good].T  # (An^T An)^+
+        cn = Gp @ (An.T @ t)
+        res = t - An @ cn
+        self._key = key
+        self._st = dict(q=q.copy(), px=px, py=py, rho=rho, k=k, u=u, cov_j=cov_j, dx=dx, dy=dy, nz=nz,
+                        lit=lit, pos=lit_raw > 0, trig=(st, ct, sp, cp), An=An, nrm=nrm, Gp=Gp, cn=cn, res=res,
+                        A=A, t=t)
+        return self._st
+
+    def resid(self, q):
+        return self._eval(np.asarray(q, float))["res"].copy()  # (the solver scales what it is given in place)
+
+    def design(self, q):
+        """The design matrix, target and linear coefficients at q."""
+        st = self._eval(np.asarray(q, float))
+        return st["A"], st["t"], st["cn"] / st["nrm"]
+
+    def jac(self, q):
+        st = self._eval(np.asarray(q, float))
+        cx, cy, r, L, sig, th, ph = st["q"]
+        e, s, k = self.e, _S[:, None], st["k"]
+        px, py, u, cov_j, dx, dy = st["px"], st["py"], st["u"], st["cov_j"], st["dx"], st["dy"]
+        rho = np.maximum(st["rho"], 1e-12)
+        g = -np.exp(-u * u) / math.sqrt(math.pi)  # d cov_j / d u
+        ux, uy = px / rho, py / rho
+        # d u / d q for the geometric parameters (cx, cy, r, L, sigma)
+        du = [-ux * k, -uy * k, np.full_like(u, -k), -s * (ux * e[0] + uy * e[1]) * k, -u / sig]
+        # d (dx, dy) / d q (sigma: none)
+        ddx = [-1.0 / r, 0.0, -dx / r, -s * e[0] / r, None]
+        ddy = [0.0, -1.0 / r, -dy / r, -s * e[1] / r, None]
+        st_, ct, sp, cp = st["trig"]
+        l0, l1, l2 = st_ * cp, st_ * sp, ct
+        pos, lit, nz = st["pos"], st["lit"], st["nz"]
+        inv_nz = np.where(nz > 0, 1.0 / np.maximum(nz, _NZ_FLOOR), 0.0)
+        n = len(self.z)
+        dcov = np.zeros((7, n))
+        dshade = np.zeros((7, n))
+        for i in range(5):
+            gd = g * du[i]
+            dcov[i] = gd.mean(0)
+            term = gd * lit
+            if ddx[i] is not None:
+                dnz = -(dx * ddx[i] + dy * ddy[i]) * inv_nz
+                term = term + cov_j * (pos * (l0 * ddx[i] + l1 * ddy[i] + l2 * dnz))
+            dshade[i] = term.mean(0)
+        nz_ = st["nz"]
+        dl_th = (ct * cp, ct * sp, -st_)
+        dl_ph = (-st_ * sp, st_ * cp, 0.0)
+        for i, dl in ((5, dl_th), (6, dl_ph)):
+            dshade[i] = (cov_j * (pos * (dx * dl[0] + dy * dl[1] + nz_ * dl[2]))).mean(0)
+        # d A / d q_i columns: out -> -dcov (and the plane's), cov -> dcov, shade -> dshade; d t = B dcov
+        c = st["cn"] / st["nrm"]
+        An, Gp, res, nrm = st["An"], st["Gp"], st["res"], st["nrm"]
+        if self.B is None:
+            dAc = dcov * (-c[0] - c[1] * self.rel[:, 0] - c[2] * self.rel[:, 1] + c[3]) + dshade * c[4]
+            dt = 0.0
+            dAr = np.stack([-(dcov @ res), -(dcov @ (res * self.rel[:, 0])), -(dcov @ (res * self.rel[:, 1])),
+                            dcov @ res, dshade @ res], 1)
+        else:
+            dAc = dcov * (c[1] - c[0]) + dshade * c[2]
+            dt = dcov * self.B
+            dAr = np.stack([-(dcov @ res), dcov @ res, dshade @ res], 1)
+        v = dt - dAc  # (7, N)
+        v = v - (v @ An) @ Gp @ An.T  # the part outside the columns' span
+        # d res = P_perp (dt - dA c) - (A^+)^T dA^T res   (Golub & Pereyra 1973)
+        v -= ((dAr / nrm) @ Gp) @ An.T
+        return v.T
 
 
 def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0), blur_guess: float = 0.0,
@@ -167,23 +273,7 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     X, z = X[keep], z[keep]
     B = None if B is None else B[keep]
     rel = (X - X.mean(0)) / max(r0, 1.0)
-
-    def design(q):
-        cx, cy, r, L, sig, th, ph = q
-        cov, cov_j, dx, dy = _coverage(X, (cx, cy), r, L * e, sig)
-        out = 1 - cov
-        nz = np.sqrt(np.clip(1 - dx * dx - dy * dy, 0, None))
-        light = np.array([math.sin(th) * math.cos(ph), math.sin(th) * math.sin(ph), math.cos(th)])
-        lit = np.clip(dx * light[0] + dy * light[1] + nz * light[2], 0, None)
-        inside = [cov, (cov_j * lit).mean(0)]
-        cols = [out] + ([] if B is not None else [out * rel[:, 0], out * rel[:, 1]]) + inside
-        target = z if B is None else z - B * out
-        return np.stack(cols, 1), target
-
-    def resid(q):
-        A, target = design(q)
-        coef = np.linalg.lstsq(A, target, rcond=None)[0]
-        return target - A @ coef
+    model = _DiscResiduals(X, z, B, e, rel)
 
     if start is not None and start.ok:
         q0 = np.array([c0[0], c0[1], r0, start.blur_px, start.edge_px, *start.light_angles])
@@ -201,13 +291,12 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
         d = z - B
         noise0 = max(1.0, 1.4826 * float(np.median(np.abs(d - np.median(d)))))
     try:
-        sol = least_squares(resid, q0, bounds=(lo, hi), loss="soft_l1", f_scale=2.0 * noise0, x_scale=[1, 1, 1, 1, 0.2, 0.3, 0.5],
-                            diff_step=1e-3, xtol=1e-4, ftol=1e-4, max_nfev=40)
+        sol = least_squares(model.resid, q0, jac=model.jac, bounds=(lo, hi), loss="soft_l1", f_scale=2.0 * noise0,
+                            x_scale=[1, 1, 1, 1, 0.2, 0.3, 0.5], xtol=1e-4, ftol=1e-4, max_nfev=40)
     except (np.linalg.LinAlgError, ValueError) as exc:
         return EdgeFit(c0, r0, math.nan, 0.0, 0.6, 0.0, math.nan, False, f"edge fit failed ({exc})")
     q = sol.x
-    A, target = design(q)
-    coef = np.linalg.lstsq(A, target, rcond=None)[0]
+    A, target, coef = model.design(q)
     res = target - A @ coef
     noise = 1.4826 * float(np.median(np.abs(res)))
     ncoef = A.shape[1]
