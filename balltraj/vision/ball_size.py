@@ -112,12 +112,33 @@ _S = (np.arange(_BLUR_SAMPLES) + 0.5) / _BLUR_SAMPLES - 0.5  # positions along t
 _NZ_FLOOR = 0.1  # the limb's sqrt singularity: d nz / d q taken at nz >= this (the model's values are exact)
 
 
+_FULL_RES_RADIUS = 8.0  # [px] balls up to 4 times this are fitted on every pixel
+_LIGHT_MAX = 0.6 * math.pi  # the light's largest angle from the line of sight (toward the camera)
+
+
+def _light_vector(p0, p1):
+    """Unit light direction (x, y toward the image's axes, z toward the camera) from its stereographic
+    coordinates p = tan(theta / 2) (cos phi, sin phi): smooth at theta = 0, where the azimuth is not defined."""
+    D = 1.0 + p0 * p0 + p1 * p1
+    return 2 * p0 / D, 2 * p1 / D, 2 / D - 1
+
+
+def _light_coords(theta, phi):
+    t = math.tan(0.5 * theta)
+    return t * math.cos(phi), t * math.sin(phi)
+
+
+def _light_angles(p0, p1):
+    return 2 * math.atan(math.hypot(p0, p1)), math.atan2(p1, p0)
+
+
 class _DiscResiduals:
     """Residuals of the shaded, blurred disc model with its linear coefficients projected out (variable
-    projection) and their analytic Jacobian over q = (cx, cy, r, L, sigma, theta, phi).
+    projection) and their analytic Jacobian over q = (cx, cy, r, L, sigma, p0, p1).
 
     ``X`` (N, 2) pixel positions, ``z`` (N,) grey values, ``B`` (N,) background or None (a plane instead),
-    ``e`` the unit blur direction, ``rel`` (N, 2) the plane's scaled coordinates. One evaluation is kept so
+    ``e`` the unit blur direction, ``rel`` (N, 2) the plane's scaled coordinates; the light direction's
+    (theta, phi) enter as p = tan(theta / 2) (cos phi, sin phi). One evaluation is kept so
     that the Jacobian at the point just evaluated reuses its coverage and projection."""
 
     def __init__(self, X, z, B, e, rel):
@@ -128,7 +149,7 @@ class _DiscResiduals:
         key = q.tobytes()
         if key == self._key:
             return self._st
-        cx, cy, r, L, sig, th, ph = q
+        cx, cy, r, L, sig, p0, p1 = q
         e, s = self.e, _S[:, None]
         px = self.x[None] - (cx + s * (L * e[0]))
         py = self.y[None] - (cy + s * (L * e[1]))
@@ -139,8 +160,8 @@ class _DiscResiduals:
         cov = cov_j.mean(0)
         dx, dy = px / r, py / r
         nz = np.sqrt(np.clip(1 - dx * dx - dy * dy, 0, None))
-        st, ct, sp, cp = math.sin(th), math.cos(th), math.sin(ph), math.cos(ph)
-        lit_raw = dx * (st * cp) + dy * (st * sp) + nz * ct
+        l0, l1, l2 = _light_vector(p0, p1)
+        lit_raw = dx * l0 + dy * l1 + nz * l2
         lit = np.clip(lit_raw, 0, None)
         shade = (cov_j * lit).mean(0)
         out = 1 - cov
@@ -159,7 +180,7 @@ class _DiscResiduals:
         res = t - An @ cn
         self._key = key
         self._st = dict(q=q.copy(), px=px, py=py, rho=rho, k=k, u=u, cov_j=cov_j, dx=dx, dy=dy, nz=nz,
-                        lit=lit, pos=lit_raw > 0, trig=(st, ct, sp, cp), An=An, nrm=nrm, Gp=Gp, cn=cn, res=res,
+                        lit=lit, pos=lit_raw > 0, light=(l0, l1, l2), An=An, nrm=nrm, Gp=Gp, cn=cn, res=res,
                         A=A, t=t)
         return self._st
 
@@ -173,37 +194,39 @@ class _DiscResiduals:
 
     def jac(self, q):
         st = self._eval(np.asarray(q, float))
-        cx, cy, r, L, sig, th, ph = st["q"]
-        e, s, k = self.e, _S[:, None], st["k"]
-        px, py, u, cov_j, dx, dy = st["px"], st["py"], st["u"], st["cov_j"], st["dx"], st["dy"]
-        rho = np.maximum(st["rho"], 1e-12)
-        g = -np.exp(-u * u) / math.sqrt(math.pi)  # d cov_j / d u
-        ux, uy = px / rho, py / rho
-        # d u / d q for the geometric parameters (cx, cy, r, L, sigma)
-        du = [-ux * k, -uy * k, np.full_like(u, -k), -s * (ux * e[0] + uy * e[1]) * k, -u / sig]
-        # d (dx, dy) / d q (sigma: none)
-        ddx = [-1.0 / r, 0.0, -dx / r, -s * e[0] / r, None]
-        ddy = [0.0, -1.0 / r, -dy / r, -s * e[1] / r, None]
-        st_, ct, sp, cp = st["trig"]
-        l0, l1, l2 = st_ * cp, st_ * sp, ct
-        pos, lit, nz = st["pos"], st["lit"], st["nz"]
-        inv_nz = np.where(nz > 0, 1.0 / np.maximum(nz, _NZ_FLOOR), 0.0)
+        cx, cy, r, L, sig, p0, p1 = st["q"]
+        e, k = self.e, st["k"]
+        u, cov_j, dx, dy, nz, lit = st["u"], st["cov_j"], st["dx"], st["dy"], st["nz"], st["lit"]
+        l0, l1, l2 = st["light"]
+        # per blur sample: d cov_j / d q = g du/dq with u = (rho - r) k, rho the distance from the sample's centre
+        g = np.exp(-u * u) * (-1.0 / math.sqrt(math.pi))
+        gk = g * k
+        rr = np.maximum(st["rho"], 1e-12) / r  # rho / r
+        Gx, Gy = gk * (-dx / rr), gk * (-dy / rr)  # cx, cy (the blur length: s (e . (cx, cy) terms))
+        G = np.stack([Gx, Gy, -gk, g * (-u / sig)])  # cx, cy, r, sigma
+        # d lit / d q where lit > 0: the normal n = (dx, dy, nz) moves with the centre and the radius
+        w = cov_j * (st["pos"] / r)
+        l2inz = l2 * np.where(nz > 0, 1.0 / np.maximum(nz, _NZ_FLOOR), 0.0)
+        T = G * lit
+        T[0] += w * (dx * l2inz - l0)
+        T[1] += w * (dy * l2inz - l1)
+        T[2] += w * ((dx * dx + dy * dy) * l2inz - (dx * l0 + dy * l1))
+        wl = (cov_j * st["pos"])[None] * np.stack([dx, dy, nz])  # d shade / d light = mean cov_j n
+        m = np.full(_BLUR_SAMPLES, 1.0 / _BLUR_SAMPLES)
+        ms = _S / _BLUR_SAMPLES
         n = len(self.z)
         dcov = np.zeros((7, n))
         dshade = np.zeros((7, n))
-        for i in range(5):
-            gd = g * du[i]
-            dcov[i] = gd.mean(0)
-            term = gd * lit
-            if ddx[i] is not None:
-                dnz = -(dx * ddx[i] + dy * ddy[i]) * inv_nz
-                term = term + cov_j * (pos * (l0 * ddx[i] + l1 * ddy[i] + l2 * dnz))
-            dshade[i] = term.mean(0)
-        nz_ = st["nz"]
-        dl_th = (ct * cp, ct * sp, -st_)
-        dl_ph = (-st_ * sp, st_ * cp, 0.0)
-        for i, dl in ((5, dl_th), (6, dl_ph)):
-            dshade[i] = (cov_j * (pos * (dx * dl[0] + dy * dl[1] + nz_ * dl[2]))).mean(0)
+        mG, mT = np.einsum("j,kjn->kn", m, G), np.einsum("j,kjn->kn", m, T)
+        dcov[[0, 1, 2, 4]] = mG
+        dshade[[0, 1, 2, 4]] = mT
+        dcov[3] = e[0] * (ms @ G[0]) + e[1] * (ms @ G[1])  # a sample's centre moves with L as s e
+        dshade[3] = e[0] * (ms @ T[0]) + e[1] * (ms @ T[1])
+        mL = np.einsum("j,kjn->kn", m, wl)
+        D = 1.0 + p0 * p0 + p1 * p1  # d light / d p (inverse stereographic projection)
+        dl_p = np.array([[2 / D - 4 * p0 * p0 / D ** 2, -4 * p0 * p1 / D ** 2, -4 * p0 / D ** 2],
+                         [-4 * p0 * p1 / D ** 2, 2 / D - 4 * p1 * p1 / D ** 2, -4 * p1 / D ** 2]])
+        dshade[5:] = dl_p @ mL
         # d A / d q_i columns: out -> -dcov (and the plane's), cov -> dcov, shade -> dshade; d t = B dcov
         c = st["cn"] / st["nrm"]
         An, Gp, res, nrm = st["An"], st["Gp"], st["res"], st["nrm"]
@@ -270,19 +293,24 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     d0 = np.hypot(*(rel0 - along[:, None] * e).T)  # distance from the blur segment
     keep = (np.abs(d0 - r0) < 0.5 * r0 + 2.5) | ((xs.ravel() + 2 * ys.ravel()) % 3 == 0)
     keep &= d0 < 1.9 * r0 + 3
+    # a large ball: every a-th pixel each way, a = floor(sqrt(r0 / 8)), so that its edge still has at least the
+    # samples of an 8 px ball at full resolution (2 pi r w / a^2 >= 2 pi 8 w); the cost goes as the pixels
+    a = max(1, int(math.sqrt(r0 / _FULL_RES_RADIUS)))
+    if a > 1:
+        keep &= (xs.ravel() % a == 0) & (ys.ravel() % a == 0)
     X, z = X[keep], z[keep]
     B = None if B is None else B[keep]
     rel = (X - X.mean(0)) / max(r0, 1.0)
     model = _DiscResiduals(X, z, B, e, rel)
 
     if start is not None and start.ok:
-        q0 = np.array([c0[0], c0[1], r0, start.blur_px, start.edge_px, *start.light_angles])
+        q0 = np.array([c0[0], c0[1], r0, start.blur_px, start.edge_px, *_light_coords(*start.light_angles)])
     else:
         th0, ph0 = _light_guess(X, z if B is None else z - B, c0, r0)
-        q0 = np.array([c0[0], c0[1], r0, blur_guess, 0.6, th0, ph0])
-    lo = np.array([c0[0] - 0.6 * r0 - 2, c0[1] - 0.6 * r0 - 2, 0.5 * r0, 0.0, 0.25, 0.0, -4 * math.pi])
-    hi = np.array([c0[0] + 0.6 * r0 + 2, c0[1] + 0.6 * r0 + 2, 2.0 * r0 + 1, 3.0 * r0 + 4, 2.0, 0.6 * math.pi,
-                   4 * math.pi])
+        q0 = np.array([c0[0], c0[1], r0, blur_guess, 0.6, *_light_coords(th0, ph0)])
+    pmax = math.tan(0.5 * _LIGHT_MAX)  # (a box: up to 2 atan(sqrt(2) pmax), 125 degrees, in its corners)
+    lo = np.array([c0[0] - 0.6 * r0 - 2, c0[1] - 0.6 * r0 - 2, 0.5 * r0, 0.0, 0.25, -pmax, -pmax])
+    hi = np.array([c0[0] + 0.6 * r0 + 2, c0[1] + 0.6 * r0 + 2, 2.0 * r0 + 1, 3.0 * r0 + 4, 2.0, pmax, pmax])
     q0 = np.clip(q0, lo + 1e-6, hi - 1e-6)
     if B is None:
         border = np.concatenate([z_img[0], z_img[-1], z_img[:, 0], z_img[:, -1]])
@@ -292,7 +320,7 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
         noise0 = max(1.0, 1.4826 * float(np.median(np.abs(d - np.median(d)))))
     try:
         sol = least_squares(model.resid, q0, jac=model.jac, bounds=(lo, hi), loss="soft_l1", f_scale=2.0 * noise0,
-                            x_scale=[1, 1, 1, 1, 0.2, 0.3, 0.5], xtol=1e-4, ftol=1e-4, max_nfev=40)
+                            x_scale=[1, 1, 1, 1, 0.2, 0.2, 0.2], xtol=1e-4, ftol=1e-4, max_nfev=40)
     except (np.linalg.LinAlgError, ValueError) as exc:
         return EdgeFit(c0, r0, math.nan, 0.0, 0.6, 0.0, math.nan, False, f"edge fit failed ({exc})")
     q = sol.x
@@ -311,7 +339,7 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     except np.linalg.LinAlgError:
         r_sig = math.nan
     fit = EdgeFit(q[:2].copy(), float(q[2]), r_sig, float(q[3]), float(q[4]), contrast, noise, True, "",
-                  (float(q[5]), float(q[6])))
+                  _light_angles(float(q[5]), float(q[6])))
     why = ""
     if not sol.success:  # (status 0: stopped at its evaluation limit)
         why = "edge fit did not converge"
