@@ -14,8 +14,10 @@ inside is any smooth (Lambertian-like, linear in the normal) shading; B the back
 place, the per-pixel median of nearby frames of the flight in which the ball is elsewhere (when none
 is clear of it, B = 0 and b0 grows a plane b0 + b1 x + b2 y fitted on the patch). The shading and
 background coefficients enter linearly and are solved inside (variable projection, Golub & Pereyra
-1973); centre, radius, blur length and edge width by robust least squares (scipy, soft-L1 loss:
-seams and panels are outliers to the smooth shading). The radius is where the coverage is one half,
+1973); centre, radius, blur length, edge width and light direction by robust least squares (scipy,
+soft-L1 loss: seams and panels are outliers to the smooth shading; the analytic Jacobian of the projected
+residuals, the projection's own derivative included). A ball over 32 px radius is fitted on every a-th pixel
+each way (its edge keeps the samples of an 8 px ball at full resolution). The radius is where the coverage is one half,
 whatever the contrast, so neither the threshold nor the shading moves it.
 
 Each radius gets a one-sigma from the fit's covariance (residual scale times the Jacobian), and is
