@@ -217,3 +217,49 @@ def test_a_refined_centre_far_from_the_flights_shift_goes_back_to_the_detector()
     src = np.full(20, REFINED)
     _shift_check(shift, src)
     assert src[7] == DETECTOR and np.all(np.delete(src, 7) == REFINED)
+
+
+@pytest.mark.parametrize("with_background", [True, False])
+def test_edge_fit_jacobian_matches_finite_differences(with_background):
+    # Source: round trip against scipy.optimize.approx_fprime (forward differences of the same residuals).
+    # The disc model's own values at the limb have a square-root kink (the sphere's normal), where the analytic
+    # derivative of the shading is taken at nz >= _NZ_FLOOR; with the floor removed the columns agree to
+    # finite-difference precision, with it to well under one per cent of each column's norm.
+    from scipy.optimize import approx_fprime
+
+    import balltraj.vision.ball_size as bs
+
+    rng = np.random.default_rng(1)
+    ys, xs = np.mgrid[0:30, 0:30]
+    X = np.stack([xs.ravel(), ys.ravel()], 1).astype(float)
+    z = rng.normal(60, 5, len(X)) + 80 * (np.hypot(X[:, 0] - 15, X[:, 1] - 14) < 6)
+    B = rng.normal(55, 2, len(X)) if with_background else None
+    q = np.array([15.3, 14.2, 6.1, 3.0, 0.7, 0.4, -0.3])  # centre, radius, blur, edge width, light (p0, p1)
+
+    def fd(model):
+        return approx_fprime(q, model.resid, 1e-7)  # (vector-valued: the (N, 7) Jacobian)
+
+    model = bs._DiscResiduals(X, z, B, np.array([0.8, 0.6]), (X - X.mean(0)) / 6.0)
+    err = np.linalg.norm(model.jac(q) - fd(model), axis=0) / np.linalg.norm(fd(model), axis=0)
+    assert np.all(err < 1e-2)
+    assert np.all(err[4:] < 1e-5)  # edge width and light: no kink involved
+    floor = bs._NZ_FLOOR
+    try:
+        bs._NZ_FLOOR = 1e-12
+        exact = bs._DiscResiduals(X, z, B, np.array([0.8, 0.6]), (X - X.mean(0)) / 6.0)
+        err = np.linalg.norm(exact.jac(q) - fd(exact), axis=0) / np.linalg.norm(fd(exact), axis=0)
+    finally:
+        bs._NZ_FLOOR = floor
+    assert np.all(err < 1e-5)
+
+
+def test_light_coordinates_round_trip():
+    # Source: round trip (stereographic coordinates of the light direction and back), and the unit length
+    from balltraj.vision.ball_size import _light_angles, _light_coords, _light_vector
+
+    for th, ph in ((0.0, 0.0), (0.3, -2.0), (1.2, 0.7), (1.8, 3.0)):
+        p = _light_coords(th, ph)
+        assert np.allclose(_light_angles(*p), (th, ph if th > 0 else 0.0))
+        v = np.array(_light_vector(*p))
+        assert np.linalg.norm(v) == pytest.approx(1.0)
+        assert v == pytest.approx([math.sin(th) * math.cos(ph), math.sin(th) * math.sin(ph), math.cos(th)])
