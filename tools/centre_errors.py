@@ -6,7 +6,6 @@ point on the ball and over the refined points only.
 Run: PYTHONPATH=$PWD python tools/centre_errors.py realism 2     (kicks; plain and dark ground alternately)
      PYTHONPATH=$PWD python tools/centre_errors.py outside 0     (seeds, comma-separated)
 """
-import math
 import sys
 import tempfile
 from dataclasses import replace
@@ -16,7 +15,6 @@ ROOT = Path.cwd()
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "tests/benchmarks")]
 from balltraj.vision.pipeline import track_clip
 from balltraj.vision.ball_size import refine_flight_radii, apply_refinement, REFINED
-from balltraj.camera.model import look_at_camera
 
 def stats(err):
     if len(err) < 5:
@@ -62,24 +60,12 @@ if which == "outside":
             compare(p, camera_file(sh), sh.ball.radius_m, tu, f"outside {name[:40]} s{k}")
 else:
     import scene_realism as S
-    from bench_single_camera_realism import SETUPS, FPS, START_S, MARK, SIZE
-    rng = np.random.default_rng(9001)
-    variants = [dict(), dict(sky=False)]
-    for k in range(int(sys.argv[2])):
-        speed = rng.uniform(22, 28)
-        aim_y, el = rng.uniform(-2.8, 2.8), math.radians(rng.uniform(8, 13))
-        az = math.atan2(aim_y, 11.0)
-        v0 = speed * np.array([math.cos(el) * math.cos(az), math.cos(el) * math.sin(az), math.sin(el)])
-        axis = np.array([rng.uniform(-0.2, 0.2), rng.uniform(-0.3, 0.3), rng.choice([-1.0, 1.0])]); axis /= np.linalg.norm(axis)
-        var = variants[k % len(variants)]
-        for j, (label, (c, tg, f)) in enumerate(SETUPS.items()):
-            shot = S.Shot(S.Cam(c, tg, f, SIZE), S.SOCCER, [(START_S, MARK, v0, axis)], duration_s=START_S + 0.62,
-                          capture_fps=FPS, seed=500 + 10 * k + j, **{"exposure_s": 1 / 1000, **var})
-            p = tmp / f"r{k}_{j}.mp4"
-            frames = S.render_shot(shot, p)
-            cam = look_at_camera(label, c, tg, f, SIZE)
-            truth = {round(r["t"] * FPS): r for r in frames if "r" in r and not r["repeat"]}
-            def tu(fl, i_, kk, truth=truth):
-                r = truth.get(round(fl.t[i_] * FPS))
-                return None if r is None else (r["u"], r["v"], r["r"])
-            compare(p, cam, S.SOCCER.radius_m, tu, f"realism {label} {var or 'plain'} k{k}")
+    from bench_single_camera_realism import FPS, radius_shots
+    for k, j, label, var, shot, cam in radius_shots(int(sys.argv[2]), [dict(), dict(sky=False)]):
+        p = tmp / f"r{k}_{j}.mp4"
+        frames = S.render_shot(shot, p)
+        truth = {round(r["t"] * FPS): r for r in frames if "r" in r and not r["repeat"]}
+        def tu(fl, i_, kk, truth=truth):
+            r = truth.get(round(fl.t[i_] * FPS))
+            return None if r is None else (r["u"], r["v"], r["r"])
+        compare(p, cam, S.SOCCER.radius_m, tu, f"realism {label} {var or 'plain'} k{k}")

@@ -170,20 +170,10 @@ def _write(path, doc):
     os.replace(tmp_path, path)
 
 
-def measure_radius_errors(n):
-    """The apparent-radius errors on balls balltraj did not draw: per tracked clip of scene_realism
-    (its own shading, seam, blur, noise and H.264; truth radius f R / depth times the lens magnification),
-    the common scale error (median of r / r_true - 1) and the per-frame scatter (1.4826 MAD of
-    r - (1 + scale) r_true) [px], of the detector's radius (written to RADIUS_ERRORS) and of the refined
-    edge-fit radius that the flights now carry (``vision/ball_size.py``, to REFINED_ERRORS, with the share
-    of frames whose error is within the stated one-sigma and how many frames were refined)."""
-    from balltraj.vision.ball_size import REFINED
-    from balltraj.vision.detect import lens_magnification
-
+def radius_shots(n, variants):
+    """The seeded penalty kicks of the radius measurement: (kick, set-up index, set-up name, variant, Shot,
+    balltraj camera) for ``n`` kicks, each filmed by every set-up, the variants taken in turn."""
     rng = np.random.default_rng(9001)
-    tmp = Path(tempfile.mkdtemp(prefix="bench_radius_"))
-    out, out_ref = [], []
-    variants = [dict(), dict(exposure_s=1 / 250), dict(sky=False), dict(noise=4.0, bitrate=1_000_000)]
     for k in range(n):
         speed = rng.uniform(22, 28)
         aim_y, el = rng.uniform(-2.8, 2.8), math.radians(rng.uniform(8, 13))
@@ -195,30 +185,46 @@ def measure_radius_errors(n):
         for j, (label, (c, tg, f)) in enumerate(SETUPS.items()):
             shot = S.Shot(S.Cam(c, tg, f, SIZE), S.SOCCER, [(START_S, MARK, v0, axis)], duration_s=START_S + 0.62,
                           capture_fps=FPS, seed=500 + 10 * k + j, **{"exposure_s": 1 / 1000, **var})
-            clip = tmp / f"r{k}_{j}.mp4"
-            frames = S.render_shot(shot, clip)
-            cam = look_at_camera(label, c, tg, f, SIZE)
-            res = track_clip(clip, cam, S.SOCCER.radius_m)
-            clip.unlink()
-            truth = {round(r["t"] * FPS): r["r"] for r in frames if "r" in r and not r["repeat"]}
-            pairs, pairs_ref, n_ref = [], [], 0
-            for fl, rr in zip(res.flights, res.radii):
-                mag = lens_magnification(cam, fl.uv)  # the refined radius is f R / depth; the truth carries the lens
-                for i, t in enumerate(fl.t):
-                    key = round(t * FPS)
-                    if key not in truth or not np.isfinite(rr.detector_radius_px[i]):
-                        continue
-                    pairs.append((truth[key], rr.detector_radius_px[i]))
-                    if rr.source[i] == REFINED:
-                        n_ref += 1
-                        pairs_ref.append((truth[key], rr.radius_px[i] * mag[i], rr.radius_sigma_px[i] * mag[i]))
-            base = {"set_up": label, "variant": ", ".join(f"{a}={b}" for a, b in var.items()) or "plain"}
-            row = {**base, "frames": len(pairs), **(_radius_row(pairs) if len(pairs) >= 8 else {})}
-            row_ref = {**base, "frames": len(pairs), "refined": n_ref,
-                       **(_radius_row(pairs_ref) if len(pairs_ref) >= 8 else {})}
-            out.append(row)
-            out_ref.append(row_ref)
-            print(row, row_ref, flush=True)
+            yield k, j, label, var, shot, look_at_camera(label, c, tg, f, SIZE)
+
+
+def measure_radius_errors(n):
+    """The apparent-radius errors on balls balltraj did not draw: per tracked clip of scene_realism
+    (its own shading, seam, blur, noise and H.264; truth radius f R / depth times the lens magnification),
+    the common scale error (median of r / r_true - 1) and the per-frame scatter (1.4826 MAD of
+    r - (1 + scale) r_true) [px], of the detector's radius (written to RADIUS_ERRORS) and of the refined
+    edge-fit radius that the flights now carry (``vision/ball_size.py``, to REFINED_ERRORS, with the share
+    of frames whose error is within the stated one-sigma and how many frames were refined)."""
+    from balltraj.vision.ball_size import REFINED
+    from balltraj.vision.detect import lens_magnification
+
+    tmp = Path(tempfile.mkdtemp(prefix="bench_radius_"))
+    out, out_ref = [], []
+    variants = [dict(), dict(exposure_s=1 / 250), dict(sky=False), dict(noise=4.0, bitrate=1_000_000)]
+    for k, j, label, var, shot, cam in radius_shots(n, variants):
+        clip = tmp / f"r{k}_{j}.mp4"
+        frames = S.render_shot(shot, clip)
+        res = track_clip(clip, cam, S.SOCCER.radius_m)
+        clip.unlink()
+        truth = {round(r["t"] * FPS): r["r"] for r in frames if "r" in r and not r["repeat"]}
+        pairs, pairs_ref, n_ref = [], [], 0
+        for fl, rr in zip(res.flights, res.radii):
+            mag = lens_magnification(cam, fl.uv)  # the refined radius is f R / depth; the truth carries the lens
+            for i, t in enumerate(fl.t):
+                key = round(t * FPS)
+                if key not in truth or not np.isfinite(rr.detector_radius_px[i]):
+                    continue
+                pairs.append((truth[key], rr.detector_radius_px[i]))
+                if rr.source[i] == REFINED:
+                    n_ref += 1
+                    pairs_ref.append((truth[key], rr.radius_px[i] * mag[i], rr.radius_sigma_px[i] * mag[i]))
+        base = {"set_up": label, "variant": ", ".join(f"{a}={b}" for a, b in var.items()) or "plain"}
+        row = {**base, "frames": len(pairs), **(_radius_row(pairs) if len(pairs) >= 8 else {})}
+        row_ref = {**base, "frames": len(pairs), "refined": n_ref,
+                   **(_radius_row(pairs_ref) if len(pairs_ref) >= 8 else {})}
+        out.append(row)
+        out_ref.append(row_ref)
+        print(row, row_ref, flush=True)
     cmd = f"PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py detector-radius {n}"
     doc = {"what": "apparent-radius errors of balltraj.vision's detector on tests/scene_realism.py penalty kicks "
                    "(scale = median r_detected / r_true - 1; noise_px = 1.4826 MAD of what is left per frame)",
