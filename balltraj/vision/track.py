@@ -35,6 +35,18 @@ def _scene_travel(tr: _Track) -> float:
     return _extent_px(np.asarray(pts, float))
 
 
+def smooth_head(tr: _Track, min_points: int) -> _Track | None:
+    """The longest beginning of the track (``min_points`` at least, and at least half its points)
+    that lies on a smooth curve (checks.smooth_enough): a track that took the ball and then, where the
+    ball passed in front of a person, ran on along the person; None when no such beginning is smooth."""
+    pts = tr.points
+    for n in range(len(pts) - 1, max(min_points, (len(pts) + 1) // 2) - 1, -1):
+        head = _Track.of(pts[:n], confirmed=tr.confirmed, ended="lost", bounce=False)
+        if smooth_enough(head):
+            return head
+    return None
+
+
 @dataclass(frozen=True)
 class TrackedFlight:
     flight: int
@@ -406,9 +418,14 @@ class Tracker:
             if not smooth_enough(tr):  # a thrown ball follows a smooth curve in the image; people and flags do not
                 # (but a long throw's track may have begun on the hand before release: kept without
                 # those first points if the rest is smooth and still crosses a quarter of the view)
+                head = smooth_head(tr, min_points)
                 tr = smooth_part(tr, min_points)
                 if tr is None or _extent_px(tr.uv()) < 0.25 * np.hypot(self.w, self.h):
-                    continue
+                    # (or a track that ran on from the ball onto a person it passed: its smooth beginning,
+                    # if that alone crosses a quarter of the view)
+                    tr = None if head is None else trim_strays(head)
+                    if tr is None or _extent_px(tr.uv()) < 0.25 * np.hypot(self.w, self.h):
+                        continue
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball
             if not self._looks_like_ball(tr):
