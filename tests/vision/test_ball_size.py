@@ -227,7 +227,7 @@ def test_edge_fit_jacobian_matches_finite_differences(with_background):
     # finite-difference precision, with it to well under one per cent of each column's norm.
     from scipy.optimize import approx_fprime
 
-    import balltraj.vision.ball_size as bs
+    import balltraj.vision.edge_fit as bs
 
     rng = np.random.default_rng(1)
     ys, xs = np.mgrid[0:30, 0:30]
@@ -255,7 +255,7 @@ def test_edge_fit_jacobian_matches_finite_differences(with_background):
 
 def test_light_coordinates_round_trip():
     # Source: round trip (stereographic coordinates of the light direction and back), and the unit length
-    from balltraj.vision.ball_size import _light_angles, _light_coords, _light_vector
+    from balltraj.vision.edge_fit import _light_angles, _light_coords, _light_vector
 
     for th, ph in ((0.0, 0.0), (0.3, -2.0), (1.2, 0.7), (1.8, 3.0)):
         p = _light_coords(th, ph)
