@@ -14,7 +14,7 @@ import numpy as np
 ROOT = Path.cwd()
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "tests/benchmarks")]
 from balltraj.vision.pipeline import track_clip
-from balltraj.vision.ball_size import refine_flight_radii, apply_refinement, REFINED
+from balltraj.vision.ball_size import REFINED, refine_flight_radii
 
 def stats(err):
     if len(err) < 5:
@@ -26,9 +26,8 @@ def stats(err):
 def compare(path, cam, R, truth_uv, label):
     res = track_clip(path, cam, R, refine_radius=False)
     refs = refine_flight_radii(path, res.flights, cam)
-    new = apply_refinement(res.flights, refs)
     det, ref, refonly_det, refonly_ref = [], [], [], []
-    for f0, f1, rr in zip(res.flights, new, refs):
+    for f0, rr in zip(res.flights, refs):
         for i, k in enumerate(f0.frame):
             tu = truth_uv(f0, i, int(k))
             if tu is None:

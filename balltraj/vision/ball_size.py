@@ -80,8 +80,6 @@ class RadiusRefinement:
         The surface reader starts from these (``pipeline_spin.FlightSurfaces``); the flight fit keeps the
         detector's centres (measured both ways in docs/validation.md: near the ground the ball's shadow
         pulls the edge fit, which moved the launch more than the shading's pull did).
-    centre_offset_px : ndarray, shape (2,) [px], optional
-        That median offset (NaN when too few frames were refined).
     """
 
     radius_px: np.ndarray
@@ -90,7 +88,6 @@ class RadiusRefinement:
     detector_radius_px: np.ndarray
     ratio: float
     centre_px: np.ndarray | None = None
-    centre_offset_px: np.ndarray | None = None
 
     @property
     def n_refined(self) -> int:
@@ -232,7 +229,6 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
         if ok.any():
             q = rad[ok] / np.where(det_f[ok] > 0, det_f[ok], np.nan)
             ratio = float(np.nanmedian(q))
-        offset = np.full(2, math.nan)
         if ok.sum() < MIN_REFINED:  # too few to scale the rest by: one kind of radius for the whole flight
             rad, sig, src = det_f.copy(), np.full(n, math.nan), np.full(n, DETECTOR, int)
             cen = uv.copy()
@@ -242,9 +238,8 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
             rad[kept] = det_f[kept] * ratio
             sig[kept] = det_f[kept] * spread
             src[kept] = DETECTOR_SCALED
-            offset = np.median(cen[ok] - uv[ok], axis=0)
-            cen[~ok] = uv[~ok] + offset
-        out.append(RadiusRefinement(rad, sig, src, det, ratio, cen, offset))
+            cen[~ok] = uv[~ok] + np.median(cen[ok] - uv[ok], axis=0)
+        out.append(RadiusRefinement(rad, sig, src, det, ratio, cen))
     return out
 
 

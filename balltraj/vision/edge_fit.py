@@ -31,8 +31,6 @@ class EdgeFit:
 
 _S = (np.arange(_BLUR_SAMPLES) + 0.5) / _BLUR_SAMPLES - 0.5  # positions along the blur, in blur lengths
 _NZ_FLOOR = 0.1  # the limb's sqrt singularity: d nz / d q taken at nz >= this (the model's values are exact)
-
-
 _FULL_RES_RADIUS = 8.0  # [px] balls up to 4 times this are fitted on every pixel
 _LIGHT_MAX = 0.6 * math.pi  # the light's largest angle from the line of sight (toward the camera)
 

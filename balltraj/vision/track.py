@@ -19,7 +19,7 @@ import numpy as np
 from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
                      downward_acceleration, sideways_motion, smooth_enough, world_speed)
 from .detect import Candidate, lens_magnification
-from .trackpoints import _Track, cut_at_false_reacquisition, smooth_part, trim_strays
+from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_strays
 
 
 def _scene_travel(tr: _Track) -> float:
@@ -33,18 +33,6 @@ def _scene_travel(tr: _Track) -> float:
     # began to shake near its end)
     pts = [(c.u, c.v) if c.u_scene is None else (c.u_scene, c.v_scene) for _, _, c in tr.points]
     return _extent_px(np.asarray(pts, float))
-
-
-def smooth_head(tr: _Track, min_points: int) -> _Track | None:
-    """The longest beginning of the track (``min_points`` at least, and at least half its points)
-    that lies on a smooth curve (checks.smooth_enough): a track that took the ball and then, where the
-    ball passed in front of a person, ran on along the person; None when no such beginning is smooth."""
-    pts = tr.points
-    for n in range(len(pts) - 1, max(min_points, (len(pts) + 1) // 2) - 1, -1):
-        head = _Track.of(pts[:n], confirmed=tr.confirmed, ended="lost", bounce=False)
-        if smooth_enough(head):
-            return head
-    return None
 
 
 @dataclass(frozen=True)
@@ -418,14 +406,15 @@ class Tracker:
             if not smooth_enough(tr):  # a thrown ball follows a smooth curve in the image; people and flags do not
                 # (but a long throw's track may have begun on the hand before release: kept without
                 # those first points if the rest is smooth and still crosses a quarter of the view)
-                head = smooth_head(tr, min_points)
-                tr = smooth_part(tr, min_points)
-                if tr is None or _extent_px(tr.uv()) < 0.25 * np.hypot(self.w, self.h):
+                part = smooth_part(tr, min_points)
+                if part is None or _extent_px(part.uv()) < 0.25 * np.hypot(self.w, self.h):
                     # (or a track that ran on from the ball onto a person it passed: its smooth beginning,
                     # if that alone crosses a quarter of the view)
-                    tr = None if head is None else trim_strays(head)
-                    if tr is None or _extent_px(tr.uv()) < 0.25 * np.hypot(self.w, self.h):
+                    head = smooth_head(tr, min_points)
+                    part = None if head is None else trim_strays(head)
+                    if part is None or _extent_px(part.uv()) < 0.25 * np.hypot(self.w, self.h):
                         continue
+                tr = part
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball
             if not self._looks_like_ball(tr):

@@ -181,3 +181,17 @@ def smooth_part(tr: _Track, min_points: int) -> _Track | None:
         if smooth_enough(rest):
             return rest
     return None
+
+
+def smooth_head(tr: _Track, min_points: int) -> _Track | None:
+    """The longest beginning of the track (``min_points`` at least, and at least half its points)
+    that lies on a smooth curve (checks.smooth_enough): a track that took the ball and then, where the
+    ball passed in front of a person, ran on along the person; None when no such beginning is smooth."""
+    from .checks import smooth_enough
+
+    pts = tr.points
+    for n in range(len(pts) - 1, max(min_points, (len(pts) + 1) // 2) - 1, -1):
+        head = _Track.of(pts[:n], confirmed=tr.confirmed, ended="lost", bounce=False)
+        if smooth_enough(head):
+            return head
+    return None

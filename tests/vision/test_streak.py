@@ -7,7 +7,7 @@ import pytest
 
 from balltraj.vision.detect import Candidate, Detector
 from balltraj.vision.streak import fit_streak, inside_streak
-from balltraj.vision.track import smooth_head
+from balltraj.vision.trackpoints import smooth_head
 from balltraj.vision.trackpoints import _Track
 
 
