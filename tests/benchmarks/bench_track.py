@@ -3,6 +3,8 @@ decode-only time of the same file, in one run (target ratio <= 1.5). Also checks
 (clips are streamed frame by frame).
 
 Run: python tests/benchmarks/bench_track.py
+     python tests/benchmarks/bench_track.py --profile   (one tracking pass under cProfile instead: where
+     the time goes, the 15 largest own-time items; profiler overhead included, so no ratio is printed)
 """
 import math
 import resource
@@ -41,6 +43,9 @@ def main():
     with tempfile.TemporaryDirectory() as d:
         clip = Path(d) / "throws.mp4"
         render_clip(Scene(cam, duration_s=3.3, flights=flights, ball_radius_m=model.radius_m, seed=3), clip)
+        if "--profile" in sys.argv:
+            _profile(clip, cam, model.radius_m)
+            return
         rss0 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
         t_dec, t_trk, c_dec, c_trk = [], [], [], []
         for _ in range(REPEATS):  # interleaved repeats; the best of each (timing noise here is ~10 %)
@@ -64,6 +69,20 @@ def main():
     # the same in processor time (all threads): less sensitive to other work on a shared machine, but it
     # counts the decoding thread's and the tracking thread's work together, so it is no wall-time figure
     print(f"processor time tracking / decode-only: {c_trk / c_dec:.2f} ({c_trk:.2f} s / {c_dec:.2f} s)")
+
+
+def _profile(clip, cam, radius_m):
+    """Decode-only and one tracking pass under cProfile; the main thread's largest own-time items."""
+    import cProfile
+    import pstats
+    for label, call in (("decode only", lambda: decode_only(clip)),
+                        ("tracking", lambda: track_clip(clip, cam, radius_m, refine_radius=False))):
+        prof = cProfile.Profile()
+        prof.enable()
+        call()
+        prof.disable()
+        print(f"--- {label} (main thread; the decoding thread's own work shows as waits on its queue)")
+        pstats.Stats(prof).sort_stats("tottime").print_stats(15)
 
 
 if __name__ == "__main__":
