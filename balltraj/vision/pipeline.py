@@ -13,6 +13,7 @@ from ..errors import InputError
 from .ball_size import RadiusRefinement, apply_refinement, refine_flight_radii
 from .clip import clip_info, read_frames
 from .detect import Detector, radius_gate_map
+from .extend import extend_flights
 from .frames import FrameGuard
 from .overlay import write_overlay
 from .track import TrackedFlight, Tracker
@@ -45,7 +46,7 @@ def _opencv_single_threaded():
 @_opencv_single_threaded()
 def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None = None, *,
                capture_fps: float | None = None, start_s: float = 0.0, end_s: float | None = None,
-               progress=None, overlay_path=None, on_exposure=None, refine_radius: bool = True) -> TrackResult:
+               progress=None, overlay_path=None, on_exposure=None, refine_radius: bool = True, extend: bool = True) -> TrackResult:
     """Find and link the ball in a clip.
 
     Every frame is read as the decoder's luma plane (the same pixels whether or not an overlay is
@@ -58,7 +59,9 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     time_s, candidates)``, if given, is called for every exposure. ``refine_radius`` (with a camera):
     each flight's apparent radii are measured again from the ball's edge (``ball_size.py``, one more
     decoding pass over the flights' frames, reported through ``progress`` as a second run through the
-    clip's frames); ``TrackResult.radii`` says which were.
+    clip's frames); ``TrackResult.radii`` says which were. ``extend``: each flight is carried on
+    where the tracker lost the ball (``extend.py``, fixed views; one more decoding pass over the
+    frames near the flights' ends).
     """
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):
@@ -113,6 +116,10 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         if progress is not None and n % 16 == 0:
             progress(n, info.frame_count)
     flights = [replace(f, frame=np.asarray(frame_of)[f.frame]) for f in trk.finish()]
+    if extend and flights:  # carried on where the tracker lost the ball (extend.py, a pass over those frames)
+        flights, _ = extend_flights(path, flights, frame_of, times, start_s=start_s, end_s=end_s,
+                                    capture_fps=capture_fps, view_moved=moved_px > 0.5,
+                                    frame_size=(info.width, info.height))
     radii = []
     if refine_radius and camera is not None and flights:  # hook: the radius from the ball's edge (ball_size.py)
         radii = refine_flight_radii(path, flights, camera, start_s=start_s, end_s=end_s, capture_fps=capture_fps,

@@ -212,14 +212,14 @@ def run_clip(name, shot, path, prev=None):
     expected = expected_segments(truth)
     dec = min(decode_only(path)[1] for _ in range(2))
     t0 = time.perf_counter()
-    res = track_clip(path, None, shot.ball.radius_m)
+    res = track_clip(path, None, shot.ball.radius_m, extend="--no-extend" not in sys.argv)
     ratio = (time.perf_counter() - t0) / dec
     rec, prec, bad, covers, n_vis, n_obs = evaluate(truth, res, expected)
     out = dict(rec=rec, prec=prec, bad=bad, n=len(res.flights), expect=len(expected), ratio=ratio, n_vis=n_vis,
                n_obs=n_obs, what=verdict(len(res.flights), expected, bad, covers, prec),
                contrast=contrast(path, truth), diam=[2 * r["r"] for r in truth if r["visible"]], cam=None)
     if not shot.follow and shot.shake_px <= 0.5:  # a fixed camera: its calibration file applies
-        res_c = track_clip(path, camera_file(shot), shot.ball.radius_m)
+        res_c = track_clip(path, camera_file(shot), shot.ball.radius_m, extend="--no-extend" not in sys.argv)
         rc, pc, bc, _, _, _ = evaluate(truth, res_c, expected)
         out["cam"] = f"{100 * rc:.0f} % / {100 * pc:.0f} % / {len(res_c.flights)} ({bc})"
     return out

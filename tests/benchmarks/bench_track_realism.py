@@ -89,7 +89,7 @@ def main():
             best = None
             for _ in range(2):
                 t0 = time.perf_counter()
-                res = track_clip(path, None, shot.ball.radius_m)
+                res = track_clip(path, None, shot.ball.radius_m, extend="--no-extend" not in sys.argv)
                 el = time.perf_counter() - t0
                 best = el if best is None else min(best, el)
             rec, prec, bad, n_vis, n_obs = evaluate(truth, res)

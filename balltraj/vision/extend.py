@@ -1,0 +1,344 @@
+"""Flights carried on past the ends where the tracker lost them, frame by frame along their own path.
+
+The tracker finds the ball where it moved against the running background. A ball that travels along
+the line of sight (a kick filmed from behind the kicker) moves a pixel or two a frame while its
+apparent size shrinks: the running background takes it in, and the track is lost long before the
+ball leaves the view. Here each flight's ends are carried on with what the flight itself says:
+
+- the next position from a quadratic in time through the flight's nearest observations, the radius
+  from 1/radius linear in time (apparent radius = f R / distance, and distance changes about
+  linearly over a short stretch);
+- a clean background for that frame: the median of earlier (or, going backwards, later) exposures
+  in which the ball was at least 3 radii away from where it is now expected;
+- the ball's evidence: the mean of the absolute difference over a disc of the predicted radius (a
+  matched filter; absolute, because the same ball is darker than a sky and brighter than a wall, and
+  a shaded ball is both at once), above its level in the window; a peak counts if it lies within the prediction's
+  gate, stands well above the filter's noise in the same window, reaches a share of the flight's own
+  contrast measured the same way on its tracked frames, and is isolated (an annulus around it is
+  quiet, and the difference around the peak is not lopsided: a person or a shadow moving with the
+  ball is not a ball);
+- ten misses in a row (a person passing in front), the edge of the view, another flight or a gap in the exposure times ends
+  the extension.
+
+Only for views that stay still (on a moving view the background frames do not line up).
+
+References
+----------
+Turin 1960, IRE Trans. Inf. Theory 6(3):311-329 (the matched filter);
+Piccardi 2004, IEEE SMC (background subtraction by the temporal median).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import cv2
+import numpy as np
+
+from .clip import read_frames
+
+KEEP_SHARE = 0.35  # least share of the flight's own median contrast a new observation must reach
+NOISE_SIGMAS = 5.0  # and least peak over the matched filter's noise in the window
+MAX_SHARE = 3.0  # most: a far stronger contrast is something else (a shirt, a shadow)
+RING_SHARE = 0.3  # the annulus 1.5-2.5 radii around it at most this share of its contrast
+LOPSIDED = 0.25  # the difference's centroid within 1.5 radii of the peak at most this many radii off it
+MAX_MISSES = 10
+REACH = 60  # most exposures added at either end
+REF_REACH = 40  # how far (exposures) background frames are looked for
+MEMORY_BYTES = 512 * 2 ** 20  # most grey frames held at once
+N_REFS = 3
+FIT_POINTS = 15
+
+
+@dataclass(frozen=True)
+class Extension:
+    """How many observations were added before the flight's first and after its last."""
+    before: int = 0
+    after: int = 0
+
+
+def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end_s: float | None = None,
+                   capture_fps: float | None = None, view_moved: bool = False, frame_size=None):
+    """Flights with observations added where the tracker lost the ball (one more pass over the needed frames).
+
+    ``exposures``: the container frame index of every exposure the tracker used, in order; ``times``
+    their times [s]; ``frame_size`` (width, height): the frames held stay within MEMORY_BYTES (the reach
+    is shortened when they would not). Returns (flights, [Extension per flight]).
+    """
+    none = [Extension() for _ in flights]
+    if view_moved or not flights or len(exposures) < 8:
+        return flights, none
+    exposures = np.asarray(exposures, int)
+    times = np.asarray(times, float)
+    index = {int(k): i for i, k in enumerate(exposures)}
+    spans = [(index[int(f.frame[0])], index[int(f.frame[-1])]) for f in flights]
+    cap = MEMORY_BYTES // max(1, int(np.prod(frame_size))) if frame_size is not None else None
+    reach, ref_reach = REACH, REF_REACH
+    while True:
+        need: set[int] = set()
+        for f, (i0, i1) in zip(flights, spans):
+            need.update(range(max(0, i0 - reach), min(len(exposures), i0 + ref_reach + 1)))
+            if f.end_reason == "lost":
+                need.update(range(max(0, i1 - ref_reach), min(len(exposures), i1 + reach + 1)))
+        if cap is None or len(need) <= cap or reach <= 8:
+            break
+        reach, ref_reach = reach * 2 // 3, ref_reach * 2 // 3
+    if cap is not None and len(need) > cap:
+        return flights, none
+    frames: dict[int, np.ndarray] = {}
+    wanted = {int(exposures[i]): i for i in need}
+    last = max(wanted)
+    for k, _, img in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True):
+        if k in wanted:
+            frames[wanted[k]] = img
+        if k >= last:
+            break
+    out, ext = [], []
+    for fi, f in enumerate(flights):
+        others = [s for j, s in enumerate(spans) if j != fi]
+        g, e = extend_one(f, frames, times, exposures, others)
+        out.append(g)
+        ext.append(e)
+    return out, ext
+
+
+def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=()):
+    """One flight carried on at both ends over the exposures in ``frames`` (exposure index -> grey image).
+
+    ``times``, ``exposures``: every exposure's time [s] and container frame index (``f.frame`` holds
+    container frame indices); ``others``: other flights' first and last exposure indices (not entered).
+    Returns (flight, Extension)."""
+    times = np.asarray(times, float)
+    exposures = np.asarray(exposures, int)
+    index = {int(k): i for i, k in enumerate(exposures)}
+    obs_i = [index[int(k)] for k in f.frame]
+    span = (obs_i[0], obs_i[-1])
+    known = {i: (float(f.uv[j, 0]), float(f.uv[j, 1]), float(f.radius_px[j])) for j, i in enumerate(obs_i)}
+    ref = _own_contrast(known, frames)
+    if ref is None:
+        return f, Extension()
+    level = ref
+    dt_med = float(np.median(np.diff(times))) if len(times) > 1 else 0.0
+    added = {}
+    for step, end_reason in ((-1, None), (1, f.end_reason)):
+        if step == 1 and end_reason != "lost":
+            continue
+        track = dict(known)
+        i = span[0] if step < 0 else span[1]
+        misses = 0
+        n_new = 0
+        while n_new + misses < REACH:
+            j = i + step
+            if j not in frames or j < 0 or j >= len(times) or any(a <= j <= b for a, b in others):
+                break
+            if abs(times[j] - times[i]) > 2.5 * dt_med * (misses + 1):
+                break  # a gap in the exposures (a scene cut)
+            pred = _predict(track, times, j, step)
+            if pred is None:
+                break
+            u, v, r, gate = pred
+            h, w = frames[j].shape
+            if not (r < u < w - 1 - r and r < v < h - 1 - r):
+                break
+            hit = _look(frames, track, j, u, v, r, gate, level, step)
+            i = j
+            if hit is None:
+                misses += 1
+                if misses >= MAX_MISSES:
+                    break
+                continue
+            misses = 0
+            n_new += 1
+            track[j] = (hit[0], hit[1], hit[3])
+            added[j] = (hit[0], hit[1], hit[3], hit[2])
+    if not added:
+        return f, Extension()
+    n_before = sum(1 for j in added if j < span[0])
+    keys = sorted(added)
+    t_all = np.concatenate([f.t, times[keys]])
+    order = np.argsort(t_all, kind="stable")
+    new_uv = np.array([[added[j][0], added[j][1]] for j in keys])
+    new_r = np.array([added[j][2] for j in keys])
+    fr_new = exposures[keys]
+    streak = float(np.median(f.streak_px)) if len(f.streak_px) else 0.0
+    g = replace(f, t=t_all[order], frame=np.concatenate([np.asarray(f.frame, int), fr_new])[order],
+                uv=np.vstack([f.uv, new_uv])[order], radius_px=np.concatenate([f.radius_px, new_r])[order],
+                streak_px=np.concatenate([f.streak_px, np.full(len(keys), streak)])[order],
+                quality=np.concatenate([f.quality, [min(1.0, added[j][3]) * 0.5 for j in keys]])[order])
+    return g, Extension(before=n_before, after=len(keys) - n_before)
+
+
+def _predict(track: dict, times: np.ndarray, j: int, step: int):
+    """Position, radius and gate [px] at exposure j from the nearest FIT_POINTS known positions."""
+    keys = sorted(track, reverse=step > 0)[:FIT_POINTS]
+    if len(keys) < 5:
+        return None
+    P = np.array([track[k] for k in keys])
+    tc = times[keys] - times[j]
+    tau = tc / max(float(np.abs(tc).max()), 1e-9)
+    # a stray observation at the end (the tracker took something else as it lost the ball) must not steer
+    # the prediction: fitted first without the nearest three, then kept by their agreement with the rest
+    keep = np.ones(len(keys), bool)
+    if len(keys) >= 8:
+        keep[:3] = False
+    for it in range(4):
+        fit = _path_fit(tau[keep], P[keep, :2])
+        e = np.linalg.norm(P[:, :2] - fit(tau), axis=1)
+        s = 1.4826 * float(np.median(e[keep]))
+        new = e <= max(3.0 * s, 1.5)
+        if new.sum() < 5 or np.array_equal(new, keep) and it > 0:
+            break
+        keep = new
+    n_par = 7 if keep.sum() >= 8 else 6
+    rms = float(np.sqrt((e[keep] ** 2).sum() / max(2 * int(keep.sum()) - n_par, 1)))
+    u, v = fit(np.zeros(1))[0]
+    # the apparent radius is f R / depth, and over a short stretch the depth changes about linearly
+    c_r = np.polyfit(tau[keep], 1.0 / np.maximum(P[keep, 2], 0.5), 1)
+    r = float(1.0 / max(float(np.polyval(c_r, 0.0)), 1e-3))
+    r = float(np.clip(r, 0.5 * P[:, 2].min(), 2.0 * P[:, 2].max()))
+    # the fit's scatter, growing with the distance ahead of the nearest observation it rests on
+    ahead = abs(j - keys[int(np.flatnonzero(keep)[0])])
+    gate = max(2.0, 0.5 * r) + min(3.0 * rms * ahead, 2.0 * r + 4.0)
+    return float(u), float(v), r, gate
+
+
+class _path_fit:
+    """The image of a path with constant acceleration seen in perspective: (a0 + a1 t + a2 t^2) / (1 + d t)
+    in both coordinates with one denominator (the depth, relative to its value at t = 0), by linear least
+    squares (the equation multiplied out); a quadratic (d = 0) from fewer than 8 points or when the
+    depth would not stay positive over the fitted times."""
+
+    def __init__(self, tau, uv):
+        n = len(tau)
+        self.d = 0.0
+        if n >= 8:
+            A = np.zeros((2 * n, 7))
+            A[:n, 0], A[:n, 1], A[:n, 2], A[:n, 6] = 1.0, tau, tau ** 2, -uv[:, 0] * tau
+            A[n:, 3], A[n:, 4], A[n:, 5], A[n:, 6] = 1.0, tau, tau ** 2, -uv[:, 1] * tau
+            x = np.linalg.lstsq(A, np.concatenate([uv[:, 0], uv[:, 1]]), rcond=None)[0]
+            if np.all(1.0 + x[6] * np.append(tau, 0.0) > 0.3):
+                self.a, self.d = x[:6].reshape(2, 3), float(x[6])
+                return
+        Q = np.stack([np.ones_like(tau), tau, tau ** 2], 1)
+        self.a = np.linalg.lstsq(Q, uv, rcond=None)[0].T
+
+    def __call__(self, tau):
+        tau = np.asarray(tau, float)
+        Q = np.stack([np.ones_like(tau), tau, tau ** 2], 1)
+        return (Q @ self.a.T) / (1.0 + self.d * tau)[:, None]
+
+
+def _background(frames, track, j, u, v, r, step, box):
+    """Median of up to N_REFS exposures on the flight's known side in which the ball was >= 3 r away."""
+    x0, y0, x1, y1 = box
+    refs = []
+    for d in range(4, REF_REACH + 1, 2):
+        k = j - step * d
+        if k not in frames:
+            continue
+        p = track.get(k)
+        if p is None or np.hypot(p[0] - u, p[1] - v) < 3.0 * max(r, p[2]):
+            continue
+        refs.append(frames[k][y0:y1, x0:x1])
+        if len(refs) == N_REFS:
+            break
+    if not refs:
+        return None
+    return np.median(np.stack(refs).astype(np.float32), axis=0)
+
+
+def _filters(r: float):
+    """The disc (radius r) and the annulus 1.5-2.5 r, as mean filters."""
+    n = int(np.ceil(2.5 * r)) + 1
+    yy, xx = np.mgrid[-n:n + 1, -n:n + 1]
+    d = np.hypot(xx, yy)
+    disc = (d <= r).astype(np.float32)
+    ring = ((d >= 1.5 * r) & (d <= 2.5 * r)).astype(np.float32)
+    return disc / disc.sum(), ring / max(ring.sum(), 1.0), n
+
+
+def _response(frames, track, j, u, v, r, step, reach):
+    """Disc and annulus means of the absolute difference D from the background around (u, v), less their
+    level in the window (the median), the disc filter's noise there, the window's corner and D; or None."""
+    img = frames[j]
+    h, w = img.shape
+    disc, ring, n = _filters(r)
+    half = int(np.ceil(reach)) + 2 * n + 2
+    x0, y0 = max(0, int(u) - half), max(0, int(v) - half)
+    x1, y1 = min(w, int(u) + half + 1), min(h, int(v) + half + 1)
+    bg = _background(frames, track, j, u, v, r, step, (x0, y0, x1, y1))
+    if bg is None:
+        return None
+    D = img[y0:y1, x0:x1].astype(np.float32) - bg
+    D = np.abs(D - float(np.median(D)))  # exposure drift and flicker: a common offset
+    Rd = cv2.filter2D(D, -1, disc, borderType=cv2.BORDER_REFLECT)
+    Rr = cv2.filter2D(D, -1, ring, borderType=cv2.BORDER_REFLECT)
+    base = float(np.median(Rd))
+    # the filter's noise from the quiet part of the window (a person moving there is not noise): the
+    # lower quartile of |deviation| is 0.3186 sigma for a Gaussian
+    noise = float(np.quantile(np.abs(Rd - base), 0.25)) / 0.3186
+    return Rd - base, Rr - base, noise, (x0, y0), D
+
+
+def _own_contrast(known: dict, frames):
+    """The flight's median contrast [grey levels] through the matched filter at its tracked
+    observations (the first and last dozen); None if too few can be measured."""
+    vals = []
+    for j in sorted(known)[-12:] + sorted(known)[:12]:
+        if j not in frames:
+            continue
+        u, v, r = known[j]
+        for step in (1, -1):
+            got = _response(frames, known, j, u, v, r, step, 1.0)
+            if got is None:
+                continue
+            Rd, _, _, (x0, y0), _ = got
+            yi, xi = int(round(v)) - y0, int(round(u)) - x0
+            if 0 <= yi < Rd.shape[0] and 0 <= xi < Rd.shape[1]:
+                vals.append(float(Rd[yi, xi]))
+            break
+    if len(vals) < 3:
+        return None
+    med = float(np.median(vals))
+    return med if med > 0 else None
+
+
+def _look(frames, track, j, u, v, r, gate, level, step):
+    """The ball near the prediction at exposure j: (u, v, contrast share, apparent radius), or None."""
+    got = _response(frames, track, j, u, v, r, step, gate)
+    if got is None:
+        return None
+    Rd, Rr, noise, (x0, y0), D = got
+    S = Rd
+    yy, xx = np.mgrid[0:S.shape[0], 0:S.shape[1]]
+    inside = np.hypot(xx + x0 - u, yy + y0 - v) <= gate
+    if not inside.any():
+        return None
+    Sm = np.where(inside, S, -np.inf)
+    yi, xi = np.unravel_index(int(np.argmax(Sm)), S.shape)
+    peak = float(S[yi, xi])
+    if peak < max(KEEP_SHARE * level, NOISE_SIGMAS * noise):
+        return None
+    if peak > MAX_SHARE * level or float(Rr[yi, xi]) > RING_SHARE * peak:
+        return None  # not isolated: part of something larger moving there
+    m = int(np.ceil(1.5 * r))
+    ys = slice(max(0, yi - m), min(D.shape[0], yi + m + 1))
+    xs = slice(max(0, xi - m), min(D.shape[1], xi + m + 1))
+    wy, wx = np.mgrid[ys, xs]
+    wgt = D[ys, xs] * (np.hypot(wx - xi, wy - yi) <= 1.5 * r)
+    if wgt.sum() > 0 and np.hypot(float((wgt * (wx - xi)).sum()), float((wgt * (wy - yi)).sum())) / float(wgt.sum()) > LOPSIDED * r:
+        return None  # lopsided: merged with something beside it
+    du = dv = 0.0
+    if 0 < xi < S.shape[1] - 1:
+        a, b, c = S[yi, xi - 1], S[yi, xi], S[yi, xi + 1]
+        den = a - 2 * b + c
+        du = float(np.clip(0.5 * (a - c) / den, -0.5, 0.5)) if den < 0 else 0.0
+    if 0 < yi < S.shape[0] - 1:
+        a, b, c = S[yi - 1, xi], S[yi, xi], S[yi + 1, xi]
+        den = a - 2 * b + c
+        dv = float(np.clip(0.5 * (a - c) / den, -0.5, 0.5)) if den < 0 else 0.0
+    # its own apparent radius (not the prediction's, which would only repeat the trend): the area where
+    # the difference exceeds half its level on the disc, the detector's way of sizing a blob
+    near = np.hypot(wx - xi, wy - yi) <= 1.5 * r
+    half = 0.5 * float(D[ys, xs][np.hypot(wx - xi, wy - yi) <= r].mean())
+    r_own = float(np.sqrt(max(int((D[ys, xs][near] > half).sum()), 1) / np.pi))
+    return float(x0 + xi + du), float(y0 + yi + dv), peak / level, r_own
