@@ -35,6 +35,7 @@ import cv2
 import numpy as np
 
 from .clip import read_frames
+from .trackpoints import PathFit
 
 KEEP_SHARE = 0.35  # least share of the flight's own median contrast a new observation must reach
 NOISE_SIGMAS = 5.0  # and least peak over the matched filter's noise in the window
@@ -181,7 +182,7 @@ def _predict(track: dict, times: np.ndarray, j: int, step: int):
     if len(keys) >= 8:
         keep[:3] = False
     for it in range(4):
-        fit = _path_fit(tau[keep], P[keep, :2])
+        fit = PathFit(tau[keep], P[keep, :2])
         e = np.linalg.norm(P[:, :2] - fit(tau), axis=1)
         s = 1.4826 * float(np.median(e[keep]))
         new = e <= max(3.0 * s, 1.5)
@@ -199,32 +200,6 @@ def _predict(track: dict, times: np.ndarray, j: int, step: int):
     ahead = abs(j - keys[int(np.flatnonzero(keep)[0])])
     gate = max(2.0, 0.5 * r) + min(3.0 * rms * ahead, 2.0 * r + 4.0)
     return float(u), float(v), r, gate
-
-
-class _path_fit:
-    """The image of a path with constant acceleration seen in perspective: (a0 + a1 t + a2 t^2) / (1 + d t)
-    in both coordinates with one denominator (the depth, relative to its value at t = 0), by linear least
-    squares (the equation multiplied out); a quadratic (d = 0) from fewer than 8 points or when the
-    depth would not stay positive over the fitted times."""
-
-    def __init__(self, tau, uv):
-        n = len(tau)
-        self.d = 0.0
-        if n >= 8:
-            A = np.zeros((2 * n, 7))
-            A[:n, 0], A[:n, 1], A[:n, 2], A[:n, 6] = 1.0, tau, tau ** 2, -uv[:, 0] * tau
-            A[n:, 3], A[n:, 4], A[n:, 5], A[n:, 6] = 1.0, tau, tau ** 2, -uv[:, 1] * tau
-            x = np.linalg.lstsq(A, np.concatenate([uv[:, 0], uv[:, 1]]), rcond=None)[0]
-            if np.all(1.0 + x[6] * np.append(tau, 0.0) > 0.3):
-                self.a, self.d = x[:6].reshape(2, 3), float(x[6])
-                return
-        Q = np.stack([np.ones_like(tau), tau, tau ** 2], 1)
-        self.a = np.linalg.lstsq(Q, uv, rcond=None)[0].T
-
-    def __call__(self, tau):
-        tau = np.asarray(tau, float)
-        Q = np.stack([np.ones_like(tau), tau, tau ** 2], 1)
-        return (Q @ self.a.T) / (1.0 + self.d * tau)[:, None]
 
 
 def _background(frames, track, j, u, v, r, step, box):

@@ -19,7 +19,7 @@ import numpy as np
 from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
                      downward_acceleration, sideways_motion, smooth_enough, world_speed)
 from .detect import Candidate, lens_magnification
-from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_strays
+from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_release, trim_strays
 
 
 def _scene_travel(tr: _Track) -> float:
@@ -422,7 +422,7 @@ class Tracker:
                 if a is not None:
                     self.fall_hints.append(a)
                 continue
-            flights.append(tr)
+            flights.append(trim_release(tr, min_points))
         flights.sort(key=lambda x: x.points[0][1])
         out = []
         for i, tr in enumerate(flights):

@@ -195,3 +195,80 @@ def smooth_head(tr: _Track, min_points: int) -> _Track | None:
         if smooth_enough(head):
             return head
     return None
+
+
+class PathFit:
+    """The image of a path with constant acceleration seen in perspective, ``(a0 + a1 t + a2 t^2) /
+    (1 + d t)`` in both coordinates with one denominator (the depth relative to its value at t = 0), by
+    linear least squares (the equation multiplied out); a quadratic (d = 0) from fewer than 8 points or
+    when the depth would not stay positive over the fitted times. ``fit(t)`` gives (len(t), 2) pixels."""
+
+    def __init__(self, t, uv):
+        t = np.asarray(t, float)
+        uv = np.asarray(uv, float)
+        n = len(t)
+        self.d = 0.0
+        if n >= 8:
+            A = np.zeros((2 * n, 7))
+            A[:n, 0], A[:n, 1], A[:n, 2], A[:n, 6] = 1.0, t, t ** 2, -uv[:, 0] * t
+            A[n:, 3], A[n:, 4], A[n:, 5], A[n:, 6] = 1.0, t, t ** 2, -uv[:, 1] * t
+            x = np.linalg.lstsq(A, np.concatenate([uv[:, 0], uv[:, 1]]), rcond=None)[0]
+            if np.all(1.0 + x[6] * np.append(t, 0.0) > 0.3):
+                self.a, self.d = x[:6].reshape(2, 3), float(x[6])
+                return
+        Q = np.stack([np.ones_like(t), t, t ** 2], 1)
+        self.a = np.linalg.lstsq(Q, uv, rcond=None)[0].T
+
+    def __call__(self, t):
+        t = np.asarray(t, float)
+        Q = np.stack([np.ones_like(t), t, t ** 2], 1)
+        return (Q @ self.a.T) / (1.0 + self.d * t)[:, None]
+
+
+def trim_release(tr: _Track, min_points: int, n_fit: int = 10) -> _Track:
+    """Drop the first points of a flight that are not yet in free flight (the ball still in the
+    thrower's hand or on the kicker's foot: the hand swings it on an arc that joins the flight's path
+    only at release). The flight starts at the first point c that the free-flight path through the
+    next ``n_fit`` points (:class:`PathFit`, strays left out) passes within max(2 px, half a radius) plus 4 times that
+    fit's scatter, where that scatter is no more than twice (plus half a pixel) the scatter of the
+    same fit in the flight's body (points from a third of the way on) or half the radius (a large
+    ball's centre is found less precisely, near the thrower or kicker more so). At most a third of the
+    points go and ``min_points`` stay; with no such point nothing goes."""
+    pts = list(tr.points)
+    limit = min(len(pts) // 3, len(pts) - max(min_points, n_fit + 1))
+    if limit <= 0:
+        return tr
+
+    def fit_of(seg):
+        ts = np.array([q[1] for q in seg])
+        scale = max(float(ts[-1] - ts[0]), 1e-9)
+        uv = np.array([(q[2].u, q[2].v) for q in seg])
+        tau = (ts - ts[0]) / scale
+        ok = np.ones(len(seg), bool)
+        for _ in range(2):  # a stray detection or two left out, the worst first
+            fit = PathFit(tau[ok], uv[ok])
+            res = np.where(ok, np.linalg.norm(uv - fit(tau), axis=1), 0.0)
+            worst = int(np.argmax(res))
+            if res[worst] <= max(1.5, 3.0 * 1.4826 * float(np.median(res[ok]))):
+                break
+            ok[worst] = False
+        fit = PathFit(tau[ok], uv[ok])
+        res = np.linalg.norm(uv - fit(tau), axis=1)[ok]
+        return fit, ts[0], scale, float(np.sqrt((res ** 2).sum() / max(2 * len(res) - 7, 1)))
+
+    body = len(pts) // 3
+    rms_body = fit_of(pts[body:body + n_fit])[3]
+    for c in range(limit + 1):
+        fit, t0, scale, rms = fit_of(pts[c + 1:c + 1 + n_fit])
+        r = float(np.median([q[2].radius_px for q in pts[c + 1:c + 1 + n_fit]]))
+        if rms > max(2.0 * rms_body + 0.5, 0.5 * r):
+            continue  # those points are not in free flight either
+        p = pts[c]
+        miss = float(np.linalg.norm(np.array([p[2].u, p[2].v]) - fit(np.array([(p[1] - t0) / scale]))[0]))
+        if miss <= max(2.0, 0.5 * r) + 4.0 * rms:
+            break
+    else:
+        return tr
+    if c == 0:
+        return tr
+    return _Track.of(pts[c:], confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)

@@ -2,6 +2,7 @@
 a ball kicked away from the camera (it moves a pixel or two a frame and shrinks as 1/distance), its
 image from a pinhole projection of its 3-D path computed in the test."""
 import numpy as np
+import pytest
 
 from balltraj.vision.extend import extend_one
 from balltraj.vision.track import TrackedFlight
@@ -107,3 +108,39 @@ def test_a_flight_that_left_the_frame_is_not_carried_on():
     from dataclasses import replace
     g, e = extend_one(replace(f, end_reason="left the frame"), frames, t, np.arange(n))
     assert e.after == 0 and len(g.t) == 20
+
+
+def _track_of(uv, t, r=5.0):
+    from balltraj.vision.detect import Candidate
+    from balltraj.vision.trackpoints import _Track
+    return _Track.of([(k, float(tk), Candidate(float(u), float(v), r, 2.0, 0.0, np.pi * r * r, 80.0))
+                      for k, (tk, (u, v)) in enumerate(zip(t, uv))], confirmed=True, ended="left the frame")
+
+
+@pytest.mark.parametrize("side", [1.0, -1.0])
+def test_the_points_before_release_are_dropped_and_a_clean_flight_is_left_whole(side):
+    from balltraj.vision.trackpoints import trim_release
+    rng = np.random.default_rng(8)
+    fps = 30.0
+    # the flight: a projected drag-free parabola (as _truth), released at t = 0.2 s
+    t = np.arange(30) / fps
+    tf = t - 0.2
+    X, Y, Z = -1.0 + 12.0 * tf, -(1.0 + 4.0 * tf - 4.905 * tf ** 2), 9.0 + 1.5 * tf
+    flight = np.stack([CX + F_PX * X / Z, CY + F_PX * Y / Z], 1)
+    # before release the hand swings the ball on a 0.7 m arm: a circle that meets the flight's path at
+    # release with the flight's own velocity there (Source: the ball leaves the hand at the hand's
+    # velocity, common practice), not the flight's parabola before it
+    rel = 6
+    vel = (flight[rel + 1] - flight[rel - 1]) * fps / 2  # [px/s]
+    e2 = vel / np.linalg.norm(vel)
+    e1 = side * np.array([e2[1], -e2[0]])  # the arm's shoulder on either side of the path
+    arm_px = 0.7 * F_PX / 9.0
+    phi = np.linalg.norm(vel) / arm_px * (t[:rel] - t[rel])
+    centre = flight[rel] - arm_px * e1
+    arm = centre + arm_px * (np.cos(phi)[:, None] * e1 + np.sin(phi)[:, None] * e2)
+    uv = np.vstack([arm, flight[rel:]]) + rng.normal(0, 0.3, (30, 2))
+    trimmed = trim_release(_track_of(uv, t), 8)
+    assert trimmed.points[0][0] in (rel - 1, rel, rel + 1), trimmed.points[0][0]
+    # a flight that starts in free flight keeps every point
+    clean = flight + rng.normal(0, 0.3, flight.shape)
+    assert len(trim_release(_track_of(clean, t), 8).points) == 30
