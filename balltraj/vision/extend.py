@@ -1,24 +1,28 @@
-"""Flights carried on past the ends where the tracker lost them, frame by frame along their own path.
+"""Flights carried on past the ends where the tracker lost them, and through the exposures it coasted
+over, frame by frame along their own path.
 
 The tracker finds the ball where it moved against the running background. A ball that travels along
 the line of sight (a kick filmed from behind the kicker) moves a pixel or two a frame while its
 apparent size shrinks: the running background takes it in, and the track is lost long before the
-ball leaves the view. Here each flight's ends are carried on with what the flight itself says:
+ball leaves the view; elsewhere a track coasts through exposures where the ball's blob merged with
+something. Here each flight's start, its end where it was lost, and its gaps are searched with what
+the flight itself says:
 
-- the next position from a quadratic in time through the flight's nearest observations, the radius
-  from 1/radius linear in time (apparent radius = f R / distance, and distance changes about
-  linearly over a short stretch);
+- the expected position from the image of a path with constant acceleration seen in perspective
+  (:class:`~balltraj.vision.trackpoints.PathFit`) through the nearest observations (on both sides
+  inside a gap), strays left out; the radius from 1/radius linear in time (apparent radius =
+  f R / distance, and distance changes about linearly over a short stretch);
 - a clean background for that frame: the median of earlier (or, going backwards, later) exposures
   in which the ball was at least 3 radii away from where it is now expected;
-- the ball's evidence: the mean of the absolute difference over a disc of the predicted radius (a
+- the ball's evidence: the mean of the absolute difference over a disc of the expected radius (a
   matched filter; absolute, because the same ball is darker than a sky and brighter than a wall, and
-  a shaded ball is both at once), above its level in the window; a peak counts if it lies within the prediction's
-  gate, stands well above the filter's noise in the same window, reaches a share of the flight's own
-  contrast measured the same way on its tracked frames, and is isolated (an annulus around it is
-  quiet, and the difference around the peak is not lopsided: a person or a shadow moving with the
-  ball is not a ball);
-- ten misses in a row (a person passing in front), the edge of the view, another flight or a gap in the exposure times ends
-  the extension.
+  a shaded ball is both at once), above its level in the window; a peak counts if it lies within the
+  prediction's gate, stands well above the filter's noise in the same window, reaches a share of the
+  flight's own contrast measured the same way on its tracked frames, and is isolated (an annulus
+  around it is quiet, and the difference around the peak is not lopsided: a person or a shadow
+  moving with the ball is not a ball); its radius is its own (the area above half its contrast);
+- ten misses in a row (a person passing in front), the edge of the view, another flight or a gap in
+  the exposure times ends an extension.
 
 Only for views that stay still (on a moving view the background frames do not line up).
 
@@ -52,9 +56,10 @@ FIT_POINTS = 15
 
 @dataclass(frozen=True)
 class Extension:
-    """How many observations were added before the flight's first and after its last."""
+    """How many observations were added before the flight's first, after its last, and in between."""
     before: int = 0
     after: int = 0
+    filled: int = 0
 
 
 def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end_s: float | None = None,
@@ -78,6 +83,7 @@ def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end
         need: set[int] = set()
         for f, (i0, i1) in zip(flights, spans):
             need.update(range(max(0, i0 - reach), min(len(exposures), i0 + ref_reach + 1)))
+            need.update(range(i0, i1 + 1))  # the gaps inside it
             if f.end_reason == "lost":
                 need.update(range(max(0, i1 - ref_reach), min(len(exposures), i1 + reach + 1)))
         if cap is None or len(need) <= cap or reach <= 8:
@@ -151,6 +157,26 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=()):
             n_new += 1
             track[j] = (hit[0], hit[1], hit[3])
             added[j] = (hit[0], hit[1], hit[3], hit[2])
+    # the exposures inside the flight that the tracker missed (coasting through them): the path on
+    # both sides is known, so the prediction is an interpolation
+    track = dict(known)
+    track.update({j: (a[0], a[1], a[2]) for j, a in added.items()})
+    filled = 0
+    for j in range(span[0] + 1, span[1]):
+        if j in known or j not in frames:
+            continue
+        pred = _interpolate(known, times, j)
+        if pred is None:
+            continue
+        u, v, r, gate = pred
+        hit = None
+        for step in (1, -1):
+            if _background(frames, track, j, u, v, r, step, _box(frames[j], u, v, r, gate)) is not None:
+                hit = _look(frames, track, j, u, v, r, gate, level, step)
+                break
+        if hit is not None:
+            added[j] = (hit[0], hit[1], hit[3], hit[2])
+            filled += 1
     if not added:
         return f, Extension()
     n_before = sum(1 for j in added if j < span[0])
@@ -165,7 +191,7 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=()):
                 uv=np.vstack([f.uv, new_uv])[order], radius_px=np.concatenate([f.radius_px, new_r])[order],
                 streak_px=np.concatenate([f.streak_px, np.full(len(keys), streak)])[order],
                 quality=np.concatenate([f.quality, [min(1.0, added[j][3]) * 0.5 for j in keys]])[order])
-    return g, Extension(before=n_before, after=len(keys) - n_before)
+    return g, Extension(before=n_before, after=len(keys) - n_before - filled, filled=filled)
 
 
 def _predict(track: dict, times: np.ndarray, j: int, step: int):
@@ -202,6 +228,39 @@ def _predict(track: dict, times: np.ndarray, j: int, step: int):
     return float(u), float(v), r, gate
 
 
+def _interpolate(known: dict, times: np.ndarray, j: int, side: int = 5):
+    """Position, radius and gate [px] at exposure j inside a flight, from up to ``side`` observations on
+    each side of it (at least two on each), strays left out; or None."""
+    before = [k for k in sorted(known) if k < j][-side:]
+    after = [k for k in sorted(known) if k > j][:side]
+    if len(before) < 2 or len(after) < 2:
+        return None
+    keys = before + after
+    P = np.array([known[k] for k in keys])
+    tc = times[keys] - times[j]
+    tau = tc / max(float(np.abs(tc).max()), 1e-9)
+    keep = np.ones(len(keys), bool)
+    for it in range(3):
+        fit = PathFit(tau[keep], P[keep, :2])
+        e = np.linalg.norm(P[:, :2] - fit(tau), axis=1)
+        new = e <= max(3.0 * 1.4826 * float(np.median(e[keep])), 1.5)
+        if new.sum() < 5 or np.array_equal(new, keep):
+            break
+        keep = new
+    rms = float(np.sqrt((e[keep] ** 2).sum() / max(2 * int(keep.sum()) - (7 if keep.sum() >= 8 else 6), 1)))
+    u, v = fit(np.zeros(1))[0]
+    c_r = np.polyfit(tau[keep], 1.0 / np.maximum(P[keep, 2], 0.5), 1)
+    r = float(np.clip(1.0 / max(float(np.polyval(c_r, 0.0)), 1e-3), 0.5 * P[:, 2].min(), 2.0 * P[:, 2].max()))
+    return float(u), float(v), r, max(2.0, 0.5 * r) + 3.0 * rms
+
+
+def _box(img, u, v, r, reach):
+    """The window around (u, v) that the filters need: (x0, y0, x1, y1)."""
+    h, w = img.shape
+    half = int(np.ceil(reach)) + 2 * (int(np.ceil(2.5 * r)) + 1) + 2
+    return max(0, int(u) - half), max(0, int(v) - half), min(w, int(u) + half + 1), min(h, int(v) + half + 1)
+
+
 def _background(frames, track, j, u, v, r, step, box):
     """Median of up to N_REFS exposures on the flight's known side in which the ball was >= 3 r away."""
     x0, y0, x1, y1 = box
@@ -235,11 +294,8 @@ def _response(frames, track, j, u, v, r, step, reach):
     """Disc and annulus means of the absolute difference D from the background around (u, v), less their
     level in the window (the median), the disc filter's noise there, the window's corner and D; or None."""
     img = frames[j]
-    h, w = img.shape
-    disc, ring, n = _filters(r)
-    half = int(np.ceil(reach)) + 2 * n + 2
-    x0, y0 = max(0, int(u) - half), max(0, int(v) - half)
-    x1, y1 = min(w, int(u) + half + 1), min(h, int(v) + half + 1)
+    disc, ring, _ = _filters(r)
+    x0, y0, x1, y1 = _box(img, u, v, r, reach)
     bg = _background(frames, track, j, u, v, r, step, (x0, y0, x1, y1))
     if bg is None:
         return None

@@ -144,3 +144,23 @@ def test_the_points_before_release_are_dropped_and_a_clean_flight_is_left_whole(
     # a flight that starts in free flight keeps every point
     clean = flight + rng.normal(0, 0.3, flight.shape)
     assert len(trim_release(_track_of(clean, t), 8).points) == 30
+
+
+def test_the_exposures_a_flight_coasted_through_are_filled_in_on_the_ball():
+    rng = np.random.default_rng(6)
+    n = 40
+    t, uv, r = _truth(n)
+    frames = dict(enumerate(_frames(uv, r, rng)))
+    f = _flight(t, uv, r, n, rng)
+    gaps = [12, 13, 14, 25, 31]
+    keep = np.array([k not in gaps for k in range(n)])
+    from dataclasses import replace
+    f = replace(f, t=f.t[keep], frame=f.frame[keep], uv=f.uv[keep], radius_px=f.radius_px[keep],
+                streak_px=f.streak_px[keep], quality=f.quality[keep], end_reason="left the frame")
+    g, e = extend_one(f, frames, t, np.arange(n))
+    assert e.filled == len(gaps) and e.before == e.after == 0, e
+    fr = np.asarray(g.frame)
+    assert list(fr) == list(range(n))
+    # Source: the benchmarks' match rule, within max(2 px, half the radius) of the true centre
+    err = np.hypot(*(g.uv[gaps] - uv[gaps]).T)
+    assert np.all(err <= np.maximum(2.0, 0.5 * r[gaps])), err
