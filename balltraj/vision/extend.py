@@ -24,7 +24,8 @@ the flight itself says:
 - ten misses in a row (a person passing in front), the edge of the view, another flight or a gap in
   the exposure times ends an extension.
 
-Only for views that stay still (on a moving view the background frames do not line up).
+On a moving view (hand-held, a pan) positions are fitted in the scene (the view's motion, estimated
+frame to frame while tracking, undone) and the background frames are moved onto the frame searched.
 
 References
 ----------
@@ -62,17 +63,51 @@ class Extension:
     filled: int = 0
 
 
+class View:
+    """Where each exposure's pixels are in the scene: ``motions[i]`` (3 x 3) maps the scene (the first
+    exposure since the last cut) to exposure i's image, None for a fixed view; ``segment[i]`` counts the
+    scene cuts before exposure i (background frames come from the same scene only)."""
+
+    def __init__(self, n: int, motions=None, segment=None):
+        self.M = None if motions is None else np.asarray(motions, float)
+        self.Minv = None if motions is None else np.linalg.inv(self.M)
+        self.segment = np.zeros(n, int) if segment is None else np.asarray(segment, int)
+
+    def scene(self, j: int, u: float, v: float):
+        if self.M is None:
+            return u, v
+        x = self.Minv[j] @ [u, v, 1.0]
+        return float(x[0]), float(x[1])
+
+    def image(self, j: int, u: float, v: float):
+        if self.M is None:
+            return u, v
+        x = self.M[j] @ [u, v, 1.0]
+        return float(x[0]), float(x[1])
+
+    def crop(self, frames, k: int, j: int, box):
+        """Exposure k's pixels over exposure j's window ``box`` (moved with the view)."""
+        x0, y0, x1, y1 = box
+        if self.M is None:
+            return frames[k][y0:y1, x0:x1]
+        A = (self.M[k] @ self.Minv[j] @ np.array([[1.0, 0, x0], [0, 1.0, y0], [0, 0, 1.0]]))[:2]
+        return cv2.warpAffine(frames[k], A, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+                              borderMode=cv2.BORDER_REPLICATE)
+
+
 def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end_s: float | None = None,
-                   capture_fps: float | None = None, view_moved: bool = False, frame_size=None):
+                   capture_fps: float | None = None, motions=None, segment=None, frame_size=None):
     """Flights with observations added where the tracker lost the ball (one more pass over the needed frames).
 
     ``exposures``: the container frame index of every exposure the tracker used, in order; ``times``
-    their times [s]; ``frame_size`` (width, height): the frames held stay within MEMORY_BYTES (the reach
-    is shortened when they would not). Returns (flights, [Extension per flight]).
+    their times [s]; ``motions``, ``segment``: see :class:`View` (None: a fixed view, no cuts);
+    ``frame_size`` (width, height): the frames held stay within MEMORY_BYTES (the reach is shortened
+    when they would not). Returns (flights, [Extension per flight]).
     """
     none = [Extension() for _ in flights]
-    if view_moved or not flights or len(exposures) < 8:
+    if not flights or len(exposures) < 8:
         return flights, none
+    view = View(len(exposures), motions, segment)
     exposures = np.asarray(exposures, int)
     times = np.asarray(times, float)
     index = {int(k): i for i, k in enumerate(exposures)}
@@ -102,25 +137,28 @@ def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end
     out, ext = [], []
     for fi, f in enumerate(flights):
         others = [s for j, s in enumerate(spans) if j != fi]
-        g, e = extend_one(f, frames, times, exposures, others)
+        g, e = extend_one(f, frames, times, exposures, others, view)
         out.append(g)
         ext.append(e)
     return out, ext
 
 
-def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=()):
+def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=(), view: View | None = None):
     """One flight carried on at both ends over the exposures in ``frames`` (exposure index -> grey image).
 
     ``times``, ``exposures``: every exposure's time [s] and container frame index (``f.frame`` holds
-    container frame indices); ``others``: other flights' first and last exposure indices (not entered).
-    Returns (flight, Extension)."""
+    container frame indices); ``others``: other flights' first and last exposure indices (not entered);
+    ``view``: the view's motion and cuts (None: fixed, no cuts). Returns (flight, Extension)."""
     times = np.asarray(times, float)
     exposures = np.asarray(exposures, int)
     index = {int(k): i for i, k in enumerate(exposures)}
     obs_i = [index[int(k)] for k in f.frame]
     span = (obs_i[0], obs_i[-1])
-    known = {i: (float(f.uv[j, 0]), float(f.uv[j, 1]), float(f.radius_px[j])) for j, i in enumerate(obs_i)}
-    ref = _own_contrast(known, frames)
+    view = view or View(len(times))
+    # positions in the scene (the view's motion undone), radii [px]
+    known = {i: (*view.scene(i, float(f.uv[j, 0]), float(f.uv[j, 1])), float(f.radius_px[j]))
+             for j, i in enumerate(obs_i)}
+    ref = _own_contrast(known, frames, view)
     if ref is None:
         return f, Extension()
     level = ref
@@ -135,18 +173,20 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=()):
         n_new = 0
         while n_new + misses < REACH:
             j = i + step
-            if j not in frames or j < 0 or j >= len(times) or any(a <= j <= b for a, b in others):
+            if (j not in frames or j < 0 or j >= len(times) or any(a <= j <= b for a, b in others)
+                    or view.segment[j] != view.segment[i]):
                 break
             if abs(times[j] - times[i]) > 2.5 * dt_med * (misses + 1):
                 break  # a gap in the exposures (a scene cut)
             pred = _predict(track, times, j, step)
             if pred is None:
                 break
-            u, v, r, gate = pred
+            us, vs, r, gate = pred
+            u, v = view.image(j, us, vs)
             h, w = frames[j].shape
             if not (r < u < w - 1 - r and r < v < h - 1 - r):
                 break
-            hit = _look(frames, track, j, u, v, r, gate, level, step)
+            hit = _look(frames, track, j, (u, v), (us, vs), r, gate, level, step, view)
             i = j
             if hit is None:
                 misses += 1
@@ -155,12 +195,12 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=()):
                 continue
             misses = 0
             n_new += 1
-            track[j] = (hit[0], hit[1], hit[3])
+            track[j] = (*view.scene(j, hit[0], hit[1]), hit[3])
             added[j] = (hit[0], hit[1], hit[3], hit[2])
     # the exposures inside the flight that the tracker missed (coasting through them): the path on
     # both sides is known, so the prediction is an interpolation
     track = dict(known)
-    track.update({j: (a[0], a[1], a[2]) for j, a in added.items()})
+    track.update({j: (*view.scene(j, a[0], a[1]), a[2]) for j, a in added.items()})
     filled = 0
     for j in range(span[0] + 1, span[1]):
         if j in known or j not in frames:
@@ -168,11 +208,12 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=()):
         pred = _interpolate(known, times, j)
         if pred is None:
             continue
-        u, v, r, gate = pred
+        us, vs, r, gate = pred
+        u, v = view.image(j, us, vs)
         hit = None
         for step in (1, -1):
-            if _background(frames, track, j, u, v, r, step, _box(frames[j], u, v, r, gate)) is not None:
-                hit = _look(frames, track, j, u, v, r, gate, level, step)
+            if _background(frames, track, j, (us, vs), r, step, _box(frames[j], u, v, r, gate), view) is not None:
+                hit = _look(frames, track, j, (u, v), (us, vs), r, gate, level, step, view)
                 break
         if hit is not None:
             added[j] = (hit[0], hit[1], hit[3], hit[2])
@@ -261,18 +302,18 @@ def _box(img, u, v, r, reach):
     return max(0, int(u) - half), max(0, int(v) - half), min(w, int(u) + half + 1), min(h, int(v) + half + 1)
 
 
-def _background(frames, track, j, u, v, r, step, box):
-    """Median of up to N_REFS exposures on the flight's known side in which the ball was >= 3 r away."""
-    x0, y0, x1, y1 = box
+def _background(frames, track, j, s, r, step, box, view):
+    """Median of up to N_REFS exposures of the same scene on the flight's known side in which the ball was
+    >= 3 r away from the scene position ``s`` (moved with the view onto exposure j's window ``box``)."""
     refs = []
     for d in range(4, REF_REACH + 1, 2):
         k = j - step * d
-        if k not in frames:
+        if k not in frames or view.segment[k] != view.segment[j]:
             continue
         p = track.get(k)
-        if p is None or np.hypot(p[0] - u, p[1] - v) < 3.0 * max(r, p[2]):
+        if p is None or np.hypot(p[0] - s[0], p[1] - s[1]) < 3.0 * max(r, p[2]):
             continue
-        refs.append(frames[k][y0:y1, x0:x1])
+        refs.append(view.crop(frames, k, j, box))
         if len(refs) == N_REFS:
             break
     if not refs:
@@ -290,13 +331,14 @@ def _filters(r: float):
     return disc / disc.sum(), ring / max(ring.sum(), 1.0), n
 
 
-def _response(frames, track, j, u, v, r, step, reach):
-    """Disc and annulus means of the absolute difference D from the background around (u, v), less their
-    level in the window (the median), the disc filter's noise there, the window's corner and D; or None."""
+def _response(frames, track, j, uv, s, r, step, reach, view):
+    """Disc and annulus means of the absolute difference D from the background around the pixel ``uv``
+    (scene position ``s``), less their level in the window (the median), the disc filter's noise there,
+    the window's corner and D; or None."""
     img = frames[j]
     disc, ring, _ = _filters(r)
-    x0, y0, x1, y1 = _box(img, u, v, r, reach)
-    bg = _background(frames, track, j, u, v, r, step, (x0, y0, x1, y1))
+    x0, y0, x1, y1 = _box(img, uv[0], uv[1], r, reach)
+    bg = _background(frames, track, j, s, r, step, (x0, y0, x1, y1), view)
     if bg is None:
         return None
     D = img[y0:y1, x0:x1].astype(np.float32) - bg
@@ -310,16 +352,17 @@ def _response(frames, track, j, u, v, r, step, reach):
     return Rd - base, Rr - base, noise, (x0, y0), D
 
 
-def _own_contrast(known: dict, frames):
+def _own_contrast(known: dict, frames, view):
     """The flight's median contrast [grey levels] through the matched filter at its tracked
     observations (the first and last dozen); None if too few can be measured."""
     vals = []
     for j in sorted(known)[-12:] + sorted(known)[:12]:
         if j not in frames:
             continue
-        u, v, r = known[j]
+        us, vs, r = known[j]
+        u, v = view.image(j, us, vs)
         for step in (1, -1):
-            got = _response(frames, known, j, u, v, r, step, 1.0)
+            got = _response(frames, known, j, (u, v), (us, vs), r, step, 1.0, view)
             if got is None:
                 continue
             Rd, _, _, (x0, y0), _ = got
@@ -333,9 +376,11 @@ def _own_contrast(known: dict, frames):
     return med if med > 0 else None
 
 
-def _look(frames, track, j, u, v, r, gate, level, step):
-    """The ball near the prediction at exposure j: (u, v, contrast share, apparent radius), or None."""
-    got = _response(frames, track, j, u, v, r, step, gate)
+def _look(frames, track, j, uv, s, r, gate, level, step, view):
+    """The ball near the prediction at exposure j (pixel ``uv``, scene position ``s``): (u, v, contrast
+    share, apparent radius) in exposure j's pixels, or None."""
+    u, v = uv
+    got = _response(frames, track, j, uv, s, r, step, gate, view)
     if got is None:
         return None
     Rd, Rr, noise, (x0, y0), D = got

@@ -60,8 +60,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     each flight's apparent radii are measured again from the ball's edge (``ball_size.py``, one more
     decoding pass over the flights' frames, reported through ``progress`` as a second run through the
     clip's frames); ``TrackResult.radii`` says which were. ``extend``: each flight is carried on
-    where the tracker lost the ball (``extend.py``, fixed views; one more decoding pass over the
-    frames near the flights' ends).
+    where the tracker lost the ball and through the exposures it coasted over (``extend.py``; one more
+    decoding pass over the flights' frames and those near their ends).
     """
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):
@@ -82,6 +82,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         return gray, small, kind, guard.total_motion.copy(), guard.max_moved_px
 
     times, frame_of, log = [], [], []
+    views, segment = [], []  # per exposure: the view's motion (scene -> image, full resolution), cuts before it
     moved_px = 0.0
     n = n_repeat = 0
     cuts: list[float] = []
@@ -107,6 +108,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         if moved_px > 0 and cands:
             cands = _in_scene(cands, motion)
         trk.update(len(frame_of), t, cands)
+        views.append(np.vstack([motion * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]]))
+        segment.append(len(cuts))
         frame_of.append(k)
         times.append(t)
         if overlay_path is not None:
@@ -118,8 +121,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     flights = [replace(f, frame=np.asarray(frame_of)[f.frame]) for f in trk.finish()]
     if extend and flights:  # carried on where the tracker lost the ball (extend.py, a pass over those frames)
         flights, _ = extend_flights(path, flights, frame_of, times, start_s=start_s, end_s=end_s,
-                                    capture_fps=capture_fps, view_moved=moved_px > 0.5,
-                                    frame_size=(info.width, info.height))
+                                    capture_fps=capture_fps, motions=views if moved_px > 0 else None,
+                                    segment=segment, frame_size=(info.width, info.height))
     radii = []
     if refine_radius and camera is not None and flights:  # hook: the radius from the ball's edge (ball_size.py)
         radii = refine_flight_radii(path, flights, camera, start_s=start_s, end_s=end_s, capture_fps=capture_fps,
