@@ -20,7 +20,7 @@ import cv2
 import numpy as np
 
 from ..camera.model import Camera
-from .streak import fit_streak, inside_streak, streak_half_sizes
+from .streak import fit_streak, inside_streak, streak_expected, streak_half_sizes
 
 
 @dataclass(frozen=True)
@@ -184,7 +184,9 @@ class Detector:
         return cv2.warpAffine(self.bg_full, M, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
                               borderMode=cv2.BORDER_REPLICATE)
 
-    def process(self, frame, prepared=None) -> list[Candidate]:
+    def process(self, frame, prepared=None, expected=None) -> list[Candidate]:
+        """The candidates in the next exposure. ``expected``: where the tracker's live tracks expect the
+        ball (streak.Expected; None: no tracker), which gates the streak filter (see :meth:`_streaks`)."""
         gray, small = prepared if prepared is not None else self.prepare(frame)
         self.k += 1
         if self.T is not None and self.bg_small is not None:
@@ -229,7 +231,7 @@ class Detector:
                 elif bw * bh >= 12:  # a ball touching a person or a shadow: its core may stand out
                     cands += self._split(gray, diff, x, y, bw, bh, t_loc)
         if cands and self.streaks:
-            cands = self._streaks(gray, cands)
+            cands = self._streaks(gray, cands, expected)
         self._boxes = (self._boxes[1], set(boxes))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
         # everywhere so that objects put down for good join the background
@@ -265,18 +267,26 @@ class Detector:
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands
 
-    def _streaks(self, gray, cands: list[Candidate]) -> list[Candidate]:
+    def _streaks(self, gray, cands: list[Candidate], expected=None) -> list[Candidate]:
         """Long streaks measured along their motion (streak.py): an elongated candidate is replaced by
         the matched line filter's midpoint, radius and length, and the fragments inside its oriented box
-        (its shaded half, pieces split off by noise) are dropped -- one candidate per streak."""
+        (its shaded half, pieces split off by noise) are dropped -- one candidate per streak.
+        With the tracks' predictions ``expected``: a candidate near a prediction is measured so only if it
+        lies along that track's motion (streak.streak_expected), and a candidate near a prediction is
+        dropped as a fragment only of a streak measured so (not of a streak elsewhere, a limb or an edge
+        next to the ball); away from every prediction (a flight not yet tracked) as without them."""
         order = sorted(range(len(cands)), key=lambda i: -cands[i].streak_px * cands[i].radius_px)
         out: list[Candidate] = []
-        fits = []  # (u, v, angle, radius, length) of the streaks kept
+        fits = []  # (u, v, angle, radius, length) of the streaks kept, and whether a track expected them
         for i in order:
             c = cands[i]
-            if any(inside_streak(*f, c.u, c.v) and c.radius_px <= 1.2 * f[3] + 1.0 for f in fits):
+            near = aligned = False
+            if expected:
+                near, aligned = streak_expected(c.u, c.v, c.angle_rad, c.radius_px, c.streak_px, expected)
+            if any(inside_streak(*f, c.u, c.v) and c.radius_px <= 1.2 * f[3] + 1.0 and (g or not near)
+                   for *f, g in fits):
                 continue  # a fragment of a streak already measured
-            if c.streak_px < max(6.0, 2.0 * c.radius_px):
+            if c.streak_px < max(6.0, 2.0 * c.radius_px) or (near and not aligned):
                 out.append(c)
                 continue
             hx, hy = streak_half_sizes(c.radius_px, c.streak_px)
@@ -294,7 +304,7 @@ class Detector:
                 out.append(c)
                 continue
             c = replace(c, u=u, v=v, radius_px=fit.radius_px, streak_px=fit.length_px)
-            fits.append((u, v, c.angle_rad, c.radius_px, c.streak_px))
+            fits.append((u, v, c.angle_rad, c.radius_px, c.streak_px, aligned))
             out.append(c)
         # a fragment measured before the streak that holds it (none is: the longest come first), or
         # one streak's two long pieces: the second is inside the first's box

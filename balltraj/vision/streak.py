@@ -17,6 +17,11 @@ square root of the length; then:
   the midpoint of its half-plateau crossings is the centre along, their distance the smear length.
   Gaps shorter than the ball's radius (noise splitting the streak) are bridged.
 
+Where the tracker follows a ball it says where it expects it (:class:`Expected`), and the filter acts
+on a blob near such a prediction only when the blob lies along the predicted motion and is no longer
+than that motion (:func:`streak_expected`): the same elongated blob across a track's path is a limb,
+an edge or a net's strand, not this ball's streak.
+
 Pure computation on a window of the signed difference (frame minus background).
 """
 
@@ -39,6 +44,50 @@ class StreakFit:
     radius_px: float
     length_px: float  # the smear: how far the centre moved during the exposure
     angle_rad: float  # motion direction (modulo pi)
+
+
+@dataclass(frozen=True)
+class Expected:
+    """Where a live track expects the ball in the coming exposure (the tracker's prediction)."""
+    u: float
+    v: float
+    du: float  # the predicted motion over one frame interval [px]
+    dv: float
+    reach_px: float  # how far from (u, v) the tracker will look for the ball
+    spread_px: float  # rms scatter of the track's points about its fit
+
+
+def streak_expected(u: float, v: float, angle: float, radius: float, length: float,
+                    expected) -> tuple[bool, bool]:
+    """(near, aligned) for an elongated blob (centroid (u, v), axis ``angle``, ``radius`` and streak
+    ``length`` [px]) and the tracks' predictions ``expected``: is it near one, and does it lie along
+    one's predicted motion?
+
+    Near: within the track's reach plus half the streak (a fragment's centroid is up to half the
+    streak from the streak's midpoint). Aligned: no longer than the motion in one frame interval allows
+    (the exposure is shorter than the interval; the tracker's own limit, 1.5 steps + 2 px + the
+    radius), and its axis within ``atan(r / L) + atan((spread + 1) / step)`` of the predicted direction
+    (the blob's axis is known to about its width over its length, the predicted direction to the
+    track's scatter, with a pixel of centroid error, over the step), at most 45 degrees.
+
+    >>> e = Expected(100.0, 50.0, 40.0, 0.0, 20.0, 1.0)
+    >>> streak_expected(104.0, 51.0, 0.05, 6.0, 30.0, [e]), streak_expected(104.0, 51.0, 1.2, 6.0, 30.0, [e])
+    ((True, True), (True, False))
+    >>> streak_expected(300.0, 51.0, 0.05, 6.0, 30.0, [e])
+    (False, False)
+    """
+    near = False
+    for e in expected:
+        if math.hypot(u - e.u, v - e.v) > e.reach_px + 0.5 * length:
+            continue
+        near = True
+        step = math.hypot(e.du, e.dv)
+        if step <= 0.0 or length > 1.5 * step + 2.0 + radius:
+            continue
+        off = abs((angle - math.atan2(e.dv, e.du) + 0.5 * math.pi) % math.pi - 0.5 * math.pi)
+        if off <= min(0.25 * math.pi, math.atan2(radius, length) + math.atan2(e.spread_px + 1.0, step)):
+            return True, True
+    return near, False
 
 
 def streak_half_sizes(radius: float, length: float) -> tuple[int, int]:
