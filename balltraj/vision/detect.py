@@ -20,7 +20,7 @@ import cv2
 import numpy as np
 
 from ..camera.model import Camera
-from .streak import fit_streak, inside_streak, streak_expected, streak_half_sizes
+from .streak import fit_streak, inside_streak, streak_consistent, streak_expected, streak_half_sizes
 
 
 @dataclass(frozen=True)
@@ -84,6 +84,11 @@ def radius_gate_map(camera: Camera | None, ball_radius_m: float | None, size: tu
     rmin = np.maximum(0.6, 0.5 * f * ball_radius_m / far)
     rmax = 2.0 * f * ball_radius_m / near + 1.0
     return rmin, rmax
+
+
+def _elongated(c: Candidate) -> bool:
+    """Is the candidate a streak (smeared over more than its diameter, and 6 px at least)?"""
+    return c.streak_px >= max(6.0, 2.0 * c.radius_px)
 
 
 def _static(box, frames) -> bool:
@@ -271,44 +276,68 @@ class Detector:
         """Long streaks measured along their motion (streak.py): an elongated candidate is replaced by
         the matched line filter's midpoint, radius and length, and the fragments inside its oriented box
         (its shaded half, pieces split off by noise) are dropped -- one candidate per streak.
-        With the tracks' predictions ``expected``: a candidate near a prediction is measured so only if it
-        lies along that track's motion (streak.streak_expected), and a candidate near a prediction is
-        dropped as a fragment only of a streak measured so (not of a streak elsewhere, a limb or an edge
-        next to the ball); away from every prediction (a flight not yet tracked) as without them."""
+
+        With the tracks' predictions ``expected`` (a list, perhaps empty) only where a track expects a
+        streak: for each prediction, the elongated candidate nearest to it that lies along its motion
+        (streak.streak_expected), and of the fragments only those near that prediction; every other
+        candidate as measured (a limb, an edge or a strand of netting is elongated too, and measured
+        anew it can seed or confirm a track that then takes the ball)."""
+        if expected is None:
+            return self._all_streaks(gray, cands)
+        out = list(cands)
+        for e in expected:
+            best, d_best = None, math.inf
+            for i, c in enumerate(out):
+                if c is None or not _elongated(c):
+                    continue
+                d = math.hypot(c.u - e.u, c.v - e.v)
+                if d < d_best and streak_expected(c.u, c.v, c.angle_rad, c.radius_px, c.streak_px, [e])[1]:
+                    best, d_best = i, d
+            if best is None:
+                continue
+            c = self._fit(gray, out[best])
+            if c is None or not streak_consistent(e, c.radius_px, c.streak_px):
+                continue  # no streak there, or not the one the track expects
+            out[best] = c
+            for j, o in enumerate(out):
+                if j != best and o is not None and inside_streak(c.u, c.v, c.angle_rad, c.radius_px, c.streak_px,
+                                                                 o.u, o.v) and o.radius_px <= 1.2 * c.radius_px + 1.0 \
+                        and math.hypot(o.u - e.u, o.v - e.v) <= e.reach_px + 0.5 * c.streak_px:
+                    out[j] = None  # a fragment of the streak the track expected
+        return [c for c in out if c is not None]
+
+    def _all_streaks(self, gray, cands: list[Candidate]) -> list[Candidate]:
+        """The streak filter on every elongated candidate (no tracker to say where a streak is expected)."""
         order = sorted(range(len(cands)), key=lambda i: -cands[i].streak_px * cands[i].radius_px)
         out: list[Candidate] = []
-        fits = []  # (u, v, angle, radius, length) of the streaks kept, and whether a track expected them
+        fits = []  # the streaks measured
         for i in order:
             c = cands[i]
-            near = aligned = False
-            if expected:
-                near, aligned = streak_expected(c.u, c.v, c.angle_rad, c.radius_px, c.streak_px, expected)
-            if any(inside_streak(*f, c.u, c.v) and c.radius_px <= 1.2 * f[3] + 1.0 and (g or not near)
-                   for *f, g in fits):
-                continue  # a fragment of a streak already measured
-            if c.streak_px < max(6.0, 2.0 * c.radius_px) or (near and not aligned):
-                out.append(c)
-                continue
-            hx, hy = streak_half_sizes(c.radius_px, c.streak_px)
-            ext = int(math.ceil(math.hypot(hx, hy))) + 2
-            x0, y0 = max(0, int(c.u) - ext), max(0, int(c.v) - ext)
-            x1, y1 = min(self.w, int(c.u) + ext + 1), min(self.h, int(c.v) + ext + 1)
-            signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
-            fit = fit_streak(signed, c.u - x0, c.v - y0, c.angle_rad, c.radius_px, c.streak_px)
-            if fit is None:
-                out.append(c)
-                continue
-            u, v = fit.u + x0, fit.v + y0
-            rmin, rmax = self._gate(u, v)
-            if not (rmin <= fit.radius_px <= rmax) or math.hypot(u - c.u, v - c.v) > 0.5 * c.streak_px + 2 * c.radius_px:
-                out.append(c)
-                continue
-            c = replace(c, u=u, v=v, radius_px=fit.radius_px, streak_px=fit.length_px)
-            fits.append((u, v, c.angle_rad, c.radius_px, c.streak_px, aligned))
-            out.append(c)
-        # a fragment measured before the streak that holds it (none is: the longest come first), or
-        # one streak's two long pieces: the second is inside the first's box
+            if any(inside_streak(f.u, f.v, f.angle_rad, f.radius_px, f.streak_px, c.u, c.v)
+                   and c.radius_px <= 1.2 * f.radius_px + 1.0 for f in fits):
+                continue  # a fragment of a streak already measured (the longest come first)
+            fit = self._fit(gray, c) if _elongated(c) else None
+            if fit is not None:
+                fits.append(fit)
+            out.append(c if fit is None else fit)
         return out
+
+    def _fit(self, gray, c: Candidate) -> Candidate | None:
+        """The candidate measured by the matched line filter (streak.fit_streak), or None when no streak
+        is found there, its radius is outside the size gate or its midpoint far from the candidate."""
+        hx, hy = streak_half_sizes(c.radius_px, c.streak_px)
+        ext = int(math.ceil(math.hypot(hx, hy))) + 2
+        x0, y0 = max(0, int(c.u) - ext), max(0, int(c.v) - ext)
+        x1, y1 = min(self.w, int(c.u) + ext + 1), min(self.h, int(c.v) + ext + 1)
+        signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
+        fit = fit_streak(signed, c.u - x0, c.v - y0, c.angle_rad, c.radius_px, c.streak_px)
+        if fit is None:
+            return None
+        u, v = fit.u + x0, fit.v + y0
+        rmin, rmax = self._gate(u, v)
+        if not (rmin <= fit.radius_px <= rmax) or math.hypot(u - c.u, v - c.v) > 0.5 * c.streak_px + 2 * c.radius_px:
+            return None
+        return replace(c, u=u, v=v, radius_px=fit.radius_px, streak_px=fit.length_px)
 
     def _away_from(self, cands) -> np.ndarray:
         """Full-resolution mask (reference view) that is 0 around each candidate, 255 elsewhere."""

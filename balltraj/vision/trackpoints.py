@@ -114,7 +114,9 @@ class _Track:
         ts = self._ts[-8:]
         dt = min(b - a for a, b in zip(ts, ts[1:])) if len(ts) > 1 else 0.0
         reach = self.gate(spread, self.speed_px_per_s() * (t - ts[-1]))
-        return Expected(float(pred[0]), float(pred[1]), float(vel[0] * dt), float(vel[1] * dt), reach, spread)
+        last = [p[2] for p in self.points[-5:]]
+        return Expected(float(pred[0]), float(pred[1]), float(vel[0] * dt), float(vel[1] * dt), reach, spread,
+                        float(np.median([c.radius_px for c in last])), float(np.median([c.streak_px for c in last])))
 
     def speed_px_per_s(self):
         if self._speed is None:
