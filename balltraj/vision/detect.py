@@ -105,7 +105,7 @@ class Detector:
     background are found alike (absolute differences)."""
 
     def __init__(self, width: int, height: int, *, gate=None, alpha: float = 0.03, min_threshold: float = 5.0,
-                 k_noise: float = 5.0, max_candidates: int = 40, streaks: bool = False):
+                 k_noise: float = 5.0, max_candidates: int = 40, streaks: str = "tracked"):
         self.w, self.h = width, height
         self.sw, self.sh = width // 2, height // 2
         self.gate = gate
@@ -113,8 +113,12 @@ class Detector:
         self.min_threshold = min_threshold
         self.k_noise = k_noise
         self.max_candidates = max_candidates
-        # long streaks measured along their motion (streak.py); off: on the second renderer it found the
-        # dim hall's ball (0 -> 44 %) but lost the juggled football and the hand-held lob (docs/validation.md)
+        # long streaks measured along their motion (streak.py): "tracked" only where a confirmed track
+        # expects this streak (the predictions :meth:`process` is given); "all" on every elongated blob
+        # (found the second renderer's dim hall ball, 0 -> 44 %, but lost the juggled football and the
+        # hand-held lob: clutter measured anew seeds and confirms tracks that take the ball); "off"
+        if streaks not in ("off", "tracked", "all"):
+            raise ValueError(f"streaks must be off, tracked or all, not {streaks!r}")
         self.streaks = streaks
         self.bg_small = None
         self.bg_full = None
@@ -190,8 +194,8 @@ class Detector:
                               borderMode=cv2.BORDER_REPLICATE)
 
     def process(self, frame, prepared=None, expected=None) -> list[Candidate]:
-        """The candidates in the next exposure. ``expected``: where the tracker's live tracks expect the
-        ball (streak.Expected; None: no tracker), which gates the streak filter (see :meth:`_streaks`)."""
+        """The candidates in the next exposure. ``expected``: where the tracker's confirmed tracks expect
+        the ball (streak.Expected), which gates the streak filter (see :meth:`_streaks`)."""
         gray, small = prepared if prepared is not None else self.prepare(frame)
         self.k += 1
         if self.T is not None and self.bg_small is not None:
@@ -235,7 +239,9 @@ class Detector:
                     cands.append(cand)
                 elif bw * bh >= 12:  # a ball touching a person or a shadow: its core may stand out
                     cands += self._split(gray, diff, x, y, bw, bh, t_loc)
-        if cands and self.streaks:
+        if cands and self.streaks == "all":
+            cands = self._all_streaks(gray, cands)
+        elif cands and self.streaks == "tracked" and expected:
             cands = self._streaks(gray, cands, expected)
         self._boxes = (self._boxes[1], set(boxes))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
@@ -272,18 +278,14 @@ class Detector:
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands
 
-    def _streaks(self, gray, cands: list[Candidate], expected=None) -> list[Candidate]:
-        """Long streaks measured along their motion (streak.py): an elongated candidate is replaced by
-        the matched line filter's midpoint, radius and length, and the fragments inside its oriented box
-        (its shaded half, pieces split off by noise) are dropped -- one candidate per streak.
-
-        With the tracks' predictions ``expected`` (a list, perhaps empty) only where a track expects a
-        streak: for each prediction, the elongated candidate nearest to it that lies along its motion
-        (streak.streak_expected), and of the fragments only those near that prediction; every other
-        candidate as measured (a limb, an edge or a strand of netting is elongated too, and measured
-        anew it can seed or confirm a track that then takes the ball)."""
-        if expected is None:
-            return self._all_streaks(gray, cands)
+    def _streaks(self, gray, cands: list[Candidate], expected) -> list[Candidate]:
+        """Long streaks measured along their motion (streak.py) where a track expects one: for each
+        prediction in ``expected``, the elongated candidate nearest to it that is the streak the track
+        expects (streak.streak_expected) is replaced by the matched line filter's midpoint, radius and
+        length if these are still of the track's size and motion and within its gate, and the fragments
+        inside its oriented box and near the prediction (its shaded half, pieces split off by noise)
+        are dropped. Every other candidate stays as measured: a limb, an edge or a strand of netting is
+        elongated too, and measured anew it can seed or confirm a track that then takes the ball."""
         out = list(cands)
         for e in expected:
             best, d_best = None, math.inf
@@ -296,8 +298,9 @@ class Detector:
             if best is None:
                 continue
             c = self._fit(gray, out[best])
-            if c is None or not streak_consistent(e, c.radius_px, c.streak_px):
-                continue  # no streak there, or not the one the track expects
+            if c is None or not streak_consistent(e, c.radius_px, c.streak_px) \
+                    or math.hypot(c.u - e.u, c.v - e.v) > e.reach_px:
+                continue  # no streak there, or not the one the track expects (of its size, within its gate)
             out[best] = c
             for j, o in enumerate(out):
                 if j != best and o is not None and inside_streak(c.u, c.v, c.angle_rad, c.radius_px, c.streak_px,
@@ -307,7 +310,8 @@ class Detector:
         return [c for c in out if c is not None]
 
     def _all_streaks(self, gray, cands: list[Candidate]) -> list[Candidate]:
-        """The streak filter on every elongated candidate (no tracker to say where a streak is expected)."""
+        """The streak filter on every elongated candidate: each replaced by the filter's midpoint, radius
+        and length, and the fragments inside its oriented box dropped -- one candidate per streak."""
         order = sorted(range(len(cands)), key=lambda i: -cands[i].streak_px * cands[i].radius_px)
         out: list[Candidate] = []
         fits = []  # the streaks measured

@@ -140,8 +140,9 @@ class Tracker:
         self.pool = [p for p in self.pool if k - p[0] < 3] + new_pool
 
     def expected(self, t: float) -> list[Expected]:
-        """Where each live track expects the ball at time t (for the detector's streak gate)."""
-        return [tr.expected(t) for tr in self.active]
+        """Where each confirmed track expects the ball at time t (for the detector's streak gate; a
+        tentative track is as often clutter lined up as a ball)."""
+        return [tr.expected(t) for tr in self.active if tr.confirmed]
 
     def _seed_all(self, k, t, cs):
         """For each candidate c of cs, the best (p0, p1, c) from the pool that starts a plausible
