@@ -4,6 +4,7 @@ prediction the tracker asks of it every frame."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from statistics import median
 
 import numpy as np
 
@@ -114,9 +115,9 @@ class _Track:
         ts = self._ts[-8:]
         dt = min(b - a for a, b in zip(ts, ts[1:])) if len(ts) > 1 else 0.0
         reach = self.gate(spread, self.speed_px_per_s() * (t - ts[-1]))
-        last = [p[2] for p in self.points[-5:]]
+        last = [p[2] for p in self.points[-5:]]  # (plain medians: numpy's cost per call would dominate)
         return Expected(float(pred[0]), float(pred[1]), float(vel[0] * dt), float(vel[1] * dt), reach, spread,
-                        float(np.median([c.radius_px for c in last])), float(np.median([c.streak_px for c in last])))
+                        median([c.radius_px for c in last]), median([c.streak_px for c in last]))
 
     def speed_px_per_s(self):
         if self._speed is None:
