@@ -22,6 +22,7 @@ class _Track:
     _uvs: list = field(default_factory=list)
     _steps: list = field(default_factory=list)
     _speed: float | None = 0.0
+    _last: tuple | None = None  # the last prediction asked for: ((t, number of points), result)
 
     @classmethod
     def of(cls, points, *, confirmed: bool = False, ended: str = "", bounce: bool = False) -> "_Track":
@@ -51,11 +52,19 @@ class _Track:
         """Position at t from a least-squares line (under 4 points) or parabola in time through the
         last 8 points, and the rms scatter about it (and, with ``velocity``, the fit's velocity at t
         [px/s] third). Plain floats: numpy's per-call cost would dominate these 8-point fits, done for
-        every track in every frame."""
+        every track in every frame (twice for a confirmed track: the detector's streak gate asks first,
+        so the last answer is kept)."""
+        key = (t, len(self._ts))
+        if self._last is None or self._last[0] != key:
+            self._last = (key, self._predict(t))
+        pos, spread, vel = self._last[1]
+        return (pos, spread, vel) if velocity else (pos, spread)
+
+    def _predict(self, t):
         ts, uvs = self._ts[-8:], self._uvs[-8:]
         n = len(ts)
         if n == 1:
-            return (np.asarray(uvs[-1]), 0.0) + ((np.zeros(2),) if velocity else ())
+            return np.asarray(uvs[-1]), 0.0, np.zeros(2)
         t_ref = ts[-1]
         deg = 2 if n >= 4 else 1
         s = [0.0] * (2 * deg + 1)
@@ -73,7 +82,7 @@ class _Track:
         if deg == 1:
             det = s[0] * s[2] - s[1] * s[1]
             if abs(det) < 1e-30:
-                return (np.asarray(uvs[-1]), 0.0) + ((np.zeros(2),) if velocity else ())
+                return np.asarray(uvs[-1]), 0.0, np.zeros(2)
             cu = ((s[2] * bu[0] - s[1] * bu[1]) / det, (s[0] * bu[1] - s[1] * bu[0]) / det, 0.0)
             cv = ((s[2] * bv[0] - s[1] * bv[1]) / det, (s[0] * bv[1] - s[1] * bv[0]) / det, 0.0)
         else:  # symmetric 3x3 normal equations, solved by the adjugate
@@ -82,7 +91,7 @@ class _Track:
             i11, i12, i22 = a * e - c * c, b * c - a * d, a * c - b * b
             det = a * i00 + b * i01 + c * i02
             if abs(det) < 1e-30:
-                return (np.asarray(uvs[-1]), 0.0) + ((np.zeros(2),) if velocity else ())
+                return np.asarray(uvs[-1]), 0.0, np.zeros(2)
             cu = ((i00 * bu[0] + i01 * bu[1] + i02 * bu[2]) / det, (i01 * bu[0] + i11 * bu[1] + i12 * bu[2]) / det,
                   (i02 * bu[0] + i12 * bu[1] + i22 * bu[2]) / det)
             cv = ((i00 * bv[0] + i01 * bv[1] + i02 * bv[2]) / det, (i01 * bv[0] + i11 * bv[1] + i12 * bv[2]) / det,
@@ -97,10 +106,8 @@ class _Track:
                 acc += du * du + dv * dv
             spread = (acc / n) ** 0.5
         x = t - t_ref
-        pos = np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]])
-        if velocity:
-            return pos, spread, np.array([cu[1] + 2 * x * cu[2], cv[1] + 2 * x * cv[2]])
-        return pos, spread
+        return (np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]]), spread,
+                np.array([cu[1] + 2 * x * cu[2], cv[1] + 2 * x * cv[2]]))
 
     def gate(self, spread: float, step: float) -> float:
         """How far [px] from its prediction the track looks for the ball: a few radii, three times its
