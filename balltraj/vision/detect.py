@@ -20,7 +20,7 @@ import cv2
 import numpy as np
 
 from ..camera.model import Camera
-from .streak import fit_streak, inside_streak, streak_half_sizes
+from .streak import fit_streak, inside_streak, streak_consistent, streak_expected, streak_half_sizes
 
 
 @dataclass(frozen=True)
@@ -86,6 +86,11 @@ def radius_gate_map(camera: Camera | None, ball_radius_m: float | None, size: tu
     return rmin, rmax
 
 
+def _elongated(c: Candidate) -> bool:
+    """Is the candidate a streak (smeared over more than its diameter, and 6 px at least)?"""
+    return c.streak_px >= max(6.0, 2.0 * c.radius_px)
+
+
 def _static(box, frames) -> bool:
     """Was exactly this blob box in each of the last frames (half-resolution px)? A ball in flight
     moves its box within a frame or two; clutter, ghosts and parked objects do not."""
@@ -100,7 +105,7 @@ class Detector:
     background are found alike (absolute differences)."""
 
     def __init__(self, width: int, height: int, *, gate=None, alpha: float = 0.03, min_threshold: float = 5.0,
-                 k_noise: float = 5.0, max_candidates: int = 40, streaks: bool = False):
+                 k_noise: float = 5.0, max_candidates: int = 40, streaks: str = "tracked"):
         self.w, self.h = width, height
         self.sw, self.sh = width // 2, height // 2
         self.gate = gate
@@ -108,8 +113,12 @@ class Detector:
         self.min_threshold = min_threshold
         self.k_noise = k_noise
         self.max_candidates = max_candidates
-        # long streaks measured along their motion (streak.py); off: on the second renderer it found the
-        # dim hall's ball (0 -> 44 %) but lost the juggled football and the hand-held lob (docs/validation.md)
+        # long streaks measured along their motion (streak.py): "tracked" only where a confirmed track
+        # expects this streak (the predictions :meth:`process` is given); "all" on every elongated blob
+        # (found the second renderer's dim hall ball, 0 -> 44 %, but lost the juggled football and the
+        # hand-held lob: clutter measured anew seeds and confirms tracks that take the ball); "off"
+        if streaks not in ("off", "tracked", "all"):
+            raise ValueError(f"streaks must be off, tracked or all, not {streaks!r}")
         self.streaks = streaks
         self.bg_small = None
         self.bg_full = None
@@ -184,7 +193,9 @@ class Detector:
         return cv2.warpAffine(self.bg_full, M, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
                               borderMode=cv2.BORDER_REPLICATE)
 
-    def process(self, frame, prepared=None) -> list[Candidate]:
+    def process(self, frame, prepared=None, expected=None) -> list[Candidate]:
+        """The candidates in the next exposure. ``expected``: where the tracker's confirmed tracks expect
+        the ball (streak.Expected), which gates the streak filter (see :meth:`_streaks`)."""
         gray, small = prepared if prepared is not None else self.prepare(frame)
         self.k += 1
         if self.T is not None and self.bg_small is not None:
@@ -228,8 +239,10 @@ class Detector:
                     cands.append(cand)
                 elif bw * bh >= 12:  # a ball touching a person or a shadow: its core may stand out
                     cands += self._split(gray, diff, x, y, bw, bh, t_loc)
-        if cands and self.streaks:
-            cands = self._streaks(gray, cands)
+        if cands and self.streaks == "all":
+            cands = self._all_streaks(gray, cands)
+        elif cands and self.streaks == "tracked" and expected:
+            cands = self._streaks(gray, cands, expected)
         self._boxes = (self._boxes[1], set(boxes))
         # background update away from the foreground (no ghosts of the ball), plus a slow update
         # everywhere so that objects put down for good join the background
@@ -265,40 +278,70 @@ class Detector:
             cands = sorted(cands, key=lambda c: -c.contrast * c.area_px)[: self.max_candidates]
         return cands
 
-    def _streaks(self, gray, cands: list[Candidate]) -> list[Candidate]:
-        """Long streaks measured along their motion (streak.py): an elongated candidate is replaced by
-        the matched line filter's midpoint, radius and length, and the fragments inside its oriented box
-        (its shaded half, pieces split off by noise) are dropped -- one candidate per streak."""
+    def _streaks(self, gray, cands: list[Candidate], expected) -> list[Candidate]:
+        """Long streaks measured along their motion (streak.py) where a track expects one: for each
+        prediction in ``expected``, the elongated candidate nearest to it that is the streak the track
+        expects (streak.streak_expected) is replaced by the matched line filter's midpoint, radius and
+        length if these are still of the track's size and motion and within its gate, and the fragments
+        inside its oriented box and near the prediction (its shaded half, pieces split off by noise)
+        are dropped. Every other candidate stays as measured: a limb, an edge or a strand of netting is
+        elongated too, and measured anew it can seed or confirm a track that then takes the ball."""
+        out = list(cands)
+        for e in expected:
+            best, d_best = None, math.inf
+            for i, c in enumerate(out):
+                if c is None or not _elongated(c):
+                    continue
+                d = math.hypot(c.u - e.u, c.v - e.v)
+                if d < d_best and streak_expected(c.u, c.v, c.angle_rad, c.radius_px, c.streak_px, [e])[1]:
+                    best, d_best = i, d
+            if best is None:
+                continue
+            c = self._fit(gray, out[best])
+            if c is None or not streak_consistent(e, c.radius_px, c.streak_px) \
+                    or math.hypot(c.u - e.u, c.v - e.v) > e.reach_px:
+                continue  # no streak there, or not the one the track expects (of its size, within its gate)
+            out[best] = c
+            for j, o in enumerate(out):
+                if j != best and o is not None and inside_streak(c.u, c.v, c.angle_rad, c.radius_px, c.streak_px,
+                                                                 o.u, o.v) and o.radius_px <= 1.2 * c.radius_px + 1.0 \
+                        and math.hypot(o.u - e.u, o.v - e.v) <= e.reach_px + 0.5 * c.streak_px:
+                    out[j] = None  # a fragment of the streak the track expected
+        return [c for c in out if c is not None]
+
+    def _all_streaks(self, gray, cands: list[Candidate]) -> list[Candidate]:
+        """The streak filter on every elongated candidate: each replaced by the filter's midpoint, radius
+        and length, and the fragments inside its oriented box dropped -- one candidate per streak."""
         order = sorted(range(len(cands)), key=lambda i: -cands[i].streak_px * cands[i].radius_px)
         out: list[Candidate] = []
-        fits = []  # (u, v, angle, radius, length) of the streaks kept
+        fits = []  # the streaks measured
         for i in order:
             c = cands[i]
-            if any(inside_streak(*f, c.u, c.v) and c.radius_px <= 1.2 * f[3] + 1.0 for f in fits):
-                continue  # a fragment of a streak already measured
-            if c.streak_px < max(6.0, 2.0 * c.radius_px):
-                out.append(c)
-                continue
-            hx, hy = streak_half_sizes(c.radius_px, c.streak_px)
-            ext = int(math.ceil(math.hypot(hx, hy))) + 2
-            x0, y0 = max(0, int(c.u) - ext), max(0, int(c.v) - ext)
-            x1, y1 = min(self.w, int(c.u) + ext + 1), min(self.h, int(c.v) + ext + 1)
-            signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
-            fit = fit_streak(signed, c.u - x0, c.v - y0, c.angle_rad, c.radius_px, c.streak_px)
-            if fit is None:
-                out.append(c)
-                continue
-            u, v = fit.u + x0, fit.v + y0
-            rmin, rmax = self._gate(u, v)
-            if not (rmin <= fit.radius_px <= rmax) or math.hypot(u - c.u, v - c.v) > 0.5 * c.streak_px + 2 * c.radius_px:
-                out.append(c)
-                continue
-            c = replace(c, u=u, v=v, radius_px=fit.radius_px, streak_px=fit.length_px)
-            fits.append((u, v, c.angle_rad, c.radius_px, c.streak_px))
-            out.append(c)
-        # a fragment measured before the streak that holds it (none is: the longest come first), or
-        # one streak's two long pieces: the second is inside the first's box
+            if any(inside_streak(f.u, f.v, f.angle_rad, f.radius_px, f.streak_px, c.u, c.v)
+                   and c.radius_px <= 1.2 * f.radius_px + 1.0 for f in fits):
+                continue  # a fragment of a streak already measured (the longest come first)
+            fit = self._fit(gray, c) if _elongated(c) else None
+            if fit is not None:
+                fits.append(fit)
+            out.append(c if fit is None else fit)
         return out
+
+    def _fit(self, gray, c: Candidate) -> Candidate | None:
+        """The candidate measured by the matched line filter (streak.fit_streak), or None when no streak
+        is found there, its radius is outside the size gate or its midpoint far from the candidate."""
+        hx, hy = streak_half_sizes(c.radius_px, c.streak_px)
+        ext = int(math.ceil(math.hypot(hx, hy))) + 2
+        x0, y0 = max(0, int(c.u) - ext), max(0, int(c.v) - ext)
+        x1, y1 = min(self.w, int(c.u) + ext + 1), min(self.h, int(c.v) + ext + 1)
+        signed = cv2.subtract(gray[y0:y1, x0:x1].astype(np.float32), self._bg_window(x0, y0, x1, y1))
+        fit = fit_streak(signed, c.u - x0, c.v - y0, c.angle_rad, c.radius_px, c.streak_px)
+        if fit is None:
+            return None
+        u, v = fit.u + x0, fit.v + y0
+        rmin, rmax = self._gate(u, v)
+        if not (rmin <= fit.radius_px <= rmax) or math.hypot(u - c.u, v - c.v) > 0.5 * c.streak_px + 2 * c.radius_px:
+            return None
+        return replace(c, u=u, v=v, radius_px=fit.radius_px, streak_px=fit.length_px)
 
     def _away_from(self, cands) -> np.ndarray:
         """Full-resolution mask (reference view) that is 0 around each candidate, 255 elsewhere."""

@@ -104,7 +104,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         if repeats_here and capture_fps is None:
             t = exposure_time(shown)
         det.set_view(motion if moved_px > 0 else None)
-        cands = det.process(None, (gray, small))
+        cands = det.process(None, (gray, small), trk.expected(t) if det.streaks == "tracked" else None)
         if moved_px > 0 and cands:
             cands = _in_scene(cands, motion)
         trk.update(len(frame_of), t, cands)

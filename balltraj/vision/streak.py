@@ -17,6 +17,11 @@ square root of the length; then:
   the midpoint of its half-plateau crossings is the centre along, their distance the smear length.
   Gaps shorter than the ball's radius (noise splitting the streak) are bridged.
 
+Where the tracker follows a ball it says where it expects it (:class:`Expected`), and the filter acts
+on a blob near such a prediction only when the blob lies along the predicted motion and is no longer
+than that motion (:func:`streak_expected`): the same elongated blob across a track's path is a limb,
+an edge or a net's strand, not this ball's streak.
+
 Pure computation on a window of the signed difference (frame minus background).
 """
 
@@ -39,6 +44,69 @@ class StreakFit:
     radius_px: float
     length_px: float  # the smear: how far the centre moved during the exposure
     angle_rad: float  # motion direction (modulo pi)
+
+
+@dataclass(frozen=True)
+class Expected:
+    """Where a live track expects the ball in the coming exposure (the tracker's prediction)."""
+    u: float
+    v: float
+    du: float  # the predicted motion over one frame interval [px]
+    dv: float
+    reach_px: float  # how far from (u, v) the tracker will look for the ball
+    spread_px: float  # rms scatter of the track's points about its fit
+    radius_px: float = 0.0  # the track's recent apparent radius and streak (medians of its last points)
+    streak_px: float = 0.0
+
+
+def streak_expected(u: float, v: float, angle: float, radius: float, length: float,
+                    expected) -> tuple[bool, bool]:
+    """(near, aligned) for an elongated blob (centroid (u, v), axis ``angle``, ``radius`` and streak
+    ``length`` [px]) and the tracks' predictions ``expected``: is it near one, and is it the streak
+    that track expects?
+
+    Near: within the track's reach plus half the streak (a fragment's centroid is up to half the
+    streak from the streak's midpoint). Expected there (aligned), when all of these hold:
+
+    - the track itself is a streak: its recent streak at least its diameter (and 6 px), and no longer
+      than its motion in one frame interval allows (the exposure is shorter than the interval; the
+      tracker's blur test: 1.2 steps + 2 px + the radius) -- a limb or a flag smeared beyond its own
+      motion, or a round ball, expects none;
+    - the blob is of the track's size (radii within a factor 1.6, each padded by a pixel: the tracker's
+      test of a size jump) and no longer than the track's motion allows (the same blur test);
+    - its axis is within ``atan(r / L) + atan((spread + 1) / step)`` of the predicted direction (the
+      blob's axis is known to about its width over its length, the predicted direction to the track's
+      scatter, with a pixel of centroid error, over the step), at most 45 degrees.
+
+    >>> e = Expected(100.0, 50.0, 40.0, 0.0, 20.0, 1.0, 6.0, 30.0)
+    >>> streak_expected(104.0, 51.0, 0.05, 6.0, 30.0, [e]), streak_expected(104.0, 51.0, 1.2, 6.0, 30.0, [e])
+    ((True, True), (True, False))
+    >>> streak_expected(300.0, 51.0, 0.05, 6.0, 30.0, [e])
+    (False, False)
+    """
+    near = False
+    for e in expected:
+        if math.hypot(u - e.u, v - e.v) > e.reach_px + 0.5 * length:
+            continue
+        near = True
+        if not streak_consistent(e, radius, length):
+            continue
+        step = math.hypot(e.du, e.dv)
+        off = abs((angle - math.atan2(e.dv, e.du) + 0.5 * math.pi) % math.pi - 0.5 * math.pi)
+        if off <= min(0.25 * math.pi, math.atan2(radius, length) + math.atan2(e.spread_px + 1.0, step)):
+            return True, True
+    return near, False
+
+
+def streak_consistent(e: Expected, radius: float, length: float) -> bool:
+    """Does track ``e`` expect a streak (its own recent streak long and within its motion), and is a
+    streak of this ``radius`` and ``length`` [px] of its size and within its motion? (See
+    :func:`streak_expected`.)"""
+    step = math.hypot(e.du, e.dv)
+    if e.streak_px < max(6.0, 2.0 * e.radius_px) or e.streak_px > 1.2 * step + 2.0 + e.radius_px:
+        return False
+    q = (radius + 1.0) / (e.radius_px + 1.0)
+    return 1.0 / 1.6 <= q <= 1.6 and length <= 1.2 * step + 2.0 + radius
 
 
 def streak_half_sizes(radius: float, length: float) -> tuple[int, int]:

@@ -19,6 +19,7 @@ import numpy as np
 from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
                      downward_acceleration, sideways_motion, smooth_enough, world_speed)
 from .detect import Candidate, lens_magnification
+from .streak import Expected
 from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_release, trim_strays
 
 
@@ -88,7 +89,7 @@ class Tracker:
                 continue
             last = tr.points[-1][2]
             step = tr.speed_px_per_s() * (t - tr.points[-1][1])
-            gate = 4.0 + 2.0 * last.radius_px + 3.0 * spread + (0.25 if tr.confirmed else 0.35) * step
+            gate = tr.gate(spread, step)
             d = np.hypot(cu - pred[0], cv - pred[1])
             # sizes alike, and smeared no longer than the track moves in one interval (the exposure is
             # shorter than the interval): a long streak next to a slow track is a limb or a pole
@@ -137,6 +138,11 @@ class Tracker:
             else:
                 new_pool.append((k, t, cands[i]))
         self.pool = [p for p in self.pool if k - p[0] < 3] + new_pool
+
+    def expected(self, t: float) -> list[Expected]:
+        """Where each confirmed track expects the ball at time t (for the detector's streak gate; a
+        tentative track is as often clutter lined up as a ball)."""
+        return [tr.expected(t) for tr in self.active if tr.confirmed]
 
     def _seed_all(self, k, t, cs):
         """For each candidate c of cs, the best (p0, p1, c) from the pool that starts a plausible

@@ -4,8 +4,11 @@ prediction the tracker asks of it every frame."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from statistics import median
 
 import numpy as np
+
+from .streak import Expected
 
 
 @dataclass
@@ -19,6 +22,7 @@ class _Track:
     _uvs: list = field(default_factory=list)
     _steps: list = field(default_factory=list)
     _speed: float | None = 0.0
+    _last: tuple | None = None  # the last prediction asked for: ((t, number of points), result)
 
     @classmethod
     def of(cls, points, *, confirmed: bool = False, ended: str = "", bounce: bool = False) -> "_Track":
@@ -44,14 +48,23 @@ class _Track:
     def uv(self):
         return np.asarray(self._uvs)
 
-    def predict(self, t):
+    def predict(self, t, velocity: bool = False):
         """Position at t from a least-squares line (under 4 points) or parabola in time through the
-        last 8 points, and the rms scatter about it. Plain floats: numpy's per-call cost would
-        dominate these 8-point fits, done for every track in every frame."""
+        last 8 points, and the rms scatter about it (and, with ``velocity``, the fit's velocity at t
+        [px/s] third). Plain floats: numpy's per-call cost would dominate these 8-point fits, done for
+        every track in every frame (twice for a confirmed track: the detector's streak gate asks first,
+        so the last answer is kept)."""
+        key = (t, len(self._ts))
+        if self._last is None or self._last[0] != key:
+            self._last = (key, self._predict(t))
+        pos, spread, vel = self._last[1]
+        return (pos, spread, vel) if velocity else (pos, spread)
+
+    def _predict(self, t):
         ts, uvs = self._ts[-8:], self._uvs[-8:]
         n = len(ts)
         if n == 1:
-            return np.asarray(uvs[-1]), 0.0
+            return np.asarray(uvs[-1]), 0.0, np.zeros(2)
         t_ref = ts[-1]
         deg = 2 if n >= 4 else 1
         s = [0.0] * (2 * deg + 1)
@@ -69,7 +82,7 @@ class _Track:
         if deg == 1:
             det = s[0] * s[2] - s[1] * s[1]
             if abs(det) < 1e-30:
-                return np.asarray(uvs[-1]), 0.0
+                return np.asarray(uvs[-1]), 0.0, np.zeros(2)
             cu = ((s[2] * bu[0] - s[1] * bu[1]) / det, (s[0] * bu[1] - s[1] * bu[0]) / det, 0.0)
             cv = ((s[2] * bv[0] - s[1] * bv[1]) / det, (s[0] * bv[1] - s[1] * bv[0]) / det, 0.0)
         else:  # symmetric 3x3 normal equations, solved by the adjugate
@@ -78,7 +91,7 @@ class _Track:
             i11, i12, i22 = a * e - c * c, b * c - a * d, a * c - b * b
             det = a * i00 + b * i01 + c * i02
             if abs(det) < 1e-30:
-                return np.asarray(uvs[-1]), 0.0
+                return np.asarray(uvs[-1]), 0.0, np.zeros(2)
             cu = ((i00 * bu[0] + i01 * bu[1] + i02 * bu[2]) / det, (i01 * bu[0] + i11 * bu[1] + i12 * bu[2]) / det,
                   (i02 * bu[0] + i12 * bu[1] + i22 * bu[2]) / det)
             cv = ((i00 * bv[0] + i01 * bv[1] + i02 * bv[2]) / det, (i01 * bv[0] + i11 * bv[1] + i12 * bv[2]) / det,
@@ -93,7 +106,25 @@ class _Track:
                 acc += du * du + dv * dv
             spread = (acc / n) ** 0.5
         x = t - t_ref
-        return np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]]), spread
+        return (np.array([cu[0] + x * cu[1] + x * x * cu[2], cv[0] + x * cv[1] + x * x * cv[2]]), spread,
+                np.array([cu[1] + 2 * x * cu[2], cv[1] + 2 * x * cv[2]]))
+
+    def gate(self, spread: float, step: float) -> float:
+        """How far [px] from its prediction the track looks for the ball: a few radii, three times its
+        scatter, and a share of its ``step`` since its last point (wider while it is tentative)."""
+        return 4.0 + 2.0 * self.points[-1][2].radius_px + 3.0 * spread + (0.25 if self.confirmed else 0.35) * step
+
+    def expected(self, t: float) -> Expected:
+        """Where the track expects the ball at time t: its prediction, the predicted motion over one
+        frame interval (the shortest of its recent steps in time), the reach of the gate it will
+        search, and its scatter."""
+        pred, spread, vel = self.predict(t, velocity=True)
+        ts = self._ts[-8:]
+        dt = min(b - a for a, b in zip(ts, ts[1:])) if len(ts) > 1 else 0.0
+        reach = self.gate(spread, self.speed_px_per_s() * (t - ts[-1]))
+        last = [p[2] for p in self.points[-5:]]  # (plain medians: numpy's cost per call would dominate)
+        return Expected(float(pred[0]), float(pred[1]), float(vel[0] * dt), float(vel[1] * dt), reach, spread,
+                        median([c.radius_px for c in last]), median([c.streak_px for c in last]))
 
     def speed_px_per_s(self):
         if self._speed is None:

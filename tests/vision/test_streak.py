@@ -87,7 +87,7 @@ def test_a_streak_split_by_noise_into_fragments_is_one_candidate_at_its_midpoint
     pieces, _ = cv2.findContours(cv2.compare(cv2.absdiff(small, small_bg), 10, cv2.CMP_GT), cv2.RETR_EXTERNAL,
                                  cv2.CHAIN_APPROX_SIMPLE)
     assert len(pieces) >= 3  # the thresholded difference is in pieces (the detector's first threshold is 10)
-    det = Detector(w, h, streaks=True)
+    det = Detector(w, h, streaks="all")
     det.process(base)
     cands = det.process(frame)
     near = [c for c in cands if math.hypot(c.u - cu, c.v - cv) < 0.5 * length + 2 * r]
