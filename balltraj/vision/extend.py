@@ -96,13 +96,14 @@ class View:
 
 
 def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end_s: float | None = None,
-                   capture_fps: float | None = None, motions=None, segment=None, frame_size=None):
+                   capture_fps: float | None = None, motions=None, segment=None, frame_size=None, held=None):
     """Flights with observations added where the tracker lost the ball (one more pass over the needed frames).
 
     ``exposures``: the container frame index of every exposure the tracker used, in order; ``times``
     their times [s]; ``motions``, ``segment``: see :class:`View` (None: a fixed view, no cuts);
     ``frame_size`` (width, height): the frames held stay within MEMORY_BYTES (the reach is shortened
-    when they would not). Returns (flights, [Extension per flight]).
+    when they would not); ``held``: grey frames already at hand (exposure index -> image; the file is
+    decoded again only for the others needed). Returns (flights, [Extension per flight]).
     """
     none = [Extension() for _ in flights]
     if not flights or len(exposures) < 8:
@@ -126,14 +127,16 @@ def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end
         reach, ref_reach = reach * 2 // 3, ref_reach * 2 // 3
     if cap is not None and len(need) > cap:
         return flights, none
-    frames: dict[int, np.ndarray] = {}
-    wanted = {int(exposures[i]): i for i in need}
-    last = max(wanted)
-    for k, _, img in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True):
-        if k in wanted:
-            frames[wanted[k]] = img
-        if k >= last:
-            break
+    held = held or {}
+    frames: dict[int, np.ndarray] = {i: held[i] for i in need if i in held}
+    wanted = {int(exposures[i]): i for i in need if i not in held}
+    if wanted:
+        last = max(wanted)
+        for k, _, img in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True):
+            if k in wanted:
+                frames[wanted[k]] = img
+            if k >= last:
+                break
     out, ext = [], []
     for fi, f in enumerate(flights):
         others = [s for j, s in enumerate(spans) if j != fi]

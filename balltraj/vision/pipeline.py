@@ -30,6 +30,9 @@ class TrackResult:
     radii: list[RadiusRefinement] = field(default_factory=list)  # per flight, when the radii were refined
 
 
+EXTEND_HOLD_BYTES = 256 * 2 ** 20  # grey frames kept while tracking for the extension (the rest decoded again)
+
+
 @contextmanager
 def _opencv_single_threaded():
     """Decoding keeps one core busy and detection the other; OpenCV's own worker pool, waking up for
@@ -83,6 +86,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
 
     times, frame_of, log = [], [], []
     views, segment = [], []  # per exposure: the view's motion (scene -> image, full resolution), cuts before it
+    held: dict[int, np.ndarray] = {}  # the latest exposures' grey frames, for the extension (no second decoding)
+    hold = EXTEND_HOLD_BYTES // max(1, info.width * info.height) if extend else 0
     moved_px = 0.0
     n = n_repeat = 0
     cuts: list[float] = []
@@ -110,6 +115,10 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         trk.update(len(frame_of), t, cands)
         views.append(np.vstack([motion * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]]))
         segment.append(len(cuts))
+        if hold:
+            held[len(frame_of)] = gray
+            if len(held) > hold:
+                del held[next(iter(held))]
         frame_of.append(k)
         times.append(t)
         if overlay_path is not None:
@@ -122,7 +131,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     if extend and flights:  # carried on where the tracker lost the ball (extend.py, a pass over those frames)
         flights, _ = extend_flights(path, flights, frame_of, times, start_s=start_s, end_s=end_s,
                                     capture_fps=capture_fps, motions=views if moved_px > 0 else None,
-                                    segment=segment, frame_size=(info.width, info.height))
+                                    segment=segment, frame_size=(info.width, info.height), held=held)
+    held.clear()
     radii = []
     if refine_radius and camera is not None and flights:  # hook: the radius from the ball's edge (ball_size.py)
         radii = refine_flight_radii(path, flights, camera, start_s=start_s, end_s=end_s, capture_fps=capture_fps,

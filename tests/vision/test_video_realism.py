@@ -120,6 +120,19 @@ def test_overlay_does_not_change_what_is_tracked(repeated, tmp_path):
     assert (np.abs(patch[..., 2] - patch[..., 0]) > 80).any()
 
 
+def test_the_extension_reads_the_same_frames_held_or_decoded_again(repeated, monkeypatch):
+    # an invariant: the frames held while tracking are the decoder's own, so the flights carried on
+    # from them equal those carried on after decoding the file a second time
+    import balltraj.vision.pipeline as vp
+    path, _ = repeated
+    held = track_clip(path, None, TENNIS.radius_m)
+    monkeypatch.setattr(vp, "EXTEND_HOLD_BYTES", 0)
+    again = track_clip(path, None, TENNIS.radius_m)
+    assert len(held.flights) == len(again.flights) >= 1
+    for a, b in zip(held.flights, again.flights):
+        assert np.array_equal(a.frame, b.frame) and np.array_equal(a.uv, b.uv)
+
+
 def _view_motion_errors(path, shake_px, drift_px_s, seed):
     """Per frame, how far the tracker's measured view motion is from the renderer's own record of the
     view's shift [px, full frame], how far the view moved in all, and the renderer's truth."""
