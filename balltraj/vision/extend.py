@@ -51,6 +51,7 @@ MAX_MISSES = 10
 REACH = 60  # most exposures added at either end
 REF_REACH = 40  # how far (exposures) background frames are looked for
 MEMORY_BYTES = 512 * 2 ** 20  # most grey frames held at once
+BACKWARD = True  # also before the flight's first observation (off: bounce 89 -> 78 %, juggle 83 -> 68 % recall)
 N_REFS = 3
 FIT_POINTS = 15
 
@@ -168,7 +169,7 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=(), vi
     dt_med = float(np.median(np.diff(times))) if len(times) > 1 else 0.0
     added = {}
     for step, end_reason in ((-1, None), (1, f.end_reason)):
-        if step == 1 and end_reason != "lost":
+        if step == 1 and end_reason != "lost" or step == -1 and not BACKWARD:
             continue
         track = dict(known)
         i = span[0] if step < 0 else span[1]
