@@ -92,13 +92,21 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     n = n_repeat = 0
     cuts: list[float] = []
     shown: list[float] = []  # container times of the exposures since the last cut
+    own_t: list[float] = []  # every exposure's container time
+    seg_repeats: list[list[int]] = [[]]  # per scene: the frames (counted from its first) taken for repeats
+    seg_frames = [0]
     repeats_here = 0
     for k, t, (gray, small, kind, motion, moved_px) in read_frames(
             path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True, prepare=prepare):
         n += 1
+        if kind.kind == "cut":
+            seg_repeats.append([])
+            seg_frames.append(0)
+        seg_frames[-1] += 1
         if kind.kind == "repeat":
             n_repeat += 1
             repeats_here += 1
+            seg_repeats[-1].append(seg_frames[-1] - 1)
             continue
         if kind.kind == "cut":
             trk.end_all("scene cut")
@@ -106,6 +114,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             cuts.append(t)
             shown, repeats_here = [], 0
         shown.append(t)
+        own_t.append(t)
         if repeats_here and capture_fps is None:
             t = exposure_time(shown)
         det.set_view(motion if moved_px > 0 else None)
@@ -127,7 +136,13 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             on_exposure(k, t, cands)
         if progress is not None and n % 16 == 0:
             progress(n, info.frame_count)
-    flights = [replace(f, frame=np.asarray(frame_of)[f.frame]) for f in trk.finish()]
+    # the exposure times: re-timed by their count only in a scene whose repeats are a frame-rate
+    # conversion's; elsewhere (frames of a still view that barely differ) the container's own times
+    converted = [_converted(r, m) for r, m in zip(seg_repeats, seg_frames)]
+    if capture_fps is None and not all(converted):
+        times = [t if converted[sg] else t_own for t, t_own, sg in zip(times, own_t, segment)]
+    ts = np.asarray(times)
+    flights = [replace(f, frame=np.asarray(frame_of)[f.frame], t=ts[f.frame]) for f in trk.finish()]
     if extend and flights:  # carried on where the tracker lost the ball (extend.py, a pass over those frames)
         flights, _ = extend_flights(path, flights, frame_of, times, start_s=start_s, end_s=end_s,
                                     capture_fps=capture_fps, motions=views if moved_px > 0 else None,
@@ -146,7 +161,10 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     if len(times) > 2:
         dt = np.median(np.diff(times))
         fps_m = 1.0 / dt if dt > 0 else 0.0
-    if n_repeat:
+    if n_repeat and not any(converted):
+        warnings.append(f"{n_repeat} of {n} frames barely differ from the one before (a still view): each was "
+                        "used once, at the clip's own frame times")
+    elif n_repeat:
         warnings.append(f"{n_repeat} of {n} frames repeat the previous image (frame-rate conversion): "
                         f"{fps_m:.0f} distinct images a second were used, one observation each")
     if cuts:
@@ -175,6 +193,27 @@ def _in_scene(cands, motion):
         us, vs = inv @ [c.u, c.v, 1.0]
         out.append(replace(c, u_scene=float(us), v_scene=float(vs)))
     return out
+
+
+MAX_CONVERSION_RUN = 12  # most frames in a row without a repeat in a frame-rate-converted scene
+
+
+def _converted(repeats: list[int], n_frames: int) -> bool:
+    """Are a scene's repeated frames a frame-rate conversion's? The conversions of the trade (24 or 25
+    -> 30, 23.976 -> 29.97, 50 -> 60, 12 -> 29.97 frames/s) repeat a frame at least every 6th frame all
+    through the clip (common practice); frames of a still view that barely differ come in stretches.
+    So: at least two repeats, and nowhere more than MAX_CONVERSION_RUN frames (twice that spacing: one
+    repeat missed) without one, from the scene's first frame to its last.
+
+    >>> _converted(list(range(5, 300, 6)), 300)  # 25 -> 30 frames/s: every sixth frame repeats
+    True
+    >>> _converted([0, 1, 2, 3, 20, 21], 173)  # a still view before the throw at 240 frames/s
+    False
+    """
+    if len(repeats) < 2:
+        return False
+    edges = [-1] + list(repeats) + [n_frames]
+    return max(b - a - 1 for a, b in zip(edges[:-1], edges[1:])) <= MAX_CONVERSION_RUN
 
 
 def exposure_time(shown: list[float], window: int = 60) -> float:

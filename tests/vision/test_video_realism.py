@@ -133,6 +133,25 @@ def test_the_extension_reads_the_same_frames_held_or_decoded_again(repeated, mon
         assert np.array_equal(a.frame, b.frame) and np.array_equal(a.uv, b.uv)
 
 
+def test_frames_of_a_still_view_at_240_fps_keep_their_own_times(tmp_path):
+    # a true 240 frames/s clip whose view is still before the pitch: at a low bitrate the encoder makes
+    # those frames nearly alike and they are taken for repeats, but they are not a frame-rate
+    # conversion, so every observation keeps its frame's own time, k / 240 s (Source: the container's
+    # timestamps, which the renderer writes at exactly 1/240 s; the re-timing by exposure count put
+    # them up to 2.4 frames late here)
+    cam = Cam((9.0, -7.0, 1.5), (9.0, 0.0, 1.6), 600, (480, 270))
+    shot = Shot(cam, BASEBALL, [(0.25, (2, 0, 1.7), (30, 0, 2.0), (0, -1, 0))], duration_s=0.6, capture_fps=240,
+                noise=0.5, bitrate=600_000, seed=3)
+    path = tmp_path / "still.mp4"
+    render_shot(shot, path)
+    res = track_clip(path, None, BASEBALL.radius_m)
+    assert any("barely differ" in w for w in res.warnings), res.warnings  # frames were taken for repeats
+    assert not any("frame-rate conversion" in w for w in res.warnings)
+    assert res.flights
+    for f in res.flights:
+        assert np.max(np.abs(f.t - f.frame / 240.0)) < 1e-6
+
+
 def _view_motion_errors(path, shake_px, drift_px_s, seed):
     """Per frame, how far the tracker's measured view motion is from the renderer's own record of the
     view's shift [px, full frame], how far the view moved in all, and the renderer's truth."""
