@@ -20,8 +20,7 @@ residuals, the projection's own derivative included). A ball over 32 px radius i
 each way (its edge keeps the samples of an 8 px ball at full resolution). The radius is where the coverage is one half,
 whatever the contrast, so neither the threshold nor the shading moves it.
 A shadow or contact patch touching the ball is found where it lies (no direction assumed): the arcs of the
-silhouette whose outside ring differs from the background are left out and the fit is repeated on the rest,
-and a fit that misses the image on most of its rim (a disc grown over ball and shadow) is refused
+silhouette whose outside ring differs from the background are left out and the fit is repeated on the rest
 (``edge_fit._foreign_arcs``; tests/vision/test_edge_fit_shadow.py).
 
 Each radius gets a one-sigma from the fit's covariance (residual scale times the Jacobian), and is

@@ -253,10 +253,8 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
         sol = solve(model, q0)
         used = model
         dropped = np.zeros(len(z), bool)
-        mismatch = False
-        for k in range(2 if reject_foreign else 0):  # the arcs whose outside is not the background, left out
-            drop, miss = _foreign_arcs(X, model, used, sol.x, e)
-            mismatch |= miss and k == 0  # (judged on the fit of every pixel)
+        for _ in range(2 if reject_foreign else 0):  # the arcs whose outside is not the background, left out
+            drop = _foreign_arcs(X, model, used, sol.x, e)
             if drop is None or np.array_equal(drop, dropped):
                 break
             dropped = drop
@@ -285,8 +283,6 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
         why = "radius not pinned by the edge"
     elif np.any(np.isclose(q[2], [lo[2], hi[2]], rtol=1e-3)):
         why = "radius at its search bound"
-    elif mismatch:
-        why = "the model misses the image on most of the silhouette's rim (a disc fitted over ball and shadow?)"
     return fit if not why else replace(fit, ok=False, message=why)
 
 
@@ -310,9 +306,10 @@ def _foreign_arcs(X, full, used, q, e, k_sigma: float = 4.0, share: float = 0.15
     ``share`` of the ball's contrast is foreign, with its two neighbours (the blob's tails). Its edge band
     and outside are then left out, so that centre and radius come from the arcs against the background
     (its inside stays for the shading). No direction is assumed: the shadow is found where it is.
-    Returns the mask over ``full``'s pixels (None when nothing is foreign) and whether over half the rim is
-    foreign: then it is not a patch beside the ball but a fit that does not match (a disc grown over the
-    ball and its shadow, the shadow taken for blur), and the mask is None."""
+    Returns the mask over ``full``'s pixels, or None when nothing is foreign or over half the rim is (not a
+    patch beside the ball but a model that misses: a ball whose unlit half is as dark as a dark room, or
+    a disc grown over ball and shadow -- refusing those cost a dark-room clip of the second renderer its
+    edge fits, so they are kept as fitted)."""
     cx, cy, r, L, sig = q[:5]
     rel = X - [cx, cy]
     along = np.clip(rel @ e, -0.5 * L, 0.5 * L)
@@ -334,12 +331,10 @@ def _foreign_arcs(X, full, used, q, e, k_sigma: float = 4.0, share: float = 0.15
             m = where & (sec == s_)
             if m.sum() >= 3:
                 bad[j, s_] = abs(float(np.median(res[m]))) > max(floor / math.sqrt(m.sum()), share * contrast)
-    if (bad[0] | bad[1]).mean() > 0.5:
-        return None, True
-    if not bad[0].any():
-        return None, False
+    if (bad[0] | bad[1]).mean() > 0.5 or not bad[0].any():
+        return None
     out = bad[0] | np.roll(bad[0], 1) | np.roll(bad[0], -1)
-    return out[sec] & (d > -(2 * sig + 1.0)), False
+    return out[sec] & (d > -(2 * sig + 1.0))
 
 
 def _light_guess(X, z, c, r):
