@@ -59,12 +59,14 @@ if which == "outside":
             compare(p, camera_file(sh), sh.ball.radius_m, tu, f"outside {name[:40]} s{k}")
 else:
     import scene_realism as S
-    from bench_single_camera_realism import FPS, radius_shots
+    from bench_single_camera_realism import radius_shots
     for k, j, label, var, shot, cam in radius_shots(int(sys.argv[2]), [dict(), dict(sky=False)]):
         p = tmp / f"r{k}_{j}.mp4"
         frames = S.render_shot(shot, p)
-        truth = {round(r["t"] * FPS): r for r in frames if "r" in r and not r["repeat"]}
-        def tu(fl, i_, kk, truth=truth):
-            r = truth.get(round(fl.t[i_] * FPS))
-            return None if r is None else (r["u"], r["v"], r["r"])
+        # by the decoded frame's index (a stored frame is one row of the renderer's truth); not by round(t * FPS):
+        # the tracker's times of a flight may drift by over half a frame from k / FPS (exposure_time's line fit
+        # after a frame taken for a repeat), which matched a neighbouring frame's truth
+        def tu(fl, i_, kk, frames=frames):
+            r = frames[kk] if 0 <= kk < len(frames) else None
+            return None if r is None or "r" not in r or r["repeat"] else (r["u"], r["v"], r["r"])
         compare(p, cam, S.SOCCER.radius_m, tu, f"realism {label} {var or 'plain'} k{k}")

@@ -19,6 +19,9 @@ soft-L1 loss: seams and panels are outliers to the smooth shading; the analytic 
 residuals, the projection's own derivative included). A ball over 32 px radius is fitted on every a-th pixel
 each way (its edge keeps the samples of an 8 px ball at full resolution). The radius is where the coverage is one half,
 whatever the contrast, so neither the threshold nor the shading moves it.
+A shadow or contact patch touching the ball is found where it lies (no direction assumed): the arcs of the
+silhouette whose outside ring differs from the background are left out and the fit is repeated on the rest
+(``edge_fit._foreign_arcs``; tests/vision/test_edge_fit_shadow.py).
 
 Each radius gets a one-sigma from the fit's covariance (residual scale times the Jacobian), and is
 divided by the lens's local magnification (``detect.lens_magnification``) so that it is f R / depth
@@ -48,6 +51,9 @@ NEIGHBOURS = 4  # background frames per observation (median)
 # the detector loses part of the limb, not most of the ball, and does not see a ball twice its size
 PLAUSIBLE = (0.7, 2.0)
 MIN_REFINED = 5  # refined frames a flight needs before its failed frames are scaled by its own ratio
+# the switch: the flights' pixel centres (``uv``, what the flight fit sees) from the edge fit (True) or the
+# detector's (False); measured both ways in docs/validation.md ("The ball's centre from the same edge fit")
+EDGE_CENTRES_FOR_FLIGHT = False
 
 # what each observation's radius is (the ``radius_source`` codes)
 REFINED, DETECTOR_SCALED, DETECTOR = 0, 1, 2
@@ -75,11 +81,10 @@ class RadiusRefinement:
     centre_px : ndarray, shape (N, 2) [px], optional
         The silhouette's centre (the middle of its blur segment: the ball's mean place over the
         exposure) where the edge fit was kept; elsewhere the detector's centre moved by the flight's
-        median offset refined - detected (the shading's pull, which the light keeps nearly constant
-        over a flight), or unchanged when too few frames were refined. Pixels of the distorted image.
-        The surface reader starts from these (``pipeline_spin.FlightSurfaces``); the flight fit keeps the
-        detector's centres (measured both ways in docs/validation.md: near the ground the ball's shadow
-        pulls the edge fit, which moved the launch more than the shading's pull did).
+        local median offset refined - detected (the shading's pull and the detector's bias, which change
+        slowly along a flight: ``_local_shift``), or unchanged when too few frames were refined. Pixels of the distorted image.
+        The surface reader starts from these (``pipeline_spin.FlightSurfaces``); the flight fit gets them
+        only with ``EDGE_CENTRES_FOR_FLIGHT`` (``apply_refinement``; measured both ways in docs/validation.md).
     """
 
     radius_px: np.ndarray
@@ -238,21 +243,35 @@ def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float 
             rad[kept] = det_f[kept] * ratio
             sig[kept] = det_f[kept] * spread
             src[kept] = DETECTOR_SCALED
-            cen[~ok] = uv[~ok] + np.median(cen[ok] - uv[ok], axis=0)
+            cen[~ok] = uv[~ok] + _local_shift(cen - uv, ok)[~ok]
         out.append(RadiusRefinement(rad, sig, src, det, ratio, cen))
     return out
 
 
+def _local_shift(shift, ok, near: int = 9):
+    """Per observation, the median shift refined - detected of the ``near`` refined observations nearest to
+    it in the flight's order: the shading's pull and the detector's own bias change along a flight (a ball
+    that crosses from the ground to the sky is darker than the one and brighter than the other), slowly."""
+    idx = np.flatnonzero(ok)
+    out = np.zeros_like(shift)
+    if not len(idx):
+        return out
+    for i in range(len(shift)):
+        nearest = idx[np.argsort(np.abs(idx - i), kind="stable")[:near]]
+        out[i] = np.median(shift[nearest], axis=0)
+    return out
+
+
 def _shift_check(shift, src, k_out: float = 4.0, floor_px: float = 0.5) -> None:
-    """In place: a refined frame whose centre lies far from the detector's, moved by the flight's median
-    shift, goes back to the detector (``src``). The shift refined - detected is the shading's pull toward
-    the lit side, nearly constant over a flight, plus the detector's own scatter; a fit that lands more than
-    ``k_out`` robust scatters (at least ``floor_px``) off it is a fit on something else (a shadow, a figure
-    crossing, the edge of the patch), whatever its radius."""
+    """In place: a refined frame whose centre lies far from the detector's, moved by the local median shift
+    (``_local_shift``), goes back to the detector (``src``). The shift refined - detected is the shading's
+    pull toward the lit side plus the detector's bias, slowly changing over a flight, plus the detector's own
+    scatter; a fit that lands more than ``k_out`` robust scatters (at least ``floor_px``) off it is a fit on
+    something else (a shadow, a figure crossing, the edge of the patch), whatever its radius."""
     ok = src == REFINED
     if ok.sum() < 5:
         return
-    d = shift[ok] - np.median(shift[ok], axis=0)
+    d = (shift - _local_shift(shift, ok))[ok]
     dist = np.hypot(d[:, 0], d[:, 1])
     scatter = float(np.median(dist)) / 1.1774  # per axis: the median of a 2D normal's norm is 1.1774 sigma
     idx = np.flatnonzero(ok)
@@ -283,6 +302,9 @@ def _trend_check(t, rad, sig, src, k_out: float = 4.0) -> None:
     src[bad] = DETECTOR
 
 
-def apply_refinement(flights, refinements):
-    """The flights with their refined radii in ``radius_px`` (TrackedFlight is frozen: copies)."""
-    return [replace(f, radius_px=r.radius_px) for f, r in zip(flights, refinements)]
+def apply_refinement(flights, refinements, centres: bool | None = None):
+    """The flights with their refined radii in ``radius_px`` and, with ``centres`` (default
+    ``EDGE_CENTRES_FOR_FLIGHT``), the edge fit's centres in ``uv`` (TrackedFlight is frozen: copies)."""
+    centres = EDGE_CENTRES_FOR_FLIGHT if centres is None else centres
+    return [replace(f, radius_px=r.radius_px, uv=r.centre_px if centres and r.centre_px is not None else f.uv)
+            for f, r in zip(flights, refinements)]

@@ -27,6 +27,7 @@ class EdgeFit:
     ok: bool
     message: str = ""
     light_angles: tuple = (0.5, 0.0)  # polar angle from the line of sight (toward the camera), azimuth [rad]
+    left_out: float = 0.0  # share of the fitted pixels left out as foreign arcs (a shadow touching the ball)
 
 
 _S = (np.arange(_BLUR_SAMPLES) + 0.5) / _BLUR_SAMPLES - 0.5  # positions along the blur, in blur lengths
@@ -166,7 +167,7 @@ class _DiscResiduals:
 
 
 def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0), blur_guess: float = 0.0,
-             start: EdgeFit | None = None) -> EdgeFit:
+             start: EdgeFit | None = None, reject_foreign: bool = True) -> EdgeFit:
     """Fit the ball's blurred, shaded disc in a patch.
 
     Parameters
@@ -184,6 +185,9 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
         Expected blur length along ``direction``.
     start : EdgeFit, optional
         A neighbouring frame's fit: its blur, edge width and light start this one (fewer iterations).
+    reject_foreign : bool
+        Leave out the arcs of the silhouette whose outside is not the background (a shadow or contact patch
+        touching the ball: ``_foreign_arcs``) and fit again on the rest. False: every pixel is fitted.
 
     Returns
     -------
@@ -204,7 +208,12 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
         dev = np.abs(d_full - np.median(d_full))
         sd = max(1.0, 1.4826 * float(np.median(dev)))
         near = np.hypot(xs - c0[0], ys - c0[1]) < 2.0 * r0 + 0.5 * blur_guess + 2
-        r_area = math.sqrt(float(((dev > 3 * sd) & near).sum()) / math.pi)
+        # per angular sector about the guess, the radius of a disc with the sector's share of that area, and
+        # their median: a shadow or contact patch beside the ball enlarges some sectors only (the dim limb, all)
+        n_sec = 16
+        ang = np.arctan2(ys - c0[1], xs - c0[0])[(dev > 3 * sd) & near]
+        counts = np.bincount(((ang + math.pi) / (2 * math.pi) * n_sec).astype(int) % n_sec, minlength=n_sec)
+        r_area = float(np.median(np.sqrt(counts * n_sec / math.pi)))
         r0 = max(r0, min(r_area, 1.5 * r0))
     # every pixel near the edge (where centre and radius are decided), every third one elsewhere
     rel0 = X - c0
@@ -237,18 +246,24 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     else:
         d = z - B
         noise0 = max(1.0, 1.4826 * float(np.median(np.abs(d - np.median(d)))))
+    solve = lambda m, q_start: least_squares(  # noqa: E731
+        m.resid, q_start, jac=m.jac, bounds=(lo, hi), loss="soft_l1", f_scale=2.0 * noise0,
+        x_scale=[1, 1, 1, 1, 0.2, 0.2, 0.2], xtol=1e-4, ftol=1e-4, max_nfev=40)
     try:
-        sol = least_squares(model.resid, q0, jac=model.jac, bounds=(lo, hi), loss="soft_l1", f_scale=2.0 * noise0,
-                            x_scale=[1, 1, 1, 1, 0.2, 0.2, 0.2], xtol=1e-4, ftol=1e-4, max_nfev=40)
+        sol = solve(model, q0)
+        used = model
+        dropped = np.zeros(len(z), bool)
+        for _ in range(2 if reject_foreign else 0):  # the arcs whose outside is not the background, left out
+            drop = _foreign_arcs(X, model, used, sol.x, e)
+            if drop is None or np.array_equal(drop, dropped):
+                break
+            dropped = drop
+            used = _DiscResiduals(X[~drop], z[~drop], None if B is None else B[~drop], e, rel[~drop])
+            sol = solve(used, sol.x)
     except (np.linalg.LinAlgError, ValueError) as exc:
         return EdgeFit(c0, r0, math.nan, 0.0, 0.6, 0.0, math.nan, False, f"edge fit failed ({exc})")
     q = sol.x
-    A, target, coef = model.design(q)
-    res = target - A @ coef
-    noise = 1.4826 * float(np.median(np.abs(res)))
-    ncoef = A.shape[1]
-    mean_in = float(coef[-2] + 0.5 * coef[-1])  # about the mean brightness of the shaded disc
-    contrast = abs(mean_in - (float(coef[0]) if B is None else float(coef[0]) + float(np.median(B))))
+    res, noise, contrast, ncoef = _fit_stats(used, q)
     J = sol.jac
     dof = max(len(res) - len(q) - ncoef, 1)
     s2 = float(res @ res) / dof
@@ -258,7 +273,7 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     except np.linalg.LinAlgError:
         r_sig = math.nan
     fit = EdgeFit(q[:2].copy(), float(q[2]), r_sig, float(q[3]), float(q[4]), contrast, noise, True, "",
-                  _light_angles(float(q[5]), float(q[6])))
+                  _light_angles(float(q[5]), float(q[6])), float(dropped.mean()))
     why = ""
     if not sol.success:  # (status 0: stopped at its evaluation limit)
         why = "edge fit did not converge"
@@ -269,6 +284,57 @@ def fit_edge(patch, background, centre_guess, radius_guess, direction=(1.0, 0.0)
     elif np.any(np.isclose(q[2], [lo[2], hi[2]], rtol=1e-3)):
         why = "radius at its search bound"
     return fit if not why else replace(fit, ok=False, message=why)
+
+
+def _fit_stats(model, q):
+    """Residuals, their robust scale, the ball's contrast (mean shaded disc against the background) and the
+    number of linear coefficients, of ``model`` at q."""
+    A, target, coef = model.design(q)
+    res = target - A @ coef
+    noise = 1.4826 * float(np.median(np.abs(res)))
+    mean_in = float(coef[-2] + 0.5 * coef[-1])  # about the mean brightness of the shaded disc
+    contrast = abs(mean_in - (float(coef[0]) if model.B is None else float(coef[0]) + float(np.median(model.B))))
+    return res, noise, contrast, A.shape[1]
+
+
+def _foreign_arcs(X, full, used, q, e, k_sigma: float = 4.0, share: float = 0.15):
+    """Pixels of the arcs whose outside is not the background: a dark shadow or contact patch touching the
+    ball, a neighbouring object. Around the silhouette (the blur segment's rim), in angular sectors of about
+    3 px of rim, the median residual of the ring just outside the edge (r + 2 sigma + 0.5 to r + max(3,
+    0.6 r)) under the model fitted on ``used``; a sector whose median is off by more than ``k_sigma`` of its
+    own standard error (sqrt(pi / 2) noise / sqrt(n), a sample median's: common practice) and by more than
+    ``share`` of the ball's contrast is foreign, with its two neighbours (the blob's tails). Its edge band
+    and outside are then left out, so that centre and radius come from the arcs against the background
+    (its inside stays for the shading). No direction is assumed: the shadow is found where it is.
+    Returns the mask over ``full``'s pixels, or None when nothing is foreign or over half the rim is (not a
+    patch beside the ball but a model that misses: a ball whose unlit half is as dark as a dark room, or
+    a disc grown over ball and shadow -- refusing those cost a dark-room clip of the second renderer its
+    edge fits, so they are kept as fitted)."""
+    cx, cy, r, L, sig = q[:5]
+    rel = X - [cx, cy]
+    along = np.clip(rel @ e, -0.5 * L, 0.5 * L)
+    off = rel - along[:, None] * e
+    d = np.hypot(off[:, 0], off[:, 1]) - r  # signed distance from the silhouette's rim
+    ang = np.arctan2(off[:, 1], off[:, 0])
+    n_sec = int(np.clip(round(2 * math.pi * r / 3.0), 8, 32))
+    sec = ((ang + math.pi) / (2 * math.pi) * n_sec).astype(int) % n_sec
+    _, noise, contrast, _ = _fit_stats(used, q)
+    A, target, _ = full.design(q)
+    coef = used.design(q)[2]
+    res = target - A @ coef  # every pixel against the model of the arcs kept
+    ring = (d > 2 * sig + 0.5) & (d < max(3.0, 0.6 * r))
+    band = (d < -sig) & (d > -max(1.5, 0.35 * r))  # just inside: a patch the disc swallowed (as blur, say)
+    bad = np.zeros((2, n_sec), bool)
+    floor = max(noise, 0.5) * 1.2533 * k_sigma
+    for s_ in range(n_sec):
+        for j, where in enumerate((ring, band)):
+            m = where & (sec == s_)
+            if m.sum() >= 3:
+                bad[j, s_] = abs(float(np.median(res[m]))) > max(floor / math.sqrt(m.sum()), share * contrast)
+    if (bad[0] | bad[1]).mean() > 0.5 or not bad[0].any():
+        return None
+    out = bad[0] | np.roll(bad[0], 1) | np.roll(bad[0], -1)
+    return out[sec] & (d > -(2 * sig + 1.0))
 
 
 def _light_guess(X, z, c, r):

@@ -1,5 +1,7 @@
-"""Writing a benchmark's table into docs/validation.md between its markers."""
+"""Writing a benchmark's table into docs/validation.md between its markers (``--no-publish`` on the command
+line: printed only)."""
 import re
+import sys
 from pathlib import Path
 
 VALIDATION = Path(__file__).resolve().parents[2] / "docs" / "validation.md"
@@ -20,4 +22,5 @@ def publish(name: str, lines: list[str]) -> None:
     """Print a benchmark's table and write it into docs/validation.md."""
     body = "\n".join(lines)
     print(body)
-    write_section(name, body)
+    if "--no-publish" not in sys.argv:
+        write_section(name, body)

@@ -8,7 +8,10 @@ with a camera file that records the template (depth anchor: the template's launc
 that does not (apparent size only). Deflection truth: scene_realism's path minus its no-spin path from
 the true state at the record's launch time, at the goal line x = 0.
 
-Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py realism [N]   (about 20 s a clip)
+Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py realism [N] [--edge-centres] [--no-publish]
+        (about 20 s a clip; --edge-centres: the flights' pixel centres from the edge fit,
+        ``ball_size.EDGE_CENTRES_FOR_FLIGHT``, whatever its default; --capture-fps: the clip's true rate
+        given, so that frame k is at k / 240 s whatever the tracker takes for a repeated frame)
      PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py detector-radius [N]
         (the detector's apparent-radius errors on N penalty kicks per set-up, written to
         tests/benchmarks/detector_radius_errors.json; bench_single_camera.py draws its "detector-sized"
@@ -136,7 +139,8 @@ def run(n):
             _true_pixel_fits(e, frames, replace(cam, template="soccer-goal", world_frame=frame), settings, v0, axis)
             for mode, camera in (("zone", replace(cam, template="soccer-goal", world_frame=frame)), ("none", cam)):
                 try:
-                    res = analyze_clip(ClipInput(clip, [camera]), settings)
+                    res = analyze_clip(ClipInput(clip, [camera], capture_fps=FPS if "--capture-fps" in sys.argv
+                                                 else None), settings)
                 except BallTrajError as exc:
                     e[mode].append(None)
                     e["why"].append(f"{mode}: {exc.one_line()[:120]}")
@@ -265,6 +269,9 @@ def publish_radius_table():
 
 
 def main_realism(n):
+    if "--edge-centres" in sys.argv:
+        from balltraj.vision import ball_size
+        ball_size.EDGE_CENTRES_FOR_FLIGHT = True
     rows = run(n)
     lines = [f"Penalty kicks rendered by `tests/scene_realism.py` (independent renderer and laws: C_D 0.25, C_L "
              f"0.15; shaded seamed ball, blur, noise, H.264; 960x540, 240 fps), {n} a camera, tracked and fitted "

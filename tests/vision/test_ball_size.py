@@ -263,3 +263,21 @@ def test_light_coordinates_round_trip():
         v = np.array(_light_vector(*p))
         assert np.linalg.norm(v) == pytest.approx(1.0)
         assert v == pytest.approx([math.sin(th) * math.cos(ph), math.sin(th) * math.sin(ph), math.cos(th)])
+
+
+def test_shift_check_follows_a_shift_that_changes_along_the_flight():
+    # invariant: the detector's bias changes sign halfway (a ball passing from the ground to a bright sky);
+    # against the flight's single median shift the scatter is the gap between the halves and a fit 3 px off
+    # passed; against the local shift it is sent back and no other (construction here; common practice for
+    # a robust outlier check)
+    from balltraj.vision.ball_size import DETECTOR, REFINED, _local_shift, _shift_check
+
+    rng = np.random.default_rng(0)
+    n = 60
+    shift = np.where(np.arange(n)[:, None] < n // 2, [1.2, 1.5], [-0.8, -1.0]) + rng.normal(0, 0.1, (n, 2))
+    shift[40] += [3.0, 0.0]
+    src = np.full(n, REFINED)
+    _shift_check(shift, src)
+    assert list(np.flatnonzero(src == DETECTOR)) == [40]
+    fill = _local_shift(shift, src == REFINED)
+    assert np.allclose(fill[5], [1.2, 1.5], atol=0.15) and np.allclose(fill[55], [-0.8, -1.0], atol=0.15)
