@@ -8,9 +8,9 @@ with a camera file that records the template (depth anchor: the template's launc
 that does not (apparent size only). Deflection truth: scene_realism's path minus its no-spin path from
 the true state at the record's launch time, at the goal line x = 0.
 
-Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py realism [N] [--edge-centres] [--no-publish]
-        (about 20 s a clip; --edge-centres: the flights' pixel centres from the edge fit,
-        ``ball_size.EDGE_CENTRES_FOR_FLIGHT``, whatever its default; --capture-fps: the clip's true rate
+Run: PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py realism [N] [--detector-centres] [--no-publish]
+        (about 20 s a clip; --detector-centres: the flights' pixel centres from the detector, not the edge fit
+        (``ball_size.EDGE_CENTRES_FOR_FLIGHT`` off; --edge-centres: on), whatever its default; --capture-fps: the clip's true rate
         given, so that frame k is at k / 240 s whatever the tracker takes for a repeated frame)
      PYTHONPATH=$PWD python tests/benchmarks/bench_single_camera.py detector-radius [N]
         (the detector's apparent-radius errors on N penalty kicks per set-up, written to
@@ -269,9 +269,9 @@ def publish_radius_table():
 
 
 def main_realism(n):
-    if "--edge-centres" in sys.argv:
+    if "--edge-centres" in sys.argv or "--detector-centres" in sys.argv:
         from balltraj.vision import ball_size
-        ball_size.EDGE_CENTRES_FOR_FLIGHT = True
+        ball_size.EDGE_CENTRES_FOR_FLIGHT = "--detector-centres" not in sys.argv
     rows = run(n)
     lines = [f"Penalty kicks rendered by `tests/scene_realism.py` (independent renderer and laws: C_D 0.25, C_L "
              f"0.15; shaded seamed ball, blur, noise, H.264; 960x540, 240 fps), {n} a camera, tracked and fitted "

@@ -151,8 +151,13 @@ def test_clip_without_ball_says_so(tmp_path):
     assert not out.exists()
 
 
-@pytest.mark.parametrize("name", ["pitch-side", "free-kick-behind"])
-def test_sample_clips_end_to_end_within_5_cm(tmp_path, name):
+# the free kick is filmed from behind the kicker with one camera: depth along the line of sight comes
+# from the apparent size, and the flight file's own one-sigma on its up-down deflection is about 39 cm;
+# 10 cm is a quarter of it (with the edge fit's centres, used since 4 December 2026, it reads 7.5 cm off,
+# with the detector's 4.5 cm; on the independent penalty-kick renders the edge fit's are the better ones,
+# docs/validation.md)
+@pytest.mark.parametrize("name, tol_m", [("pitch-side", 0.05), ("free-kick-behind", 0.10)])
+def test_sample_clips_end_to_end_deflection(tmp_path, name, tol_m):
     meta = json.loads((ROOT / "sample_clips" / f"{name}.truth.json").read_text())
     out = tmp_path / name
     r = runner.invoke(app, ["analyze", str(ROOT / "sample_clips" / f"{name}.mp4"), "--camera",
@@ -162,7 +167,7 @@ def test_sample_clips_end_to_end_within_5_cm(tmp_path, name):
     assert r.exit_code == 0, r.output
     rec = json.loads((out / "flight.json").read_text())
     for k in ("horizontal_m", "vertical_m"):
-        assert abs(rec["deflection"][k] - meta["truth"]["deflection"][k]) < 0.05, (k, rec["deflection"][k])
+        assert abs(rec["deflection"][k] - meta["truth"]["deflection"][k]) < tol_m, (k, rec["deflection"][k])
     assert (out / "observations.csv").exists() and (out / "report.html").exists()
 
 
