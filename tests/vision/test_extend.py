@@ -63,33 +63,35 @@ def _flight(t, uv, r, n_tracked, rng):
                          quality=np.ones(n_tracked), bounce=False, end_reason="lost")
 
 
-def test_a_ball_receding_from_the_camera_is_followed_after_the_tracker_lost_it():
-    rng = np.random.default_rng(3)
-    n = 60
+def _carried_on(seed, n, person=None, end_reason="lost"):
+    """A flight tracked over its first 20 exposures of n, carried on: (flight, Extension, true uv, true r)."""
+    from dataclasses import replace
+    rng = np.random.default_rng(seed)
     t, uv, r = _truth(n)
-    frames = dict(enumerate(_frames(uv, r, rng)))
-    f = _flight(t, uv, r, 20, rng)
+    frames = dict(enumerate(_frames(uv, r, rng, person=person)))
+    f = replace(_flight(t, uv, r, 20, rng), end_reason=end_reason)
     g, e = extend_one(f, frames, t, np.arange(n))
+    return g, e, uv, r
+
+
+def test_a_ball_receding_from_the_camera_is_followed_after_the_tracker_lost_it():
+    g, e, uv, r = _carried_on(3, 60)
     assert e.before == 0  # the flight starts at the clip's first exposure
+    fr = np.asarray(g.frame)
+    new = fr >= 20
     # Source: the benchmarks' match rule, within max(2 px, half the radius) of the true centre
-    new = np.asarray(g.frame) >= 20
-    err = np.hypot(*(g.uv[new] - uv[np.asarray(g.frame)[new]]).T)
+    err = np.hypot(*(g.uv[new] - uv[fr[new]]).T)
     assert e.after >= 30, e
-    assert np.all(err <= np.maximum(2.0, 0.5 * r[np.asarray(g.frame)[new]])), err.max()
-    # the radius follows 1/distance (from the fit's depth), within 15 %
-    rr = g.radius_px[new] / r[np.asarray(g.frame)[new]]
+    assert np.all(err <= np.maximum(2.0, 0.5 * r[fr[new]])), err.max()
+    # each added point's own radius (f R / Z, shrinking as the ball recedes) within 15 %
+    rr = g.radius_px[new] / r[fr[new]]
     assert np.all(np.abs(rr - 1) < 0.15), rr
     assert np.all(np.diff(g.t) > 0)
 
 
 def test_the_extension_does_not_walk_onto_a_dark_person_crossing_the_path():
-    rng = np.random.default_rng(4)
-    n = 60
-    t, uv, r = _truth(n)
     # a dark shape 30 x 120 px walking across the ball's later path
-    frames = dict(enumerate(_frames(uv, r, rng, person=(40, 40, 30, 120, 2.0))))
-    f = _flight(t, uv, r, 20, rng)
-    g, e = extend_one(f, frames, t, np.arange(n))
+    g, e, uv, r = _carried_on(4, 60, person=(40, 40, 30, 120, 2.0))
     fr = np.asarray(g.frame)
     new = fr >= 20
     err = np.hypot(*(g.uv[new] - uv[fr[new]]).T)
@@ -100,13 +102,7 @@ def test_the_extension_does_not_walk_onto_a_dark_person_crossing_the_path():
 
 
 def test_a_flight_that_left_the_frame_is_not_carried_on():
-    rng = np.random.default_rng(5)
-    n = 40
-    t, uv, r = _truth(n)
-    frames = dict(enumerate(_frames(uv, r, rng)))
-    f = _flight(t, uv, r, 20, rng)
-    from dataclasses import replace
-    g, e = extend_one(replace(f, end_reason="left the frame"), frames, t, np.arange(n))
+    g, e, _, _ = _carried_on(5, 40, end_reason="left the frame")
     assert e.after == 0 and len(g.t) == 20
 
 
