@@ -52,8 +52,8 @@ REACH = 60  # most exposures added at either end
 REF_REACH = 40  # how far (exposures) background frames are looked for
 MEMORY_BYTES = 512 * 2 ** 20  # most grey frames held at once
 BACKWARD = True  # also before the flight's first observation (off: bounce 89 -> 78 %, juggle 83 -> 68 % recall)
-N_REFS = 3
-FIT_POINTS = 15
+N_REFS = 3  # background frames in the median
+FIT_POINTS = 15  # nearest observations the path is fitted to
 
 
 @dataclass(frozen=True)
@@ -162,10 +162,9 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=(), vi
     # positions in the scene (the view's motion undone), radii [px]
     known = {i: (*view.scene(i, float(f.uv[j, 0]), float(f.uv[j, 1])), float(f.radius_px[j]))
              for j, i in enumerate(obs_i)}
-    ref = _own_contrast(known, frames, view)
-    if ref is None:
+    level = _own_contrast(known, frames, view)
+    if level is None:
         return f, Extension()
-    level = ref
     dt_med = float(np.median(np.diff(times))) if len(times) > 1 else 0.0
     added = {}
     for step, end_reason in ((-1, None), (1, f.end_reason)):
@@ -180,8 +179,8 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=(), vi
             if (j not in frames or j < 0 or j >= len(times) or any(a <= j <= b for a, b in others)
                     or view.segment[j] != view.segment[i]):
                 break
-            if abs(times[j] - times[i]) > 2.5 * dt_med * (misses + 1):
-                break  # a gap in the exposures (a scene cut)
+            if abs(times[j] - times[i]) > 2.5 * dt_med:
+                break  # a gap in the exposure times
             pred = _predict(track, times, j, step)
             if pred is None:
                 break
