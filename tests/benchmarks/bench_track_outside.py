@@ -130,12 +130,13 @@ def expected_segments(truth, min_exposures=6):
 
 def evaluate(truth, res, expected):
     """Recall, precision, flights mostly not on the ball, and per flight the expected segments it covers."""
-    tt = np.array([r["t"] for r in truth])
     hit, n_obs, n_good, bad, covers = set(), 0, 0, 0, []
     for f in res.flights:
         good_f, segs = 0, {}
-        for t, (u, v) in zip(f.t, f.uv):
-            row = truth[int(np.argmin(np.abs(tt - t)))]
+        for k, (u, v) in zip(f.frame, f.uv):
+            # the row of the stored frame the observation was measured in (matched by time, an exposure
+            # re-timed after a repeat met the repeat's row and counted as wrong)
+            row = truth[int(k)]
             n_obs += 1
             near = row["visible"] and np.hypot(u - row["u"], v - row["v"]) <= max(2.0, 0.5 * row["r"])
             if near and not row["repeat"]:
