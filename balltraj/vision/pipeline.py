@@ -63,8 +63,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     each flight's apparent radii are measured again from the ball's edge (``ball_size.py``, one more
     decoding pass over the flights' frames, reported through ``progress`` as a second run through the
     clip's frames); ``TrackResult.radii`` says which were. ``extend``: each flight is carried on
-    where the tracker lost the ball and through the exposures it coasted over (``extend.py``; one more
-    decoding pass over the flights' frames and those near their ends).
+    where the tracker lost the ball and through the exposures it coasted over (``extend.py``; on the
+    grey frames held while tracking, up to EXTEND_HOLD_BYTES, the rest decoded again).
     """
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):

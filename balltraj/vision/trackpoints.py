@@ -232,7 +232,17 @@ class PathFit:
     """The image of a path with constant acceleration seen in perspective, ``(a0 + a1 t + a2 t^2) /
     (1 + d t)`` in both coordinates with one denominator (the depth relative to its value at t = 0), by
     linear least squares (the equation multiplied out); a quadratic (d = 0) from fewer than 8 points or
-    when the depth would not stay positive over the fitted times. ``fit(t)`` gives (len(t), 2) pixels."""
+    when the depth would not stay positive over the fitted times. ``fit(t)`` gives (len(t), 2) pixels.
+
+    A parabola moving away from a pinhole camera (u = f X / Z, v = f Y / Z, depth linear in time) is
+    reproduced exactly:
+
+    >>> t = np.linspace(0.0, 1.0, 9)
+    >>> X, Y, Z = 1.0 + 2.0 * t, 0.5 + 3.0 * t - 4.9 * t ** 2, 5.0 + 3.0 * t
+    >>> uv = np.stack([100 * X / Z, 100 * Y / Z], 1)
+    >>> bool(np.allclose(PathFit(t, uv)(t), uv, atol=1e-6))
+    True
+    """
 
     def __init__(self, t, uv):
         t = np.asarray(t, float)
