@@ -20,6 +20,7 @@ import cv2
 import numpy as np
 
 from ..camera.model import Camera
+from .frames import full_resolution
 from .streak import fit_streak, inside_streak, streak_consistent, streak_expected, streak_half_sizes
 
 
@@ -186,7 +187,7 @@ class Detector:
         """The full-resolution background over the current frame's window [x0, x1) x [y0, y1)."""
         if self.T is None:
             return self.bg_full[y0:y1, x0:x1]
-        Tf = np.vstack([self.T * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
+        Tf = full_resolution(self.T)
         M = np.linalg.inv(Tf)[:2]  # current -> reference (full resolution)
         M[:, 2] += M[:, :2] @ [x0, y0]
         # M maps window pixels to reference pixels: the inverse map, as warpAffine is told
@@ -346,7 +347,7 @@ class Detector:
     def _away_from(self, cands) -> np.ndarray:
         """Full-resolution mask (reference view) that is 0 around each candidate, 255 elsewhere."""
         m = np.full((self.h, self.w), 255, np.uint8)
-        inv = None if self.T is None else np.linalg.inv(np.vstack([self.T * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]]))[:2]
+        inv = None if self.T is None else np.linalg.inv(full_resolution(self.T))[:2]
         for c in cands:
             u, v = (c.u, c.v) if inv is None else inv @ [c.u, c.v, 1.0]
             e = int(2 * c.radius_px + c.streak_px + 4)

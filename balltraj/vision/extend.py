@@ -214,8 +214,8 @@ def extend_one(f, frames: dict[int, np.ndarray], times, exposures, others=(), vi
         us, vs, r, gate = pred
         u, v = view.image(j, us, vs)
         hit = None
-        for step in (1, -1):
-            if _background(frames, track, j, (us, vs), r, step, _box(frames[j], u, v, r, gate), view) is not None:
+        for step in (1, -1):  # background from earlier exposures, else from later ones
+            if _refs(frames, track, j, (us, vs), r, step, view):
                 hit = _look(frames, track, j, (u, v), (us, vs), r, gate, level, step, view)
                 break
         if hit is not None:
@@ -243,33 +243,15 @@ def _predict(track: dict, times: np.ndarray, j: int, step: int):
     keys = sorted(track, reverse=step > 0)[:FIT_POINTS]
     if len(keys) < 5:
         return None
-    P = np.array([track[k] for k in keys])
-    tc = times[keys] - times[j]
-    tau = tc / max(float(np.abs(tc).max()), 1e-9)
     # a stray observation at the end (the tracker took something else as it lost the ball) must not steer
     # the prediction: fitted first without the nearest three, then kept by their agreement with the rest
     keep = np.ones(len(keys), bool)
     if len(keys) >= 8:
         keep[:3] = False
-    for it in range(4):
-        fit = PathFit(tau[keep], P[keep, :2])
-        e = np.linalg.norm(P[:, :2] - fit(tau), axis=1)
-        s = 1.4826 * float(np.median(e[keep]))
-        new = e <= max(3.0 * s, 1.5)
-        if new.sum() < 5 or np.array_equal(new, keep) and it > 0:
-            break
-        keep = new
-    n_par = 7 if keep.sum() >= 8 else 6
-    rms = float(np.sqrt((e[keep] ** 2).sum() / max(2 * int(keep.sum()) - n_par, 1)))
-    u, v = fit(np.zeros(1))[0]
-    # the apparent radius is f R / depth, and over a short stretch the depth changes about linearly
-    c_r = np.polyfit(tau[keep], 1.0 / np.maximum(P[keep, 2], 0.5), 1)
-    r = float(1.0 / max(float(np.polyval(c_r, 0.0)), 1e-3))
-    r = float(np.clip(r, 0.5 * P[:, 2].min(), 2.0 * P[:, 2].max()))
+    u, v, r, rms, keep = _path_at(track, keys, times, j, keep, iterations=4)
     # the fit's scatter, growing with the distance ahead of the nearest observation it rests on
     ahead = abs(j - keys[int(np.flatnonzero(keep)[0])])
-    gate = max(2.0, 0.5 * r) + min(3.0 * rms * ahead, 2.0 * r + 4.0)
-    return float(u), float(v), r, gate
+    return u, v, r, max(2.0, 0.5 * r) + min(3.0 * rms * ahead, 2.0 * r + 4.0)
 
 
 def _interpolate(known: dict, times: np.ndarray, j: int, side: int = 5):
@@ -280,22 +262,32 @@ def _interpolate(known: dict, times: np.ndarray, j: int, side: int = 5):
     if len(before) < 2 or len(after) < 2:
         return None
     keys = before + after
-    P = np.array([known[k] for k in keys])
+    u, v, r, rms, _ = _path_at(known, keys, times, j, np.ones(len(keys), bool), iterations=3)
+    return u, v, r, max(2.0, 0.5 * r) + 3.0 * rms
+
+
+def _path_at(track: dict, keys, times: np.ndarray, j: int, keep, iterations: int):
+    """The flight's path (:class:`PathFit`) through the observations ``keys`` of ``track``, read at
+    exposure j: (u, v, radius, the fit's scatter [px], the observations kept). Observations off the
+    fit by more than 3 robust sigmas (1.5 px at least) are left out, starting from ``keep``; the
+    radius from 1/radius linear in time (apparent radius f R / depth, the depth about linear over a
+    short stretch), within half and twice the radii seen."""
+    P = np.array([track[k] for k in keys])
     tc = times[keys] - times[j]
     tau = tc / max(float(np.abs(tc).max()), 1e-9)
-    keep = np.ones(len(keys), bool)
-    for it in range(3):
+    for it in range(iterations):
         fit = PathFit(tau[keep], P[keep, :2])
         e = np.linalg.norm(P[:, :2] - fit(tau), axis=1)
         new = e <= max(3.0 * 1.4826 * float(np.median(e[keep])), 1.5)
-        if new.sum() < 5 or np.array_equal(new, keep):
+        if new.sum() < 5 or np.array_equal(new, keep) and it > 0:
             break
         keep = new
-    rms = float(np.sqrt((e[keep] ** 2).sum() / max(2 * int(keep.sum()) - (7 if keep.sum() >= 8 else 6), 1)))
+    n_par = 7 if keep.sum() >= 8 else 6
+    rms = float(np.sqrt((e[keep] ** 2).sum() / max(2 * int(keep.sum()) - n_par, 1)))
     u, v = fit(np.zeros(1))[0]
     c_r = np.polyfit(tau[keep], 1.0 / np.maximum(P[keep, 2], 0.5), 1)
     r = float(np.clip(1.0 / max(float(np.polyval(c_r, 0.0)), 1e-3), 0.5 * P[:, 2].min(), 2.0 * P[:, 2].max()))
-    return float(u), float(v), r, max(2.0, 0.5 * r) + 3.0 * rms
+    return float(u), float(v), r, rms, keep
 
 
 def _box(img, u, v, r, reach):
@@ -305,10 +297,10 @@ def _box(img, u, v, r, reach):
     return max(0, int(u) - half), max(0, int(v) - half), min(w, int(u) + half + 1), min(h, int(v) + half + 1)
 
 
-def _background(frames, track, j, s, r, step, box, view):
-    """Median of up to N_REFS exposures of the same scene on the flight's known side in which the ball was
-    >= 3 r away from the scene position ``s`` (moved with the view onto exposure j's window ``box``)."""
-    refs = []
+def _refs(frames, track, j, s, r, step, view) -> list[int]:
+    """Up to N_REFS exposures of the same scene on the flight's known side in which the ball was >= 3 r
+    away from the scene position ``s``."""
+    out = []
     for d in range(4, REF_REACH + 1, 2):
         k = j - step * d
         if k not in frames or view.segment[k] != view.segment[j]:
@@ -316,9 +308,15 @@ def _background(frames, track, j, s, r, step, box, view):
         p = track.get(k)
         if p is None or np.hypot(p[0] - s[0], p[1] - s[1]) < 3.0 * max(r, p[2]):
             continue
-        refs.append(view.crop(frames, k, j, box))
-        if len(refs) == N_REFS:
-            break
+        out.append(k)
+        if len(out) == N_REFS:
+            return out
+    return out
+
+
+def _background(frames, track, j, s, r, step, box, view):
+    """Median of the :func:`_refs` exposures, moved with the view onto exposure j's window ``box``."""
+    refs = [view.crop(frames, k, j, box) for k in _refs(frames, track, j, s, r, step, view)]
     if not refs:
         return None
     return np.median(np.stack(refs).astype(np.float32), axis=0)

@@ -29,6 +29,12 @@ import cv2
 import numpy as np
 
 IDENTITY = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])
+
+
+def full_resolution(motion: np.ndarray) -> np.ndarray:
+    """The view's motion (2 x 3, half-resolution pixels, as the guard measures it) as a 3 x 3 map of
+    full-resolution pixels."""
+    return np.vstack([motion * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
 # Most inexact repeats in a row that frame-rate conversion makes (12 images a second shown at 29.97
 # repeat an image up to 3 times; 24 -> 60 and 25 -> 30 once or twice) (common practice). Exact repeats have no
 # limit; after a run this long the frame is taken for an exposure (a busy stretch that ended, not a repeat).

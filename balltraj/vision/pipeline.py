@@ -14,7 +14,7 @@ from .ball_size import RadiusRefinement, apply_refinement, refine_flight_radii
 from .clip import clip_info, read_frames
 from .detect import Detector, radius_gate_map
 from .extend import extend_flights
-from .frames import FrameGuard
+from .frames import FrameGuard, full_resolution
 from .overlay import write_overlay
 from .track import TrackedFlight, Tracker
 
@@ -122,7 +122,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         if moved_px > 0 and cands:
             cands = _in_scene(cands, motion)
         trk.update(len(frame_of), t, cands)
-        views.append(np.vstack([motion * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]]))
+        views.append(full_resolution(motion))
         segment.append(len(cuts))
         if hold:
             held[len(frame_of)] = gray
@@ -186,8 +186,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
 def _in_scene(cands, motion):
     """Candidates with their scene position: the view's motion since the first exposure (half
     resolution, from the frame guard) undone at full resolution."""
-    M = np.vstack([motion * [[1, 1, 2], [1, 1, 2]], [0, 0, 1]])
-    inv = np.linalg.inv(M)[:2]
+    inv = np.linalg.inv(full_resolution(motion))[:2]
     out = []
     for c in cands:
         us, vs = inv @ [c.u, c.v, 1.0]
