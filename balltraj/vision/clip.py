@@ -79,19 +79,41 @@ def _luma_capture(path, info: ClipInfo):
         return None
     ok, frame = cap.read()
     cap.release()
-    if not ok or frame is None or frame.ndim != 2 or frame.shape != (info.height, info.width):
+    if not ok or frame is None or frame.ndim != 2 or frame.shape != (info.height, info.width) or frame.dtype != np.uint8:
+        return None
+    # the plane is the luma only where the decoder's samples are 8-bit: from a 10-bit clip (the HDR video
+    # of many phones) OpenCV hands out the plane's bytes, two to a sample, in a frame of the right shape.
+    # So the first frame must look like the colour-converted one
+    ref = cv2.VideoCapture(str(path), cv2.CAP_FFMPEG)
+    ok, colour = ref.read()
+    ref.release()
+    if not ok or colour is None or not is_luma_of(frame, colour):
         return None
     cap = cv2.VideoCapture(str(path), cv2.CAP_FFMPEG)
     cap.set(cv2.CAP_PROP_CONVERT_RGB, 0)
     return cap
 
 
+def is_luma_of(plane: np.ndarray, colour: np.ndarray, tol: float = 8.0) -> bool:
+    """Whether an 8-bit plane is the luma of a BGR frame, in video range (16-235) or full range: the
+    median difference from the frame's grey, mapped either way, is within ``tol`` grey levels.
+
+    >>> g = np.tile(np.arange(256, dtype=np.uint8), (4, 1))
+    >>> bgr = cv2.cvtColor(g, cv2.COLOR_GRAY2BGR)
+    >>> is_luma_of((16 + g * (219 / 255)).round().astype(np.uint8), bgr), is_luma_of(255 - g, bgr)
+    (True, False)
+    """
+    grey = cv2.cvtColor(colour, cv2.COLOR_BGR2GRAY).astype(np.float32)
+    p = plane.astype(np.float32)
+    return min(float(np.median(np.abs(p - (16 + grey * (219 / 255))))), float(np.median(np.abs(p - grey)))) <= tol
+
+
 def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, capture_fps: float | None = None,
                 prefetch: int = 8, grey: bool = False, prepare=None) -> Iterator[tuple[int, float, np.ndarray]]:
     """Yield (index, time_s, frame) in order, decoding in a background thread.
 
-    Frames are BGR, or with ``grey`` single-channel (the decoder's luma plane where the codec
-    allows, else converted in the decoding thread).
+    Frames are BGR, or with ``grey`` single-channel: the decoder's luma plane where the codec allows
+    (8-bit samples), else converted in the decoding thread to the same scale (video range, 16-235).
     ``capture_fps`` re-times a slow-motion file stored time-stretched: time = index / capture_fps.
     Frames before ``start_s`` are decoded and dropped (no seeking); reading stops after ``end_s``.
     ``prepare(frame)``, if given, runs in the decoding thread and its result is yielded instead of
@@ -119,8 +141,8 @@ def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, captu
                 if t_first is None:
                     t_first = ms
                 t = k / capture_fps if capture_fps else (ms - t_first) / 1000.0
-                if convert:
-                    frame = cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY)
+                if convert:  # on the luma's scale (video range, 16-235), as the decoder's plane would be
+                    frame = cv2.convertScaleAbs(cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY), alpha=219 / 255, beta=16)
                 q.put((k, t, frame if prepare is None else prepare(frame)))
                 k += 1
                 ok, frame = cap.read()

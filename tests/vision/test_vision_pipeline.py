@@ -246,3 +246,34 @@ def test_a_pitch_passing_a_walking_figure_is_not_joined_to_it(tmp_path):
     for camera in (cam, None):
         res = track_clip(clip, camera, model.radius_m if camera else None)
         assert len(res.flights) == 1 and len(res.flights[0].t) >= 0.8 * len(truth)
+
+
+def test_a_10_bit_clip_is_read_as_its_picture(tmp_path):
+    # Phones film HDR video with 10-bit samples. OpenCV then hands out the decoder's plane as bytes, two to
+    # a sample, in a frame of the right shape: read as luma it is not the picture, and no ball is found.
+    # Invariant: the sample clip re-coded with 10-bit samples gives the same grey frames (within the
+    # coding's error) and the same flight as the 8-bit original.
+    av = pytest.importorskip("av")
+    src = ROOT / "sample_clips" / "pitch-side.mp4"
+    dst = tmp_path / "ten bit.mp4"
+    with av.open(str(src)) as inp, av.open(str(dst), "w") as out:
+        vin = inp.streams.video[0]
+        s = out.add_stream("libx264", rate=vin.average_rate)
+        s.width, s.height, s.pix_fmt = vin.width, vin.height, "yuv420p10le"
+        s.options = {"crf": "10"}
+        for f in inp.decode(video=0):
+            for p in s.encode(av.VideoFrame.from_ndarray(f.to_ndarray(format="rgb24"), format="rgb24")):
+                out.mux(p)
+        for p in s.encode():
+            out.mux(p)
+    g8 = [g for _, _, g in read_frames(src, grey=True)]
+    g10 = [g for _, _, g in read_frames(dst, grey=True)]
+    assert len(g8) == len(g10)
+    diff = [float(np.median(np.abs(a.astype(float) - b))) for a, b in zip(g8[::40], g10[::40])]
+    assert max(diff) <= 3, diff  # (before: the low bytes of two samples, 20-150 grey levels off)
+    f8, f10 = track_clip(src, None, 0.0366).flights, track_clip(dst, None, 0.0366).flights
+    assert len(f8) == len(f10) == 1
+    common = np.intersect1d(np.round(f8[0].t * 240), np.round(f10[0].t * 240))
+    assert len(common) >= 0.9 * len(f8[0].t)
+    at = lambda f: f.uv[np.isin(np.round(f.t * 240), common)]  # noqa: E731
+    assert np.abs(at(f8[0]) - at(f10[0])).max() < 0.5
