@@ -140,10 +140,29 @@ def _extent_px(uv: np.ndarray) -> float:
     return float(np.hypot(*np.ptp(uv, axis=0)))
 
 
-def _net_speed(tr: _Track) -> float:
-    """The track's reach (:func:`_extent_px`) over its duration [px/s]."""
-    ts, uv = tr.times(), tr.uv()
-    return _extent_px(uv) / max(ts[-1] - ts[0], 1e-9)
+def _net_speed(tr: _Track, uv: np.ndarray | None = None) -> float:
+    """The track's reach (:func:`_extent_px`) over its duration [px/s]: of its image positions, or of
+    the positions ``uv`` given (its scene positions)."""
+    ts = tr.times()
+    return _extent_px(tr.uv() if uv is None else uv) / max(ts[-1] - ts[0], 1e-9)
+
+
+def scene_uv(tr: _Track) -> np.ndarray | None:
+    """The track's positions in the scene (the view's own motion undone), shape (N, 2) [px]; None
+    where the view did not move (nothing to undo). A point seen before the view first moved has no
+    scene position: its scene position is its image position (leaving such points out took a whole
+    pitch for a track in place when the view began to shake near its end)."""
+    if all(c.u_scene is None for _, _, c in tr.points):
+        return None
+    return np.asarray([(c.u, c.v) if c.u_scene is None else (c.u_scene, c.v_scene) for _, _, c in tr.points], float)
+
+
+def _scene_travel(tr: _Track, finite: bool = False) -> float:
+    """How far [px] the track reached in the scene: the diagonal of the box around its scene positions,
+    so a ball that comes back down where it rose (a juggle, an up-down throw filmed hand-held) still
+    reaches; where the view did not move, inf (or with ``finite`` 0: nothing to undo)."""
+    sc = scene_uv(tr)
+    return (0.0 if finite else np.inf) if sc is None else _extent_px(sc)
 
 
 def _path_smoothness_px(uv: np.ndarray) -> float:
