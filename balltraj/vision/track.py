@@ -12,7 +12,7 @@ a camera says where that is). A track is kept as a flight when it passes the tes
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -21,11 +21,6 @@ from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consisten
 from .detect import Candidate, lens_magnification
 from .streak import Expected
 from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_release, trim_strays
-
-
-def _scene_of(c: Candidate) -> complex:
-    """A candidate's scene position as u + iv [px] (its image position where the view has not moved)."""
-    return complex(c.u, c.v) if c.u_scene is None else complex(c.u_scene, c.v_scene)
 
 
 @dataclass(frozen=True)
@@ -150,34 +145,30 @@ class Tracker:
         U = np.array([p[2].u for p in pool])
         V = np.array([p[2].v for p in pool])
         Rr = np.array([p[2].radius_px for p in pool])
-        S = np.array([_scene_of(p[2]) for p in pool])  # scene positions (complex), for a view panned after the ball
-        cS = np.array([_scene_of(c) for c in cs])
         cu = np.array([c.u for c in cs])
         cv = np.array([c.v for c in cs])
         cr = np.array([c.radius_px for c in cs])
 
         max_step = float(np.hypot(self.w, self.h)) / 6.0
 
-        def link(k1, t1, u1, v1, r1, s1, k0, t0, u0, v0, r0, s0):
-            """Could (k0, t0, ...) -> (k1, t1, ...) be consecutive points of a flight? Fast enough (in the
-            image or in the scene), but not so far a step per exposure that the ball would cross the whole view in fewer
+        def link(k1, t1, u1, v1, r1, k0, t0, u0, v0, r0):
+            """Could (k0, t0, ...) -> (k1, t1, ...) be consecutive points of a flight? Fast enough,
+            but not so far a step per exposure that the ball would cross the whole view in fewer
             exposures than a flight needs (a random pair of far-apart blobs), sizes alike
             (broadcast arrays)"""
             dt = t1 - t0
             d = np.hypot(u1 - u0, v1 - v0)
             with np.errstate(divide="ignore", invalid="ignore"):
-                sp, sp_scene = d / dt, np.abs(s1 - s0) / dt
-            return (dt > 0) & (k1 - k0 <= 2) & (k0 != k1) & ((sp >= self.min_speed) | (sp_scene >= self.min_speed)) \
-                & (sp <= self.max_speed) \
+                sp = d / dt
+            return (dt > 0) & (k1 - k0 <= 2) & (k0 != k1) & (sp >= self.min_speed) & (sp <= self.max_speed) \
                 & (d <= max_step * np.abs(k1 - k0)) & (r1 >= 0.5 * r0 - 2) & (r1 <= 2 * r0 + 2)
 
-        m1 = link(k, t, cu[:, None], cv[:, None], cr[:, None], cS[:, None], K[None], T[None], U[None], V[None],
-                  Rr[None], S[None])
+        m1 = link(k, t, cu[:, None], cv[:, None], cr[:, None], K[None], T[None], U[None], V[None], Rr[None])
         ic, i1 = np.nonzero(m1)  # (candidate, p1) pairs
         if not len(ic):
             return out
-        m0 = link(K[:, None], T[:, None], U[:, None], V[:, None], Rr[:, None], S[:, None], K[None], T[None], U[None],
-                  V[None], Rr[None], S[None]) & (K[None] < K[:, None])  # m0[p1, p0]
+        m0 = link(K[:, None], T[:, None], U[:, None], V[:, None], Rr[:, None], K[None], T[None], U[None], V[None],
+                  Rr[None]) & (K[None] < K[:, None])  # m0[p1, p0]
         ip, i0 = np.nonzero(m0[i1])
         if not len(ip):
             return out
@@ -297,10 +288,6 @@ class Tracker:
             mo = sideways_motion(tr, self.ball_radius_m, c)
             if mo is not None and mo[1] - 2.0 * mo[2] > 100.0:
                 return False  # at the ball's own scale it turns at over 10 g: a swinging limb, not a flight
-            if mo is not None and mo[0] < self.min_ball_speed and (sc := scene_uv(tr)) is not None:
-                # (in the scene: a view panned after the ball holds it nearly still in the image)
-                mo = sideways_motion(_Track.of([(k, t, replace(q, u=float(a), v=float(b))) for (k, t, q), (a, b)
-                                                in zip(tr.points, sc)]), self.ball_radius_m, c)
             if mo is not None and mo[0] < self.min_ball_speed:
                 return False  # never as fast as a ball in flight, even at the end of its track: a hand, a person
         if self.camera is not None and self.ball_radius_m:

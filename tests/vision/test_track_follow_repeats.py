@@ -36,22 +36,22 @@ def _cand(u, v, us=None, vs=None, r=F_PX * R_BALL / DEPTH, s=1.0):
                      None if us is None else float(us), None if vs is None else float(vs))
 
 
-def test_a_ball_followed_by_a_pan_is_a_flight():
+def _track_of(ts, u, v, us=None, vs=None):
+    return _Track.of([(k, float(t), _cand(u[k], v[k], None if us is None else us[k], None if vs is None else vs[k]))
+                      for k, t in enumerate(ts)], confirmed=True)
+
+
+def test_a_ball_followed_by_a_pan_is_plausible():
     # in the image it moves at a tenth of its speed through the scene: slower than the tracker's floor
     # (a tenth of the view's diagonal a second), which is meant for things that stay in place
     ts, u, v, us, vs = _followed_lob()
-    image_speed = np.median(np.hypot(np.diff(u), np.diff(v)) / np.diff(ts))
-    assert image_speed < 0.1 * math.hypot(W, H) < np.median(np.hypot(np.diff(us), np.diff(vs)) / np.diff(ts))
+    floor = 0.1 * math.hypot(W, H)
+    assert np.median(np.hypot(np.diff(u), np.diff(v)) / np.diff(ts)) < floor
+    assert np.median(np.hypot(np.diff(us), np.diff(vs)) / np.diff(ts)) > floor
     trk = Tracker(W, H, ball_radius_m=R_BALL)
-    for k, t in enumerate(ts):
-        trk.update(k, float(t), [_cand(u[k], v[k], us[k], vs[k])])
-    flights = trk.finish()
-    assert len(flights) == 1 and len(flights[0].t) >= 0.9 * len(ts), [len(f.t) for f in flights]
+    assert trk._plausible(_track_of(ts, u, v, us, vs))
     # the same image motion with the view standing still (no scene positions): a slow thing, not a flight
-    trk = Tracker(W, H, ball_radius_m=R_BALL)
-    for k, t in enumerate(ts):
-        trk.update(k, float(t), [_cand(u[k], v[k])])
-    assert trk.finish() == []
+    assert not trk._plausible(_track_of(ts, u, v))
 
 
 def test_a_thing_in_place_in_the_scene_stays_no_flight_under_a_pan():
@@ -94,33 +94,59 @@ def test_a_repeat_is_known_by_the_ball_found_where_it_was():
     assert not stayed_put([slow], t_next, [slow.points[-1][2]])
 
 
+def _scored(shot, tmp_path):
+    """(recall, precision) of track_clip on the rendered shot against the renderer's own ball centre in the
+    frame each observation was made in (Source: tests/scene_outside.py's truth rows)."""
+    pytest.importorskip("av")
+    from scene_outside import render_shot
+
+    from balltraj.vision.pipeline import track_clip
+    path = tmp_path / "clip.mp4"
+    truth = render_shot(shot, path)
+    res = track_clip(path, None, shot.ball.radius_m)
+    hit, good, n = set(), 0, 0
+    for f in res.flights:
+        for k, (u, v) in zip(f.frame, f.uv):
+            row = truth[int(k)]
+            n += 1
+            if row["visible"] and not row["repeat"] and math.hypot(u - row["u"], v - row["v"]) <= max(2.0, 0.5 * row["r"]):
+                good += 1
+                hit.add(row["exposure"])
+    visible = {r["exposure"] for r in truth if r["visible"]}
+    return len(hit & visible) / len(visible), good / max(n, 1)
+
+
+LINES = (((-30, 20), (30, 20)), ((0, 8), (0, 40)), ((-30, 35), (30, 35)))
+
+
+@pytest.mark.slow
+def test_a_lob_followed_by_a_hand_held_pan_is_tracked(tmp_path):
+    # the benchmark's high lob against the sky (second rendering): the view pans after the ball, which then
+    # hovers in the image -- over its whole track it reached too little in the image for the speed floor,
+    # and was given up although every point was on the ball
+    from scene_outside import FOOTBALL, Lens, Person, Shot, Style
+    shot = Shot(Lens((1280, 720), 1000, (0, 0, 1.5), pitch=14, k1=-0.06), FOOTBALL, (-11.0, 22.0, 0.11),
+                (9.5, -1.0, 13.0), 0.3, 2.9, 30, 30, shutter=1 / 1000, readout=0.03,
+                style=Style("grass", "trees", 60.0, LINES), shake_px=1.5, follow=0.8, follow_lag=0.3,
+                roll_deg=0.3, people=(Person(-11.4, 22.0, 0, 0, cadence=0, stride=0, kicks=(0.3,)),),
+                bitrate=3_000_000, seed=104)
+    recall, precision = _scored(shot, tmp_path)
+    # (measured: recall 0.95, precision 1.00; before: no flight)
+    assert recall >= 0.8 and precision >= 0.9, (recall, precision)
+
+
 @pytest.mark.slow
 def test_twelve_images_a_second_shown_unevenly_are_tracked(tmp_path):
     # the benchmark's kick-up on a field (second rendering): 12 images a second shown 1-4 times each at
     # 29.97 frames/s, H.264 at 900 kbit/s; before, a third of the re-coded repeats passed as exposures
     # (their mean difference over half of two exposures', or an intra-coded repeat's as large), the
     # ball's track folded back at each and was given up: no flight
-    pytest.importorskip("av")
-    from scene_outside import FOOTBALL, Lens, Person, Shot, Style, render_shot
-    lines = (((-30, 20), (30, 20)), ((0, 8), (0, 40)), ((-30, 35), (30, 35)))
+    from scene_outside import FOOTBALL, Lens, Person, Shot, Style
     shot = Shot(Lens((640, 360), 520, (0, -1.0, 1.2), pitch=8, k1=-0.06), FOOTBALL, (-3.0, 9.0, 0.11),
                 (5.0, 0.3, 9.0), 0.2, 2.2, 12, 30000 / 1001, shutter=1 / 250, readout=0.03, uneven=0.35,
-                style=Style("grass", "trees", 35.0, lines), shake_px=0.6,
+                style=Style("grass", "trees", 35.0, LINES), shake_px=0.6,
                 people=(Person(-3.3, 9.0, 0, 0, cadence=0, stride=0, kicks=(0.2,), shirt=(0.1, 0.5, 0.5)),
                         Person(2.0, 12.0, -1.4, 0, shirt=(0.7, 0.7, 0.2))), bitrate=900_000, seed=109)
-    path = tmp_path / "uneven.mp4"
-    truth = render_shot(shot, path)
-    from balltraj.vision.pipeline import track_clip
-    res = track_clip(path, None, FOOTBALL.radius_m)
-    hit, good, n = set(), 0, 0
-    for f in res.flights:
-        for k, (u, v) in zip(f.frame, f.uv):
-            row = truth[int(k)]  # Source: the renderer's ball centre in the frame the observation was made in
-            n += 1
-            if row["visible"] and not row["repeat"] and math.hypot(u - row["u"], v - row["v"]) <= max(2.0, 0.5 * row["r"]):
-                good += 1
-                hit.add(row["exposure"])
-    visible = {r["exposure"] for r in truth if r["visible"]}
-    recall, precision = len(hit & visible) / len(visible), good / max(n, 1)
+    recall, precision = _scored(shot, tmp_path)
     # (measured: recall 0.71, precision 0.94; before: no flight)
     assert recall >= 0.5 and precision >= 0.85, (recall, precision)
