@@ -17,7 +17,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consistent, _scene_travel, _speed_consistent,
-                     _streak_consistent, downward_acceleration, scene_uv, sideways_motion, smooth_enough, world_speed)
+                     _streak_consistent, downward_acceleration, scene_uv, sideways_motion, smooth_enough,
+                     streak_across_motion, world_speed)
 from .detect import Candidate, lens_magnification
 from .streak import Expected
 from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_release, trim_strays
@@ -274,7 +275,8 @@ class Tracker:
         return smooth_enough(both) and self._looks_like_ball(both)
 
     def _looks_like_ball(self, tr: _Track) -> bool:
-        if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)):
+        if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)) \
+                or streak_across_motion(tr):
             return False
         if self.focal_px and self.ball_radius_m:
             # too fast by its typical speed; too slow only if never fast: a ball juggled or thrown

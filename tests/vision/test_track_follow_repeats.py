@@ -150,3 +150,32 @@ def test_twelve_images_a_second_shown_unevenly_are_tracked(tmp_path):
     recall, precision = _scored(shot, tmp_path)
     # (measured: recall 0.71, precision 0.94; before: no flight)
     assert recall >= 0.5 and precision >= 0.85, (recall, precision)
+
+
+def test_a_streak_across_the_motion_is_not_a_ball():
+    # a ball's blur streak lies along its path (it is the motion during the exposure); a limb or a torso's
+    # edge carried sideways by a walking person is long across it. Geometry written here: a path along +u
+    # with a gentle fall, streaks of 3 radii either along the local direction or upright.
+    from balltraj.vision.checks import streak_across_motion
+    ts = np.arange(12) / 25.0
+    u, v = 100.0 + 150.0 * ts, 200.0 + 0.5 * 300.0 * ts ** 2
+    r = 4.0
+
+    def track(angle_of):
+        pts = []
+        for k, t in enumerate(ts):
+            a = angle_of(k)
+            pts.append((k, float(t), Candidate(float(u[k]), float(v[k]), r, 3 * r, a, math.pi * r * r, 80.0)))
+        return _Track.of(pts)
+
+    along = track(lambda k: math.atan2(300.0 * ts[k], 150.0))  # Source: d(v)/d(u) of the path above
+    upright = track(lambda k: math.pi / 2)
+    assert not streak_across_motion(along)
+    assert streak_across_motion(upright)
+    # a round blob (no streak to speak of) says nothing about its direction
+    assert not streak_across_motion(_Track.of([(k, t, replace_streak(c, 0.5 * r)) for k, t, c in upright.points]))
+
+
+def replace_streak(c, s):
+    from dataclasses import replace
+    return replace(c, streak_px=s)
