@@ -4,6 +4,7 @@ camera — a plausible speed and a fall near g. Pure functions of a track's poin
 
 from __future__ import annotations
 
+import math
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -140,10 +141,29 @@ def _extent_px(uv: np.ndarray) -> float:
     return float(np.hypot(*np.ptp(uv, axis=0)))
 
 
-def _net_speed(tr: _Track) -> float:
-    """The track's reach (:func:`_extent_px`) over its duration [px/s]."""
-    ts, uv = tr.times(), tr.uv()
-    return _extent_px(uv) / max(ts[-1] - ts[0], 1e-9)
+def _net_speed(tr: _Track, uv: np.ndarray | None = None) -> float:
+    """The track's reach (:func:`_extent_px`) over its duration [px/s]: of its image positions, or of
+    the positions ``uv`` given (its scene positions)."""
+    ts = tr.times()
+    return _extent_px(tr.uv() if uv is None else uv) / max(ts[-1] - ts[0], 1e-9)
+
+
+def scene_uv(tr: _Track) -> np.ndarray | None:
+    """The track's positions in the scene (the view's own motion undone), shape (N, 2) [px]; None
+    where the view did not move (nothing to undo). A point seen before the view first moved has no
+    scene position: its scene position is its image position (leaving such points out took a whole
+    pitch for a track in place when the view began to shake near its end)."""
+    if all(c.u_scene is None for _, _, c in tr.points):
+        return None
+    return np.asarray([(c.u, c.v) if c.u_scene is None else (c.u_scene, c.v_scene) for _, _, c in tr.points], float)
+
+
+def _scene_travel(tr: _Track, finite: bool = False) -> float:
+    """How far [px] the track reached in the scene: the diagonal of the box around its scene positions,
+    so a ball that comes back down where it rose (a juggle, an up-down throw filmed hand-held) still
+    reaches; where the view did not move, inf (or with ``finite`` 0: nothing to undo)."""
+    sc = scene_uv(tr)
+    return (0.0 if finite else np.inf) if sc is None else _extent_px(sc)
 
 
 def _path_smoothness_px(uv: np.ndarray) -> float:
@@ -242,6 +262,30 @@ def _streak_consistent(tr: _Track, ratio: float = 2.0) -> bool:
     loc = running_median(s)
     q = (s + pad) / (loc + pad)
     return int(np.count_nonzero((q > ratio) | (q < 1.0 / ratio))) <= n // 8
+
+
+def streak_across_motion(tr: _Track) -> bool:
+    """Do most of the track's points have a streak that does not lie along its motion? A ball's blur
+    streak is its motion during the exposure, so its long axis follows the path (to within the axis's
+    own uncertainty, about atan(r / L) for a streak of length L and radius r, plus 15 degrees for the
+    path's direction from its neighbours); a limb, a torso's edge or a pole carried sideways is long
+    across the way it moves, or at any angle. Points count when clearly elongated (a streak of 1.5 radii
+    and 3 px at least: a shaded ball's matte reads as a streak of up to a radius with no motion); True
+    when over half of all points are elongated across the motion."""
+    uv = tr.uv()
+    n = len(uv)
+    if n < 5:
+        return False
+    across = 0
+    for i, (_, _, c) in enumerate(tr.points):
+        if c.streak_px < max(1.5 * c.radius_px, 3.0):
+            continue
+        d = uv[min(n - 1, i + 1)] - uv[max(0, i - 1)]
+        if not d.any():
+            continue
+        off = abs((c.angle_rad - math.atan2(d[1], d[0]) + math.pi / 2) % math.pi - math.pi / 2)
+        across += off > math.radians(15.0) + math.atan2(c.radius_px, c.streak_px)
+    return across > n / 2
 
 
 def sideways_motion(tr: _Track, ball_radius_m: float, centre_px) -> tuple[float, float, float] | None:

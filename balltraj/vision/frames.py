@@ -46,6 +46,10 @@ class FrameKind:
     kind: str  # "new", "repeat" or "cut"
     motion: np.ndarray  # (2, 3) affine map, half-resolution pixels of the last exposure -> this frame
     moved_px: float  # how far the view centre moved since the last exposure [full-resolution px]
+    # a new frame in which nothing differs from the last exposure beyond coding noise (the tail test
+    # below) although its mean difference is not small: a repeat re-coded at a low bitrate or as a key
+    # frame, or an exposure in which little moved; the tracks tell which (trackpoints.stayed_put)
+    doubtful: bool = False
 
 
 def _tail_level(d: np.ndarray) -> float:
@@ -108,6 +112,7 @@ class FrameGuard:
             if cv2.countNonZero(big) > self.cut_share * small.size:
                 self._reset(small)
                 return FrameKind("cut", IDENTITY, 0.0)
+        doubtful = typical is not None and mean < 2.0 * typical and self._tail_at_noise(tail)
         self._diffs = (self._diffs + [mean])[-31:]
         self._tails = (self._tails + [tail])[-31:]
         A = self._estimate_motion(small) if self.motion else IDENTITY
@@ -118,7 +123,12 @@ class FrameGuard:
         self.total_motion = (np.vstack([A, [0, 0, 1]]) @ T)[:2]
         self.max_moved_px = max(self.max_moved_px,
                                 2.0 * float(np.hypot(*(self.total_motion[:, :2] @ c + self.total_motion[:, 2] - c))))
-        return FrameKind("new", A, moved)
+        return FrameKind("new", A, moved, doubtful)
+
+    def _tail_at_noise(self, tail: float) -> bool:
+        """Nothing in the frame differs from the last exposure beyond coding noise: the tail of the
+        differences under 0.3 of the upper quartile of recent exposures' tails."""
+        return tail < 0.3 * float(np.percentile(self._tails, 75))
 
     def _looks_repeated(self, mean: float, tail: float, typical: float) -> bool:
         """A frame that repeats the last exposure inexactly: far less changed than exposures usually
@@ -131,7 +141,7 @@ class FrameGuard:
         many frames -- tested on tail alone, over half of such a clip's exposures were taken for repeats.)"""
         if mean < self.repeat_fraction * typical:
             return True
-        return mean < 0.5 * typical and tail < 0.3 * float(np.percentile(self._tails, 75))
+        return mean < 0.5 * typical and self._tail_at_noise(tail)
 
     def _reset(self, small):
         self._prev_small = small

@@ -17,6 +17,7 @@ from .extend import extend_flights
 from .frames import FrameGuard, full_resolution
 from .overlay import write_overlay
 from .track import TrackedFlight, Tracker
+from .trackpoints import stayed_put
 
 
 @dataclass(frozen=True)
@@ -119,6 +120,16 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             t = exposure_time(shown)
         det.set_view(motion if moved_px > 0 else None)
         cands = det.process(None, (gray, small), trk.expected(t) if det.streaks == "tracked" else None)
+        if kind.doubtful and _converted(seg_repeats[-1], seg_frames[-1]) and stayed_put(trk.active, t, cands):
+            # a re-coded repeat that the frame guard could not tell from an exposure, in a scene whose
+            # repeats so far are a frame-rate conversion's: the moving tracks found their candidates
+            # where they were
+            shown.pop()
+            own_t.pop()
+            n_repeat += 1
+            repeats_here += 1
+            seg_repeats[-1].append(seg_frames[-1] - 1)
+            continue
         if moved_px > 0 and cands:
             cands = _in_scene(cands, motion)
         trk.update(len(frame_of), t, cands)

@@ -16,24 +16,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consistent, _speed_consistent, _streak_consistent,
-                     downward_acceleration, sideways_motion, smooth_enough, world_speed)
+from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consistent, _scene_travel, _speed_consistent,
+                     _streak_consistent, downward_acceleration, scene_uv, sideways_motion, smooth_enough,
+                     streak_across_motion, world_speed)
 from .detect import Candidate, lens_magnification
 from .streak import Expected
 from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_release, trim_strays
-
-
-def _scene_travel(tr: _Track) -> float:
-    """How far [px] the track reached in the scene (the view's own motion undone): the diagonal of the
-    box around its scene positions, so a ball that comes back down where it rose (a juggle, an up-down
-    throw filmed hand-held) still reaches; inf where the view did not move (nothing to undo)."""
-    if all(c.u_scene is None for _, _, c in tr.points):
-        return np.inf
-    # a point without a scene position was seen before the view first moved: its scene position is its
-    # image position (leaving such points out took a whole pitch for a track in place when the view
-    # began to shake near its end)
-    pts = [(c.u, c.v) if c.u_scene is None else (c.u_scene, c.v_scene) for _, _, c in tr.points]
-    return _extent_px(np.asarray(pts, float))
 
 
 @dataclass(frozen=True)
@@ -287,7 +275,8 @@ class Tracker:
         return smooth_enough(both) and self._looks_like_ball(both)
 
     def _looks_like_ball(self, tr: _Track) -> bool:
-        if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)):
+        if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)) \
+                or streak_across_motion(tr):
             return False
         if self.focal_px and self.ball_radius_m:
             # too fast by its typical speed; too slow only if never fast: a ball juggled or thrown
@@ -311,8 +300,14 @@ class Tracker:
         return True
 
     def _plausible(self, tr: _Track) -> bool:
-        # both the net motion and the typical step: a jump onto a parked blob is not a flight
-        return _net_speed(tr) >= self.min_speed and tr.speed_px_per_s() >= self.min_speed
+        # both the net motion and the typical step: a jump onto a parked blob is not a flight; in the
+        # image or in the scene (a view panned after the ball holds it nearly still in the image)
+        if _net_speed(tr) >= self.min_speed and tr.speed_px_per_s() >= self.min_speed:
+            return True
+        sc = scene_uv(tr)
+        return sc is not None and _net_speed(tr, sc) >= self.min_speed and \
+            float(np.median(np.linalg.norm(np.diff(sc, axis=0), axis=1) / np.maximum(np.diff(tr.times()), 1e-9))) \
+            >= self.min_speed
 
     def end_all(self, reason: str) -> None:
         """End every track now (a scene cut): nothing continues across it."""
@@ -404,8 +399,9 @@ class Tracker:
             min_points = self.min_points if dt < 1 / 40 else max(5, self.min_points - 2)  # 25-30 frames/s
             if not tr.confirmed or len(tr.points) < min_points:
                 continue
-            uv = tr.uv()
-            if _extent_px(uv) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr) < self.min_speed:
+            sc = scene_uv(tr)  # far and fast enough in the image, or in the scene (a view panned after the ball)
+            if all(_extent_px(p) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr, p) < self.min_speed
+                   for p in ([tr.uv()] if sc is None else [tr.uv(), sc])):
                 continue
             if _scene_travel(tr) < 0.05 * np.hypot(self.w, self.h):
                 continue  # moved only with the view (a misregistered edge of a panned view): in place in the scene

@@ -134,6 +134,33 @@ class _Track:
         return self._speed
 
 
+def stayed_put(tracks: list[_Track], t: float, cands) -> bool:
+    """Does a doubtful frame (frames.FrameKind.doubtful) repeat the last exposure, by what the tracks
+    see in it? A confirmed track that moves 3 px or more an interval finds, in a repeat, a candidate
+    where its last point was, of the same size and streak to within the centroid's coding noise
+    (0.3 px; 1 px for the streak); in an exposure it finds one moved towards its prediction. The
+    longest such track that finds either decides (tentative tracks are mostly clutter, whose last
+    point can be a static blob that an exposure shows again in the same place)."""
+    best = None
+    for tr in tracks:
+        if not tr.confirmed or (best is not None and len(tr.points) <= best[0]):
+            continue
+        _, t_last, last = tr.points[-1]
+        step = tr.speed_px_per_s() * (t - t_last)
+        if step < 3.0:
+            continue  # a slow track looks the same in a repeat and in an exposure
+        pred, spread = tr.predict(t)
+        gate = tr.gate(spread, step)
+        near = [c for c in cands if abs(c.u - pred[0]) < gate + step and abs(c.v - pred[1]) < gate + step]
+        if any(abs(c.u - last.u) <= 0.3 and abs(c.v - last.v) <= 0.3 and abs(c.radius_px - last.radius_px) <= 0.3
+               and abs(c.streak_px - last.streak_px) <= 1.0 for c in near):
+            best = (len(tr.points), True)
+        elif any(np.hypot(c.u - pred[0], c.v - pred[1]) < gate and np.hypot(c.u - last.u, c.v - last.v) > 0.25 * step
+                 for c in near):
+            best = (len(tr.points), False)
+    return best is not None and best[1]
+
+
 def trim_strays(tr: _Track) -> _Track:
     """Drop stray points at either end of a track (a track often starts on the thrower's hand or
     ends on clutter before it locks on or after it loses the ball): an end point goes while the

@@ -18,8 +18,8 @@ renderer's camera given as a camera file.
 
 Each shot is rendered twice (seeds 0 and 1: other noise, textures and shake), since single clips scatter.
 
-Run: python tests/benchmarks/bench_track_outside.py [--no-publish] [--preview DIR] [--seeds 0,1,2]
-(--seeds renders other sets of the same shots and does not publish)
+Run: python tests/benchmarks/bench_track_outside.py [--no-publish] [--preview DIR] [--seeds 0,1,2] [--only TEXT]
+(--seeds renders other sets of the same shots, --only runs the shots whose name contains TEXT; neither publishes)
 """
 import sys
 import tempfile
@@ -229,9 +229,12 @@ def run_clip(name, shot, path, prev=None):
 def main():
     seeds = [int(k) for k in sys.argv[sys.argv.index("--seeds") + 1].split(",")] if "--seeds" in sys.argv else [0, 1]
     prev = sys.argv[sys.argv.index("--preview") + 1] if "--preview" in sys.argv else None
+    only = sys.argv[sys.argv.index("--only") + 1] if "--only" in sys.argv else None
     rows, tot, t_start = [], np.zeros(4), time.perf_counter()
     with tempfile.TemporaryDirectory() as d:
         for i, (name, shot) in enumerate(shots()):
+            if only is not None and only not in name:
+                continue
             runs = [run_clip(name, replace(shot, seed=shot.seed + 100 * k), Path(d) / f"outside{i}_{k}.mp4", prev)
                     for k in seeds]
             for r in runs:
@@ -258,7 +261,7 @@ def main():
     lines += rows + [f"| **all clips and renderings** | | | | **{100 * tot[0] / tot[1]:.0f} %** | "
                      f"**{100 * tot[2] / max(tot[3], 1):.0f} %** | | | | | |"]
     print(f"total wall time {time.perf_counter() - t_start:.0f} s", file=sys.stderr)
-    if "--no-publish" in sys.argv or "--seeds" in sys.argv:
+    if "--no-publish" in sys.argv or "--seeds" in sys.argv or only is not None:
         print("\n".join(lines))
     else:
         from _docs import publish
