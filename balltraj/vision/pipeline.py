@@ -10,6 +10,7 @@ import numpy as np
 
 from ..camera.model import Camera
 from ..errors import InputError
+from .checks import _extent_px, _net_speed
 from .ball_size import RadiusRefinement, apply_refinement, refine_flight_radii
 from .clip import clip_info, read_frames
 from .detect import Detector, radius_gate_map
@@ -186,6 +187,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
                         "from the clip itself")
     falls = [_apparent_fall(f, ball_radius_m) for f in flights] if flights else trk.fall_hints
     slow = slow_motion_hint(fps_m, capture_fps, [a for a in falls if a is not None])
+    if not flights and not slow and capture_fps is None:
+        slow = slow_track_hint(trk, fps_m)
     if slow:
         warnings.append(slow)
     elif 0 < fps_m < 90 and capture_fps is None:
@@ -267,10 +270,30 @@ def slow_motion_hint(fps: float, capture_fps, fall_hints) -> str | None:
             f"time-stretched (about {s:.0f}x); give the capture rate with --capture-fps (e.g. --capture-fps {common})")
 
 
+def slow_track_hint(trk: Tracker, fps: float) -> str | None:
+    """A message when no flight was found but a track that looks like a ball in flight (smooth, of a
+    ball's size and blur, crossing a twentieth of the view) was left out only for crossing the view more
+    slowly than a ball: the file may be slow motion stored time-stretched. With the ball's size its
+    apparent fall suggests the capture rate (time stretched by s makes a fall of g look like g / s^2)."""
+    diag = float(np.hypot(trk.w, trk.h))
+    ball = [tr for tr in trk.slow_tracks if _extent_px(tr.uv()) >= 0.05 * diag and _net_speed(tr) > 0.05 * trk.min_speed]
+    if not ball:
+        return None
+    tr = max(ball, key=lambda x: len(x.points))
+    a = trk.apparent_fall(tr)
+    guess = ""
+    if a is not None and 0.05 < a < 9.81 / 1.5:
+        common = min((60, 120, 240, 480, 960), key=lambda c: abs(np.log(c / (fps * np.sqrt(9.81 / a)))))
+        guess = f" (its fall, {a:.1f} m/s^2 instead of about 9.8, suggests --capture-fps {common})"
+    return (f"a track that looks like a ball in flight ({len(tr.points)} frames) crossed the view at "
+            f"{_net_speed(tr):.0f} px/s, slower than a ball in flight ({trk.min_speed:.0f} px/s here): if this is "
+            f"slow motion stored time-stretched, give the capture rate with --capture-fps{guess}")
+
+
 def no_ball_error(path, res: TrackResult) -> InputError:
-    """The error for a clip in which no flight was found, with filming hints."""
+    """The error for a clip in which no flight was found, with what tracking noticed and filming hints."""
     return InputError(f"no ball flight was found in {res.n_frames} frames ({res.fps_measured:.0f} frames/s)",
-                      path=str(path), hint=NO_BALL_HINT)
+                      path=str(path), hint="; ".join(list(res.warnings) + [NO_BALL_HINT]))
 
 
 NO_BALL_HINT = ("film at 120-240 frames/s with a short shutter (1/1000 s or faster), keep the camera still on a "

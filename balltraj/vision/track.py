@@ -58,6 +58,7 @@ class Tracker:
         self.finished: list[_Track] = []
         self.pool: list[tuple[int, float, Candidate]] = []  # unclaimed candidates of recent frames
         self.fall_hints: list[float] = []  # apparent fall [m/s^2] of smooth tracks rejected as flights
+        self.slow_tracks: list[_Track] = []  # smooth ball-like tracks rejected as too slow or short in the image
 
     def update(self, k: int, t: float, cands: list[Candidate]) -> None:
         # every track's gate around its prediction; then pairs are taken best first (locked-on tracks
@@ -393,7 +394,7 @@ class Tracker:
         done = [trim_strays(part) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
         self.active = []
         flights = []
-        self.fall_hints = []
+        self.fall_hints, self.slow_tracks = [], []
         for tr in done:
             dt = float(np.median(np.diff(tr.times()))) if len(tr.points) > 1 else 0.0
             min_points = self.min_points if dt < 1 / 40 else max(5, self.min_points - 2)  # 25-30 frames/s
@@ -402,6 +403,8 @@ class Tracker:
             sc = scene_uv(tr)  # far and fast enough in the image, or in the scene (a view panned after the ball)
             if all(_extent_px(p) < 0.05 * np.hypot(self.w, self.h) or _net_speed(tr, p) < self.min_speed
                    for p in ([tr.uv()] if sc is None else [tr.uv(), sc])):
+                if smooth_enough(tr) and self._looks_like_ball(tr):  # (for the slow-motion message)
+                    self.slow_tracks.append(tr)
                 continue
             if _scene_travel(tr) < 0.05 * np.hypot(self.w, self.h):
                 continue  # moved only with the view (a misregistered edge of a panned view): in place in the scene
