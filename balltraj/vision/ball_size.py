@@ -119,14 +119,18 @@ def _windows(flight, width, height):
     return np.stack([x0, y0, x1, y1], 1), inside
 
 
-def _neighbours(flight, boxes, i, most=NEIGHBOURS, reach=16):
-    """Other frames of the flight whose ball lies wholly outside observation i's patch (nearest in time)."""
+def _neighbours(flight, boxes, i, most=NEIGHBOURS, reach=None):
+    """Other frames of the flight whose ball lies wholly outside observation i's patch, nearest in time first,
+    searched over the whole flight (or ``reach`` frames either side). A ball flying away from the camera (seen
+    from behind) crosses its own diameter in the image only every few tens of frames: a short reach left it no
+    background, and its fit fell back on a plane through a textured ground."""
     uv = np.asarray(flight.uv, float)
     r = np.nan_to_num(np.asarray(flight.radius_px, float), nan=2.0)
     s = np.nan_to_num(np.asarray(flight.streak_px, float), nan=0.0)
     x0, y0, x1, y1 = boxes[i]
     out = []
     n = len(uv)
+    reach = n if reach is None else reach
     for d in sorted(range(-reach, reach + 1), key=abs):
         j = i + d
         if d == 0 or not 0 <= j < n:
