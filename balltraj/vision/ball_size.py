@@ -11,7 +11,8 @@ C is the ball's coverage: a disc of radius r centred at c + s beta (s spread ove
 the motion blur along the flight's image direction) with an error-function edge of width sigma
 (pixel integration, lens and codec blur); n the sphere normal of the orthographic view, so that the
 inside is any smooth (Lambertian-like, linear in the normal) shading; B the background at that
-place, the per-pixel median of nearby frames of the flight in which the ball is elsewhere (when none
+place, the per-pixel median of the frames of the flight nearest in time in which the ball is elsewhere
+(searched over the whole flight: seen from behind it clears its own patch only tens of frames later; when none
 is clear of it, B = 0 and b0 grows a plane b0 + b1 x + b2 y fitted on the patch). The shading and
 background coefficients enter linearly and are solved inside (variable projection, Golub & Pereyra
 1973); centre, radius, blur length, edge width and light direction by robust least squares (scipy,
