@@ -129,19 +129,15 @@ def _neighbours(flight, boxes, i, most=NEIGHBOURS, reach=None):
     r = np.nan_to_num(np.asarray(flight.radius_px, float), nan=2.0)
     s = np.nan_to_num(np.asarray(flight.streak_px, float), nan=0.0)
     x0, y0, x1, y1 = boxes[i]
-    out = []
     n = len(uv)
     reach = n if reach is None else reach
-    for d in sorted(range(-reach, reach + 1), key=abs):
-        j = i + d
-        if d == 0 or not 0 <= j < n:
-            continue
-        e = 1.6 * r[j] + 0.6 * s[j] + 2  # the ball's reach beyond its detected radius (the dim limb)
-        if uv[j, 0] + e < x0 or uv[j, 0] - e > x1 or uv[j, 1] + e < y0 or uv[j, 1] - e > y1:
-            out.append(j)
-            if len(out) == most:
-                break
-    return out
+    e = 1.6 * r + 0.6 * s + 2  # the ball's reach beyond its detected radius (the dim limb)
+    clear = (uv[:, 0] + e < x0) | (uv[:, 0] - e > x1) | (uv[:, 1] + e < y0) | (uv[:, 1] - e > y1)
+    d = np.arange(n) - i
+    clear &= (d != 0) & (np.abs(d) <= reach)
+    j = np.flatnonzero(clear)
+    order = np.lexsort((d[j] > 0, np.abs(d[j])))  # nearest first, the earlier frame of a pair first
+    return [int(k) for k in j[order[:most]]]
 
 
 def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float = 0.0, end_s: float | None = None,
