@@ -161,7 +161,7 @@ def depth_warnings(anchor, radius: dict | None = None) -> list[str]:
     if radius is not None and radius.get("refined", 0) >= 0.5 * max(1, sum(radius.get(k, 0) for k in
                                                                          ("refined", "scaled", "kept"))):
         return ["the depth along the camera's line of sight rests on the ball's apparent size alone (measured from "
-                "its edge): in independently rendered clips tracked end to end the launch speed came out 12-14 % off, "
+                "its edge): in independently rendered clips tracked end to end the launch speed came out 4-12 % off, "
                 "beyond its stated uncertainty in some; film the ball at rest "
                 "before the kick or throw, calibrate the camera on a field template, give --start-near, or add a "
                 "second camera"]

@@ -11,7 +11,8 @@ C is the ball's coverage: a disc of radius r centred at c + s beta (s spread ove
 the motion blur along the flight's image direction) with an error-function edge of width sigma
 (pixel integration, lens and codec blur); n the sphere normal of the orthographic view, so that the
 inside is any smooth (Lambertian-like, linear in the normal) shading; B the background at that
-place, the per-pixel median of nearby frames of the flight in which the ball is elsewhere (when none
+place, the per-pixel median of the frames of the flight nearest in time in which the ball is elsewhere
+(searched over the whole flight: seen from behind it clears its own patch only tens of frames later; when none
 is clear of it, B = 0 and b0 grows a plane b0 + b1 x + b2 y fitted on the patch). The shading and
 background coefficients enter linearly and are solved inside (variable projection, Golub & Pereyra
 1973); centre, radius, blur length, edge width and light direction by robust least squares (scipy,
@@ -119,24 +120,24 @@ def _windows(flight, width, height):
     return np.stack([x0, y0, x1, y1], 1), inside
 
 
-def _neighbours(flight, boxes, i, most=NEIGHBOURS, reach=16):
-    """Other frames of the flight whose ball lies wholly outside observation i's patch (nearest in time)."""
+def _neighbours(flight, boxes, i, most=NEIGHBOURS, reach=None):
+    """Other frames of the flight whose ball lies wholly outside observation i's patch, nearest in time first,
+    searched over the whole flight (or ``reach`` frames either side). A ball flying away from the camera (seen
+    from behind) crosses its own diameter in the image only every few tens of frames: a short reach left it no
+    background, and its fit fell back on a plane through a textured ground."""
     uv = np.asarray(flight.uv, float)
     r = np.nan_to_num(np.asarray(flight.radius_px, float), nan=2.0)
     s = np.nan_to_num(np.asarray(flight.streak_px, float), nan=0.0)
     x0, y0, x1, y1 = boxes[i]
-    out = []
     n = len(uv)
-    for d in sorted(range(-reach, reach + 1), key=abs):
-        j = i + d
-        if d == 0 or not 0 <= j < n:
-            continue
-        e = 1.6 * r[j] + 0.6 * s[j] + 2  # the ball's reach beyond its detected radius (the dim limb)
-        if uv[j, 0] + e < x0 or uv[j, 0] - e > x1 or uv[j, 1] + e < y0 or uv[j, 1] - e > y1:
-            out.append(j)
-            if len(out) == most:
-                break
-    return out
+    reach = n if reach is None else reach
+    e = 1.6 * r + 0.6 * s + 2  # the ball's reach beyond its detected radius (the dim limb)
+    clear = (uv[:, 0] + e < x0) | (uv[:, 0] - e > x1) | (uv[:, 1] + e < y0) | (uv[:, 1] - e > y1)
+    d = np.arange(n) - i
+    clear &= (d != 0) & (np.abs(d) <= reach)
+    j = np.flatnonzero(clear)
+    order = np.lexsort((d[j] > 0, np.abs(d[j])))  # nearest first, the earlier frame of a pair first
+    return [int(k) for k in j[order[:most]]]
 
 
 def refine_flight_radii(path, flights, camera: Camera | None, *, start_s: float = 0.0, end_s: float | None = None,

@@ -281,3 +281,57 @@ def test_shift_check_follows_a_shift_that_changes_along_the_flight():
     assert list(np.flatnonzero(src == DETECTOR)) == [40]
     fill = _local_shift(shift, src == REFINED)
     assert np.allclose(fill[5], [1.2, 1.5], atol=0.15) and np.allclose(fill[55], [-0.8, -1.0], atol=0.15)
+
+
+def _receding_clip(path, n=80, seed=11):
+    """A ball flying away from the camera, drawn here (numpy, 4x4 supersampled disc, Lambertian shading
+    toward a light up-left): its image radius r0 d0 / d(t) shrinks from 9 to 6 px while its centre moves
+    1.1 px a frame (its 40 px patch cleared only some 30 frames later), over a ground textured at the ball's
+    own scale (smoothed noise, 40 grey levels), written losslessly. Returns (centres (n, 2), true radii (n,))."""
+    import cv2
+
+    w, h = 160, 80
+    rng = np.random.default_rng(seed)
+    ground = cv2.GaussianBlur(rng.normal(0, 1, (h, w)).astype(np.float32), (0, 0), 3.0)
+    ground = 90 + 40 * ground / ground.std()
+    t = np.arange(n)
+    r_true = 9.0 / (1 + 0.5 * t / (n - 1))  # depth grows by half over the clip: radius 9 -> 6 px
+    centres = np.stack([30 + 1.1 * t, 40 - 0.05 * t], 1)
+    ss = 4
+    ys, xs = np.mgrid[0:h * ss, 0:w * ss]
+    xs, ys = (xs + 0.5) / ss - 0.5, (ys + 0.5) / ss - 0.5
+    light = np.array([-0.5, -0.5, 0.7]) / np.linalg.norm([-0.5, -0.5, 0.7])
+    out = cv2.VideoWriter(str(path), cv2.VideoWriter_fourcc(*"FFV1"), 240.0, (w, h))
+    for (cu, cv), r in zip(centres, r_true):
+        dx, dy = (xs - cu) / r, (ys - cv) / r
+        inside = dx * dx + dy * dy < 1
+        nz = np.sqrt(np.clip(1 - dx * dx - dy * dy, 0, 1))
+        shade = 60 + 170 * np.clip(light[0] * dx + light[1] * dy + light[2] * nz, 0, 1)
+        ball = np.where(inside, shade, 0).reshape(h, ss, w, ss).mean((1, 3))
+        cover = inside.reshape(h, ss, w, ss).mean((1, 3))
+        img = ground * (1 - cover) + ball + rng.normal(0, 1.5, (h, w))
+        out.write(cv2.cvtColor(np.clip(np.round(img), 0, 255).astype(np.uint8), cv2.COLOR_GRAY2BGR))
+    out.release()
+    return centres, r_true
+
+
+def test_a_slowly_moving_ball_over_textured_ground_gets_a_background_from_its_own_flight(tmp_path):
+    # a ball seen from behind moves less than its patch in a few tens of frames: the background must come
+    # from frames of the flight farther away in time, not from a plane through textured ground.
+    # Truth: the radius and centre the clip was drawn with (_receding_clip, numpy, independent of balltraj)
+    from types import SimpleNamespace
+
+    from balltraj.vision.ball_size import REFINED, refine_flight_radii
+
+    path = tmp_path / "away.avi"
+    centres, r_true = _receding_clip(path)
+    n = len(r_true)
+    cam = look_at_camera("c", np.array([0.0, -5.0, 1.0]), [0.0, 0.0, 1.0], 900, (160, 80))  # no lens distortion
+    flight = SimpleNamespace(t=np.arange(n) / 240.0, frame=np.arange(n), uv=centres + 0.4,
+                             radius_px=0.85 * r_true, streak_px=np.zeros(n))
+    ref = refine_flight_radii(path, [flight], cam)[0]
+    ok = ref.source == REFINED
+    assert ok.mean() >= 0.9
+    err = ref.radius_px[ok] / r_true[ok] - 1
+    # stated tolerance: 2 % median, 5 % in 90 % of the frames (the edge fit on an isolated ball does better)
+    assert abs(np.median(err)) < 0.02 and np.quantile(np.abs(err), 0.9) < 0.05
