@@ -161,14 +161,28 @@ def stayed_put(tracks: list[_Track], t: float, cands) -> bool:
     return best is not None and best[1]
 
 
+def _size_jump_cut(tr: _Track) -> _Track:
+    """A short track (too short to extrapolate its ends) cut where its blob changes size between two
+    points by more than a ball's can (|r1 - r2| > 0.6 max(r1, r2) + 1.5 px: two objects, e.g. a head
+    then specks below it), keeping the longest run; the track itself when there is no such jump."""
+    r = np.array([p[2].radius_px for p in tr.points])
+    jump = np.abs(np.diff(r)) > 0.6 * np.maximum(r[1:], r[:-1]) + 1.5
+    if not jump.any():
+        return tr
+    edges = [0, *(np.flatnonzero(jump) + 1).tolist(), len(r)]
+    a, b = max(zip(edges[:-1], edges[1:]), key=lambda e: e[1] - e[0])
+    return _Track.of(tr.points[a:b], confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)
+
+
 def trim_strays(tr: _Track) -> _Track:
     """Drop stray points at either end of a track (a track often starts on the thrower's hand or
     ends on clutter before it locks on or after it loses the ball): an end point goes while the
     next 8 points, extrapolated by a parabola in time, miss it by more than a few radii, or its
-    apparent radius is far from what theirs extrapolates to (at most a third of the points go)."""
+    apparent radius is far from what theirs extrapolates to (at most a third of the points go). A track
+    under 12 points is only cut at a jump of its size (``_size_jump_cut``)."""
     pts = list(tr.points)
     if len(pts) < 12:
-        return tr
+        return _size_jump_cut(tr)
     r_med = float(np.median([p[2].radius_px for p in pts]))
     limit, removed = len(pts) // 3, 0
 

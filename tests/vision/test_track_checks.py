@@ -14,7 +14,7 @@ from balltraj.vision.checks import (_extent_px, _net_speed, _speed_consistent, _
 from balltraj.vision.detect import Candidate, Detector
 from balltraj.vision.frames import _median
 from balltraj.vision.pipeline import exposure_time
-from balltraj.vision.trackpoints import _Track, cut_at_false_reacquisition
+from balltraj.vision.trackpoints import _Track, cut_at_false_reacquisition, trim_strays
 
 G = 9.81  # m/s^2, standard gravity (common practice)
 F_PX, R_BALL = 1000.0, 0.11  # pinhole focal length [px] and ball radius [m] of the synthetic views
@@ -171,3 +171,19 @@ def test_sorted_medians_equal_numpys(n):
         ref = np.array([np.median(x[max(0, i - 2):i + 3]) for i in range(n)])
         assert np.array_equal(running_median(x), ref)
         assert _median(list(x)) == float(np.median(x))
+
+
+def test_strays_are_trimmed_from_a_short_track():
+    # A walker's head tracked for 7 frames at 120 frames/s (a 10.6 px disc moving sideways in a straight
+    # line), then two points on other things (radii 2 and 1 px, 20-70 px below): before, a track under 12
+    # points kept its ends, and the strays lent it the fall and the points it needed to pass as a flight.
+    def cand(u, v, r):
+        return Candidate(u, v, r, 18.0, 0.0, math.pi * r * r, 60.0)
+
+    head = [(k, k / 120, cand(200 + 1.8 * k, 213.0, 10.6)) for k in range(7)]
+    strays = [(8, 8 / 120, cand(227.7, 234.6, 2.0)), (15, 15 / 120, cand(243.5, 280.9, 1.0))]
+    out = trim_strays(_Track.of(head + strays))
+    assert [p[0] for p in out.points] == list(range(7))
+    # Invariant: a short flight on a parabola (falling at g seen at 100 px/m), radius steady, keeps every point
+    fall = [(k, k / 120, cand(300 + 4.0 * k, 200 - 3.0 * k + 0.5 * 981 * (k / 120) ** 2, 6.0)) for k in range(9)]
+    assert len(trim_strays(_Track.of(fall)).points) == 9
