@@ -97,14 +97,16 @@ class View:
 
 
 def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end_s: float | None = None,
-                   capture_fps: float | None = None, motions=None, segment=None, frame_size=None, held=None):
+                   capture_fps: float | None = None, motions=None, segment=None, frame_size=None, held=None,
+                   decode_missing: bool = True):
     """Flights with observations added where the tracker lost the ball (one more pass over the needed frames).
 
     ``exposures``: the container frame index of every exposure the tracker used, in order; ``times``
     their times [s]; ``motions``, ``segment``: see :class:`View` (None: a fixed view, no cuts);
     ``frame_size`` (width, height): the frames held stay within MEMORY_BYTES (the reach is shortened
     when they would not); ``held``: grey frames already at hand (exposure index -> image; the file is
-    decoded again only for the others needed). Returns (flights, [Extension per flight]).
+    decoded again only for the others needed, unless not ``decode_missing``: the search then stops where a
+    frame is missing). Returns (flights, [Extension per flight]).
     """
     none = [Extension() for _ in flights]
     if not flights or len(exposures) < 8:
@@ -114,7 +116,7 @@ def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end
     times = np.asarray(times, float)
     index = {int(k): i for i, k in enumerate(exposures)}
     spans = [(index[int(f.frame[0])], index[int(f.frame[-1])]) for f in flights]
-    cap = MEMORY_BYTES // max(1, int(np.prod(frame_size))) if frame_size is not None else None
+    cap = MEMORY_BYTES // max(1, int(np.prod(frame_size))) if frame_size is not None and decode_missing else None
     reach, ref_reach = REACH, REF_REACH
     while True:
         need: set[int] = set()
@@ -130,7 +132,7 @@ def extend_flights(path, flights, exposures, times, *, start_s: float = 0.0, end
         return flights, none
     held = held or {}
     frames: dict[int, np.ndarray] = {i: held[i] for i in need if i in held}
-    wanted = {int(exposures[i]): i for i in need if i not in held}
+    wanted = {int(exposures[i]): i for i in need if i not in held} if decode_missing else {}
     if wanted:
         last = max(wanted)
         for k, _, img in read_frames(path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True):

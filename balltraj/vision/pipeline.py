@@ -16,6 +16,7 @@ from .clip import clip_info, read_frames
 from .detect import Detector, radius_gate_map
 from .extend import extend_flights
 from .frames import FrameGuard, full_resolution
+from .hold import FrameHold
 from .overlay import write_overlay
 from .track import TrackedFlight, Tracker
 from .trackpoints import stayed_put
@@ -32,7 +33,7 @@ class TrackResult:
     radii: list[RadiusRefinement] = field(default_factory=list)  # per flight, when the radii were refined
 
 
-EXTEND_HOLD_BYTES = 256 * 2 ** 20  # grey frames kept while tracking for the extension (the rest decoded again)
+EXTEND_HOLD_BYTES = 512 * 2 ** 20  # grey frames kept while tracking for the extension (hold.py; no second decoding)
 
 
 @contextmanager
@@ -66,7 +67,9 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     decoding pass over the flights' frames, reported through ``progress`` as a second run through the
     clip's frames); ``TrackResult.radii`` says which were. ``extend``: each flight is carried on
     where the tracker lost the ball and through the exposures it coasted over (``extend.py``; on the
-    grey frames held while tracking, up to EXTEND_HOLD_BYTES, the rest decoded again).
+    grey frames kept while tracking near confirmed tracks, up to EXTEND_HOLD_BYTES (``hold.py``); the clip
+    is not decoded again, and the search stops where a frame was not kept; with EXTEND_HOLD_BYTES 0
+    nothing is kept and the frames needed are decoded again).
     """
     info = clip_info(path)
     if camera is not None and tuple(camera.image_size) != (info.width, info.height):
@@ -88,8 +91,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
 
     times, frame_of, log = [], [], []
     views, segment = [], []  # per exposure: the view's motion (scene -> image, full resolution), cuts before it
-    held: dict[int, np.ndarray] = {}  # the latest exposures' grey frames, for the extension (no second decoding)
-    hold = EXTEND_HOLD_BYTES // max(1, info.width * info.height) if extend else 0
+    held = FrameHold(EXTEND_HOLD_BYTES if extend else 0, info.width * info.height)  # for the extension
     moved_px = 0.0
     n = n_repeat = 0
     cuts: list[float] = []
@@ -136,10 +138,7 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         trk.update(len(frame_of), t, cands)
         views.append(full_resolution(motion))
         segment.append(len(cuts))
-        if hold:
-            held[len(frame_of)] = gray
-            if len(held) > hold:
-                del held[next(iter(held))]
+        held.add(len(frame_of), gray, live=any(tr.confirmed for tr in trk.active))
         frame_of.append(k)
         times.append(t)
         if overlay_path is not None:
@@ -158,7 +157,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     if extend and flights:  # carried on where the tracker lost the ball (extend.py, a pass over those frames)
         flights, _ = extend_flights(path, flights, frame_of, times, start_s=start_s, end_s=end_s,
                                     capture_fps=capture_fps, motions=views if moved_px > 0 else None,
-                                    segment=segment, frame_size=(info.width, info.height), held=held)
+                                    segment=segment, frame_size=(info.width, info.height), held=held.frames(),
+                                    decode_missing=held.most == 0)
     held.clear()
     radii = []
     if refine_radius and camera is not None and flights:  # hook: the radius from the ball's edge (ball_size.py)
