@@ -150,9 +150,8 @@ def depth_warnings(anchor, radius: dict | None = None) -> list[str]:
     ``radius``: the flight's radius summary (``RadiusRefinement.summary()``), None when the radii were
     not refined. The detector's radius on small, shaded or blurred balls was measured 10-26 % small on
     independently rendered clips, the edge-fit radius (``vision/ball_size.py``) within 5 % on both
-    renderers for balls of 2.5 px radius and more (docs/validation.md, one camera); the fit's radius-scale
-    prior is 2.6 % (the edge fit's measured spread): beyond it the launch speed can be
-    off by tens of per cent with a sigma that does not show it."""
+    renderers for balls of 2.5 px radius and more (docs/validation.md, one camera); the fit's radius-scale prior is 6 %: beyond it the
+    launch speed can be off by tens of per cent with a sigma that does not show it."""
     if anchor.name == "none":
         return ["nothing fixes the depth along the camera's line of sight (no ball at rest, bounce, field template, "
                 "start point or measured ball size): the launch speed and the deflection are rough; film the ball "

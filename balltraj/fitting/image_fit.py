@@ -28,13 +28,7 @@ RADIUS_SIGMA_PX = 0.5  # floor of the apparent-radius noise [px] (common practic
 RADIUS_SIGMA_REL = 0.05  # and 5 % of the radius, per point
 PIXEL_SIGMA_FLOOR = 0.15  # px: centroids are not better than this (compression, blur, shading)
 RADIUS_BIAS_SIGMA_PX = 0.3  # and a common additive bias (edge threshold, blur): prior 0.3 px
-# A common scale error of all measured radii (blur, edge threshold): prior sigma 2.6 %, the root-mean-square
-# scale error of the edge fit's radii (vision/ball_size.py, what tracked flights carry) on 12 clips of
-# independently rendered balls (tests/scene_realism.py; tests/benchmarks/refined_radius_errors.json, made by
-# `bench_single_camera.py detector-radius 4`: -3.9 to -0.9 %). Before: 6 %, a guess, which made the no-anchor
-# sigmas too wide (pooled one-sigma coverage 86-90 % on exact laws) and let the fit move the depth by that
-# much to absorb the drag law's error.
-RADIUS_SCALE_SIGMA = 0.026
+RADIUS_SCALE_SIGMA = 0.06  # a common scale error of all measured radii (blur, edge threshold): prior 6 %
 RADIUS_NOISE_FLOOR_PX = 0.15  # the per-point radius noise, estimated from the fit's radius residuals, is floored here
 _CHI3_MEDIAN, _CHI2_MEDIAN = 1.5382, math.sqrt(2.0 * math.log(2.0))  # medians of 3D / 2D unit-Gaussian norms
 

@@ -11,11 +11,12 @@ import math
 from pathlib import Path
 
 import numpy as np
+import pytest
 from scipy.integrate import solve_ivp
 
 from balltraj.camera.model import look_at_camera
 from balltraj.fitting.flight_fit import FitOptions
-from balltraj.fitting.image_fit import RADIUS_SCALE_SIGMA, fit_flight_image
+from balltraj.fitting.image_fit import fit_flight_image
 from balltraj.physics.air import air_conditions
 from balltraj.physics.balls import get_ball
 from balltraj.physics.flight import FlightModel
@@ -85,16 +86,13 @@ def _measured_scale_sigma() -> float:
     return float(np.sqrt(np.mean(scales ** 2)))
 
 
-def test_radius_scale_prior_is_the_measured_spread():
-    # Source: tests/benchmarks/refined_radius_errors.json (the edge fit on independent scene_realism renders):
-    # the fit's prior on the common radius scale is that measured root-mean-square scale error
-    assert abs(RADIUS_SCALE_SIGMA - _measured_scale_sigma()) < 0.003
-
-
+@pytest.mark.xfail(strict=True, reason="known defect (issue 15): with the 6 % radius-scale prior the no-anchor sigmas "
+                   "are too wide when the radius errors are as measured (90 % of 40 within one sigma); narrowing the "
+                   "prior to the measured 2.6 % gave 72 % here but made the scene_realism rows worse (docs/validation.md)")
 def test_no_anchor_sigmas_cover_the_errors_of_a_measured_radius_scale_spread():
     # Source: the one-sigma interval of a normal error holds 68 % (common practice). 40 values from 20 fits
     # (the speed and depth errors of one fit are nearly one error, so about 20 independent ones): a binomial
-    # 68 % share of 20 lies within 50-85 % with 94 % probability. The 6 % prior before gave 90 % (too wide).
+    # 68 % share of 20 lies within 50-85 % with 94 % probability.
     z = _z_values()
     share = float(np.mean(z <= 1.0))
     assert 0.50 <= share <= 0.85, (share, np.round(z, 2))
