@@ -37,6 +37,14 @@ class TrackedFlight:
     end_reason: str
 
 
+def _skipped_before(tr) -> bool:
+    """Has the track made a step (image distance over time) at least 1.4 times as fast as the steps on
+    both sides of it: an exposure left out between two frames (a kick or a bounce changes the speed
+    and keeps it; a skipped exposure is one fast step between slower ones)?"""
+    st = tr._steps[-12:]
+    return any(b > 1.4 * max(a, c) for a, b, c in zip(st, st[1:], st[2:]))
+
+
 class Tracker:
     def __init__(self, width, height, fps_hint: float = 240.0, *, min_speed_px_s: float | None = None,
                  max_speed_px_s: float | None = None, max_misses: int = 10, min_points: int = 8,
@@ -66,6 +74,7 @@ class Tracker:
         # with a wide gate cannot take the ball from the track that predicts it
         pairs = []
         preds = []
+        late = []  # (track, distances to where it expects the ball an exposure later, gate, step)
         if cands:
             cu = np.fromiter((c.u for c in cands), float, len(cands))
             cv = np.fromiter((c.v for c in cands), float, len(cands))
@@ -80,6 +89,15 @@ class Tracker:
             step = tr.speed_px_per_s() * (t - tr.points[-1][1])
             gate = tr.gate(spread, step)
             d = np.hypot(cu - pred[0], cv - pred[1])
+            if tr.confirmed and tr.misses == 0 and _skipped_before(tr):
+                # an exposure left out between two frames (frame-rate conversion drops exposures;
+                # phones drop frames), seen before in the track: a track that found the ball in the frame
+                # before and nothing in its gate now may take, second, a candidate where it expects the
+                # ball one exposure later (its shortest recent interval on)
+                ts = tr._ts[-8:]
+                dt = min(y - x for x, y in zip(ts, ts[1:]))
+                pred2, spread2 = tr.predict(t + dt)
+                late.append((j, np.hypot(cu - pred2[0], cv - pred2[1]), tr.gate(spread2, step), step))
             # sizes alike, and smeared no longer than the track moves in one interval (the exposure is
             # shorter than the interval): a long streak next to a slow track is a limb or a pole
             ok = (d < gate) & (cr >= 0.33 * last.radius_px - 2) & (cr <= 3 * last.radius_px + 2) \
@@ -102,6 +120,21 @@ class Tracker:
                 tr.confirmed = self._plausible(tr) and _speed_consistent(tr) and smooth_enough(tr)
                 if not tr.confirmed and len(tr.points) >= 2 * self.confirm:
                     tr.ended = "not a flight"
+        # second, a track with nothing in its gate: a candidate where an exposure skipped would put the ball
+        late_pairs = []
+        for j, d_late, gate, step in late:
+            if j in taken_t:
+                continue
+            r0 = self.active[j].points[-1][2].radius_px
+            ok = (d_late < gate) & (cr >= 0.33 * r0 - 2) & (cr <= 3 * r0 + 2) & (cs <= 1.5 * step + 2.0 + cr)
+            late_pairs += [(float(d_late[i]) / gate, j, int(i)) for i in np.flatnonzero(ok) if int(i) not in taken_c]
+        for _, j, i in sorted(late_pairs):
+            if j in taken_t or i in taken_c:
+                continue
+            taken_t.add(j)
+            taken_c.add(i)
+            self.active[j].add(k, t, cands[i])
+            self.active[j].misses = 0
         for j, tr in enumerate(self.active):
             if j in taken_t:
                 continue

@@ -179,3 +179,5 @@ def test_a_streak_across_the_motion_is_not_a_ball():
 def replace_streak(c, s):
     from dataclasses import replace
     return replace(c, streak_px=s)
+
+

@@ -6,7 +6,7 @@ import math
 import cv2
 import numpy as np
 import pytest
-from scene_realism import BASEBALL, TENNIS, Ball, Cam, Shot, render_shot
+from scene_realism import BASEBALL, TENNIS, Ball, Cam, Person, Shot, render_shot
 
 from balltraj.camera.model import look_at_camera
 from balltraj.vision.checks import _radius_consistent
@@ -78,6 +78,24 @@ def test_dark_ball_on_a_bright_sky(tmp_path):
     assert len(res.flights) == 1
     recall, precision = _matches(truth, res)
     assert recall >= 0.85 and precision >= 0.95, (recall, precision, len(sky))
+
+
+def test_a_ball_through_exposures_dropped_by_frame_rate_conversion_is_followed(tmp_path):
+    # 30 exposures a second stored at 24 (every fifth left out: the ball moves two steps between two
+    # frames), behind netting, a slow pan and a person: the benchmark's clip (bench_track_realism.py)
+    path = tmp_path / "drops.mp4"
+    truth = render_shot(Shot(Cam((8.0, -9.0, 1.5), (8.0, 0.0, 2.5), 900, (960, 540)), TENNIS,
+                             [(0.1, (0, 0, 1.2), (13, 0, 7.5), (0, 1, 0))], duration_s=1.8, capture_fps=30,
+                             stored_fps=24, exposure_s=1 / 500, netting=True, drift_px_s=(12.0, 3.0), shake_px=0.4,
+                             people=[Person(600, -35, 300, 500)], seed=6), path)
+    exposure = [r["exposure"] for r in truth]
+    assert set(np.diff(exposure)) == {1, 2}  # Source: the renderer's own record of the exposure shown
+    recall, _ = _matches(truth, track_clip(path, None, TENNIS.radius_m))
+    # (measured 4 December 2026: 0.90; 0.00 before a track that has seen a left-out exposure looked for
+    # the ball one exposure further on -- lost by a hair after a left-out exposure, the ball's candidates
+    # were then taken by tentative tracks of the netting, with this machine's encoder build; 0.90 with
+    # another's)
+    assert recall >= 0.8, recall
 
 
 def test_a_bounce_splits_the_flight_and_a_lift_curved_pitch_does_not(tmp_path):
