@@ -50,6 +50,9 @@ class FrameKind:
     # below) although its mean difference is not small: a repeat re-coded at a low bitrate or as a key
     # frame, or an exposure in which little moved; the tracks tell which (trackpoints.stayed_put)
     doubtful: bool = False
+    # nothing differs beyond coding noise, whatever the mean (below a cut's): a repeat if it comes where
+    # a conversion's fixed cadence puts the next one (pipeline.on_cadence)
+    quiet: bool = False
 
 
 def _tail_level(d: np.ndarray) -> float:
@@ -113,6 +116,9 @@ class FrameGuard:
                 self._reset(small)
                 return FrameKind("cut", IDENTITY, 0.0)
         doubtful = typical is not None and mean < 2.0 * typical and self._tail_at_noise(tail)
+        # (a key frame re-coded from the same exposure spreads coding noise everywhere: its mean can
+        # reach 3 times two exposures' while its tail stays at the noise)
+        quiet = typical is not None and mean < 6.0 * typical and self._tail_at_noise(tail)
         self._diffs = (self._diffs + [mean])[-31:]
         self._tails = (self._tails + [tail])[-31:]
         A = self._estimate_motion(small) if self.motion else IDENTITY
@@ -123,7 +129,7 @@ class FrameGuard:
         self.total_motion = (np.vstack([A, [0, 0, 1]]) @ T)[:2]
         self.max_moved_px = max(self.max_moved_px,
                                 2.0 * float(np.hypot(*(self.total_motion[:, :2] @ c + self.total_motion[:, 2] - c))))
-        return FrameKind("new", A, moved, doubtful)
+        return FrameKind("new", A, moved, doubtful, quiet)
 
     def _tail_at_noise(self, tail: float) -> bool:
         """Nothing in the frame differs from the last exposure beyond coding noise: the tail of the

@@ -123,10 +123,12 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             t = exposure_time(shown)
         det.set_view(motion if moved_px > 0 else None)
         cands = det.process(None, (gray, small), trk.expected(t) if det.streaks == "tracked" else None)
-        if kind.doubtful and _converted(seg_repeats[-1], seg_frames[-1]) and stayed_put(trk.active, t, cands):
+        if (kind.doubtful or kind.quiet) and _converted(seg_repeats[-1], seg_frames[-1]) and (
+                kind.quiet and on_cadence(seg_repeats[-1], seg_frames[-1] - 1)
+                or kind.doubtful and stayed_put(trk.active, t, cands)):
             # a re-coded repeat that the frame guard could not tell from an exposure, in a scene whose
-            # repeats so far are a frame-rate conversion's: the moving tracks found their candidates
-            # where they were
+            # repeats so far are a frame-rate conversion's: it comes where the conversion's fixed
+            # cadence puts the next repeat, or the moving tracks found their candidates where they were
             shown.pop()
             own_t.pop()
             n_repeat += 1
@@ -227,6 +229,21 @@ def _converted(repeats: list[int], n_frames: int) -> bool:
         return False
     edges = [-1] + list(repeats) + [n_frames]
     return max(b - a - 1 for a, b in zip(edges[:-1], edges[1:])) <= MAX_CONVERSION_RUN
+
+
+def on_cadence(repeats: list[int], frame: int) -> bool:
+    """Is ``frame`` where a fixed conversion cadence puts the next repeat? The repeats so far (at
+    least three, the last four looked at) all the same number of frames apart, and ``frame`` that many
+    after the last (23.976 -> 29.97 and 24 -> 30 frames/s repeat every 5th frame, 25 -> 30 every 6th,
+    50 -> 60 every 6th, common practice; 12 -> 29.97 shown unevenly has no fixed cadence).
+
+    >>> on_cadence([1, 6, 11], 16), on_cadence([1, 6, 11], 15), on_cadence([1, 4, 11], 18), on_cadence([1, 6], 11)
+    (True, False, False, False)
+    """
+    if len(repeats) < 3:
+        return False
+    gaps = np.diff(repeats[-4:])
+    return bool(np.all(gaps == gaps[-1]) and frame == repeats[-1] + gaps[-1])
 
 
 def exposure_time(shown: list[float], window: int = 60) -> float:
