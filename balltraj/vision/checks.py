@@ -133,6 +133,43 @@ def downward_acceleration(tr: _Track, camera, ball_radius_m: float, with_sigma: 
     return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
 
 
+def image_fall(tr: _Track, ball_radius_m: float, centre_v: float):
+    """Downward acceleration [m/s^2] of the track seen from a camera of unknown focal length, and its one
+    sigma; None under 6 points. With depth Z = f R / r, a point's height below the optical axis is
+    (v - c_v) Z / f = (v - c_v) R / r, whatever f: so the height is measured in metres from the image row
+    and the apparent radius (1/r fitted by a straight line in time: the depth changes about linearly over
+    a flight's short stretch, and a single radius is noisy), and a parabola through it (refitted without
+    points far off it) gives the fall. About g for a ball in free flight seen by a level camera, from any
+    side (a ball coming towards the camera while it rises shows as rising faster in the image, but not in
+    this height); a tilted view or a pan mixes in a share of the motion along the line of sight. Scene
+    positions are used where the view moved."""
+    if len(tr.points) < 6:
+        return None
+    ts = tr.times()
+    sc = scene_uv(tr)
+    v = (tr.uv() if sc is None else sc)[:, 1]
+    r = np.array([p[2].radius_px for p in tr.points])
+    tt = ts - ts.mean()
+    if float(np.ptp(tt)) <= 0:
+        return None
+    inv = np.polyval(_robust_line(tt, 1.0 / np.maximum(r, 0.3)), tt)
+    y = (v - centre_v) * ball_radius_m * np.maximum(inv, 1e-3)  # [m] below the optical axis
+    keep = np.ones(len(tt), bool)
+    for _ in range(3):
+        c = np.polyfit(tt[keep], y[keep], 2)
+        res = np.abs(y - np.polyval(c, tt))
+        mad = float(np.median(res[keep])) * 1.4826 + 1e-9
+        new = res <= 4.0 * mad
+        if new.sum() < 6 or np.array_equal(new, keep):
+            break
+        keep = new
+    tk = tt[keep]
+    A = np.vander(tk, 3)
+    e = y[keep] - A @ c
+    cov = np.linalg.pinv(A.T @ A) * (float(e @ e) / max(1, len(tk) - 3))
+    return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
+
+
 def _extent_px(uv: np.ndarray) -> float:
     """How far [px] a track reached: the diagonal of its points' bounding box. Its net displacement
     (first to last point) would say nothing of a ball juggled or thrown straight up, which comes

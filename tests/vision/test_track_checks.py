@@ -187,3 +187,26 @@ def test_strays_are_trimmed_from_a_short_track():
     # Invariant: a short flight on a parabola (falling at g seen at 100 px/m), radius steady, keeps every point
     fall = [(k, k / 120, cand(300 + 4.0 * k, 200 - 3.0 * k + 0.5 * 981 * (k / 120) ** 2, 6.0)) for k in range(9)]
     assert len(trim_strays(_Track.of(fall)).points) == 9
+
+
+def test_the_fall_without_a_focal_length_is_g_from_any_side_and_a_riser_is_no_ball():
+    from balltraj.vision.checks import image_fall
+    from balltraj.vision.track import Tracker
+    ts = np.arange(30) / 60.0
+    # a ball thrown towards a level camera while it rises: 20 m/s closer and 6 m/s up (image y grows
+    # downward, so up is -Y): in the image it climbs ever faster as it nears, yet its height falls at g
+    Z = 14.0 - 20.0 * ts
+    Y = 0.5 - 6.0 * ts + 0.5 * G * ts ** 2
+    X = 1.0 + 0.5 * ts
+    tr = _track(ts, X, Y, Z)
+    v = np.array([p[2].v for p in tr.points])
+    assert 2.0 * np.polyfit(ts, v, 2)[0] < 0  # the image's own acceleration is upward
+    a, s = image_fall(tr, R_BALL, CENTRE[1])
+    # Source: the drag-free parabola above (g, common practice); the height (v - c) R / r is exact for a
+    # pinhole, so only the fitted straight line in 1/r (exact here: Z linear in t) stands between them
+    assert a == pytest.approx(G, rel=0.02) and s < 0.5
+    # the same motion rising at g instead (a person getting up, a shadow climbing the court): not a ball
+    riser = _track(ts, X, 0.5 - 6.0 * ts - 0.5 * G * ts ** 2, Z)
+    assert image_fall(riser, R_BALL, CENTRE[1])[0] == pytest.approx(-G, rel=0.02)
+    trk = Tracker(1280, 720, ball_radius_m=R_BALL)
+    assert trk._looks_like_ball(tr) and not trk._looks_like_ball(riser)
