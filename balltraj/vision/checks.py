@@ -143,15 +143,13 @@ def image_fall(tr: _Track, ball_radius_m: float, centre_v: float):
     side (a ball coming towards the camera while it rises shows as rising faster in the image, but not in
     this height); a tilted view or a pan mixes in a share of the motion along the line of sight. Scene
     positions are used where the view moved."""
-    if len(tr.points) < 6:
-        return None
     ts = tr.times()
+    if len(ts) < 6 or ts[-1] - ts[0] < 0.2 or len(np.unique(ts)) < 6:
+        return None  # (as downward_acceleration: over a shorter span the fall is told only roughly)
     sc = scene_uv(tr)
     v = (tr.uv() if sc is None else sc)[:, 1]
     r = np.array([p[2].radius_px for p in tr.points])
     tt = ts - ts.mean()
-    if float(np.ptp(tt)) <= 0:
-        return None
     inv = np.polyval(_robust_line(tt, 1.0 / np.maximum(r, 0.3)), tt)
     y = (v - centre_v) * ball_radius_m * np.maximum(inv, 1e-3)  # [m] below the optical axis
     keep = np.ones(len(tt), bool)
@@ -163,6 +161,7 @@ def image_fall(tr: _Track, ball_radius_m: float, centre_v: float):
         if new.sum() < 6 or np.array_equal(new, keep):
             break
         keep = new
+    c = np.polyfit(tt[keep], y[keep], 2)  # the parabola of the points kept (their sigma below)
     tk = tt[keep]
     A = np.vander(tk, 3)
     e = y[keep] - A @ c

@@ -38,8 +38,11 @@ class TrackedFlight:
     end_reason: str
 
 
-# most upward acceleration [m/s^2] a ball in flight shows (half of g: extreme backspin lifts a fast ball
-# by up to about g in all, less its weight; a tilted or rolled hand-held view mixes in a share of drag)
+# most upward acceleration [m/s^2] taken for a ball in flight, beyond two sigmas: half of g, i.e. lift
+# of 1.5 times the ball's weight (common practice: a hard-hit ball with strong backspin flies level or
+# sinks slowly). The largest lift coefficients published for some balls exceed it at speeds that occur:
+# a table-tennis ball from about 9 m/s, a volleyball from 20, a football from 24, a tennis ball from 28
+# (balls.py's lift envelopes) -- such a flight, seen without a camera file, is not found
 RISE_MAX = 0.5 * 9.81
 
 
@@ -98,8 +101,10 @@ class Tracker:
             if tr.confirmed and tr.misses == 0 and _skipped_before(tr):
                 # an exposure left out between two frames (frame-rate conversion drops exposures;
                 # phones drop frames), seen before in the track: a track that found the ball in the frame
-                # before and nothing in its gate now may take, second, a candidate where it expects the
-                # ball one exposure later (its shortest recent interval on)
+                # before and took nothing in its gate now (nothing there, or another track took it) may
+                # take, after every other track, a candidate where it expects the ball one exposure later
+                # (its shortest recent interval on; ranked before the tentative tracks instead, it gave
+                # false flights on the first renderer's kick from behind and the juggled football)
                 ts = tr._ts[-8:]
                 dt = min(y - x for x, y in zip(ts, ts[1:]))
                 pred2, spread2 = tr.predict(t + dt)
@@ -281,9 +286,10 @@ class Tracker:
             if a_z is not None and not (-1.0 + 2 * s_a > a_z > -30.0 - 2 * s_a):
                 return False  # nothing in free flight keeps its height like that: a person, a flag
         elif self.ball_radius_m:
-            fall = image_fall(tr, self.ball_radius_m, self.h / 2.0)
+            # (judged on the flight after release: a hand lifting the ball before it lets go accelerates upward)
+            fall = image_fall(trim_release(tr, self.min_points), self.ball_radius_m, self.h / 2.0)
             if fall is not None and fall[0] < -RISE_MAX - 2.0 * fall[1]:
-                return False  # rising faster than lift can carry a ball (a person getting up, a shadow)
+                return False  # rising faster than a ball in flight does (a person getting up, a shadow)
         return True
 
     def _plausible(self, tr: _Track) -> bool:

@@ -181,3 +181,28 @@ def replace_streak(c, s):
     return replace(c, streak_px=s)
 
 
+def test_a_confirmed_track_takes_the_ball_one_exposure_on_after_a_left_out_exposure():
+    # a ball across the view at 24 frames/s whose track has already seen one exposure left out (one
+    # step twice as long as those beside it); in the next frame another exposure is left out: the
+    # ball is two steps on, beyond the track's window, and nothing else is near (Source: the arithmetic
+    # of a rate conversion by dropping frames, common practice)
+    fps = 24.0
+    steps = [1, 1, 2, 1, 1, 1, 1, 1]  # exposures advanced per frame
+    e = np.concatenate([[0], np.cumsum(steps)])
+    u, v = 200.0 + 40.0 * e, 300.0 + 0.0 * e
+    trk = Tracker(W, H, fps_hint=fps)
+    for j in range(len(e)):
+        trk.update(j, j / fps, [_cand(u[j], v[j], r=3.3)])
+    (tr,) = [t for t in trk.active if t.confirmed]
+    n = len(tr.points)
+    j = len(e)
+    far = 200.0 + 40.0 * (e[-1] + 2)  # two exposures on
+    trk.update(j, j / fps, [_cand(far, 300.0, r=3.3)])
+    assert tr in trk.active and len(tr.points) == n + 1 and tr.points[-1][2].u == far and tr.misses == 0
+    # a track that has never skipped an exposure does not look there
+    trk2 = Tracker(W, H, fps_hint=fps)
+    for j in range(8):
+        trk2.update(j, j / fps, [_cand(200.0 + 40.0 * j, 300.0, r=3.3)])
+    (tr2,) = [t for t in trk2.active if t.confirmed]
+    trk2.update(8, 8 / fps, [_cand(200.0 + 40.0 * 9, 300.0, r=3.3)])
+    assert tr2.points[-1][0] == 7 and tr2.misses == 1
