@@ -13,7 +13,10 @@ per-component axis sigma: the radius of a 2-D Gaussian, a Rayleigh law).
 Run: python tests/benchmarks/bench_surface_spin.py          (about 6 minutes, two worker processes)
 One row while iterating (prints each clip, writes nothing):
      python tests/benchmarks/bench_surface_spin.py --row "radius 30 px" [--seeds 0,3]
+The same with fresh draws of the sensor noise (the spread a row's worst clip has over other noise):
+     python tests/benchmarks/bench_surface_spin.py --row "crf 18" --redraws 6
 """
+import dataclasses
 import math
 import multiprocessing
 import os
@@ -28,14 +31,17 @@ import numpy as np  # noqa: E402
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from _docs import publish  # noqa: E402
-from surface_render import SpinScene, render_spin_clip  # noqa: E402
+from surface_render import SpinScene, _h264_round_trip, render_spin_clip  # noqa: E402
 
 from balltraj.vision.surface_spin import RPM_PER_RADPS, estimate_surface_spin  # noqa: E402
 
 SPEED_RADII_PER_S = 35.0 / 0.0366  # a baseball-sized ball at 35 m/s, in radii per second
 
 
-def run_case(fps=240.0, radius=14.0, exposure=1 / 8000, noise=2.0, crf=None, texture="seams", seeds=(0, 1)):
+def run_case(fps=240.0, radius=14.0, exposure=1 / 8000, noise=2.0, crf=None, texture="seams", seeds=(0, 1),
+             redraw=None):
+    """``redraw``: instead of the renderer's own noise, a fresh draw (seeded by ``redraw``) of the same
+    sensor noise added to the clip rendered without noise, then the same 8-bit rounding and H.264 round trip."""
     out = []
     for seed in seeds:
         rng = np.random.default_rng(100 + seed)
@@ -52,7 +58,14 @@ def run_case(fps=240.0, radius=14.0, exposure=1 / 8000, noise=2.0, crf=None, tex
         sc = SpinScene(radius_px=radius, image_size=(w, h), fps=fps, n_frames=n, exposure_s=exposure,
                        spin=tuple(spin), start_px=(2.2 * radius + 3, h / 2), velocity_pxps=(v, 0.6 * radius * fps / n),
                        texture=texture, noise=noise, subframes=sub, supersample=2, h264_crf=crf, seed=seed)
-        frames, truth = render_spin_clip(sc)
+        if redraw is None:
+            frames, truth = render_spin_clip(sc)
+        else:
+            frames, truth = render_spin_clip(dataclasses.replace(sc, noise=0.0, h264_crf=None))
+            z = np.random.default_rng(1000 + redraw).normal(0, noise, frames.shape)
+            frames = np.clip(np.round(frames + z), 0, 255).astype(np.uint8)
+            if crf is not None:
+                frames = _h264_round_trip(frames, crf, fps)
         t0 = time.perf_counter()
         res = estimate_surface_spin(list(frames), truth["t"], exposure_s=exposure)
         dt = time.perf_counter() - t0
@@ -154,12 +167,34 @@ def main():
     publish("surface-spin", lines)
 
 
-def main_row(label, seeds=None):
-    """One row of the table, clip by clip (for iterating; nothing written)."""
+def main_row(label, seeds=None, redraws=0):
+    """One row of the table, clip by clip (for iterating; nothing written). With ``redraws`` > 0 each clip
+    is read again with that many fresh draws of its sensor noise, and the spread over the draws is printed:
+    what a row's worst clip would have been with other noise."""
     found = [c for c in _cases() if f"{c[0]} {c[1]}" == label or c[1] == label]
     if not found:
         raise SystemExit(f"no row {label!r}; rows: " + ", ".join(c[1] for c in _cases()))
     _, _, kw, row_seeds = found[0]
+    if redraws:
+        every = []
+        for seed in seeds if seeds is not None else row_seeds:
+            errs = []
+            for r in range(redraws):
+                row = run_case(**kw, seeds=(seed,), redraw=r)[0]
+                if row["read"]:
+                    errs.append(row["rate"])
+                    every.append(row)
+                print(f"{label} seed {seed} draw {r}: " + (f"rate {row['rate']:+.2f} % (sigma {row['sigma']:.2f} %)"
+                                                          if row["read"] else f"not read: {row['reason']}"), flush=True)
+            if errs:
+                print(f"{label} seed {seed}: mean {np.mean(errs):+.2f} %, sd {np.std(errs, ddof=1) if len(errs) > 1 else 0:.2f} %"
+                      f" over {len(errs)} of {redraws} draws", flush=True)
+        if every:
+            e = np.array([r["rate"] for r in every])
+            print(f"{label}, all draws: {len(e)} read, mean {e.mean():+.2f} %, rms {math.sqrt(float((e ** 2).mean())):.2f} %, "
+                  f"worst {e[np.argmax(np.abs(e))]:+.2f} %, beyond 3 %: {int((np.abs(e) > 3).sum())}, within 1 sigma: "
+                  f"{100 * np.mean([r['z'] <= 1 for r in every]):.0f} %", flush=True)
+        return
     for seed in seeds if seeds is not None else row_seeds:
         r = run_case(**kw, seeds=(seed,))[0]
         if r["read"]:
@@ -176,6 +211,7 @@ if __name__ == "__main__":
         _init()
         main_row(sys.argv[sys.argv.index("--row") + 1],
                  [int(k) for k in sys.argv[sys.argv.index("--seeds") + 1].split(",")] if "--seeds" in sys.argv
-                 else None)
+                 else None,
+                 int(sys.argv[sys.argv.index("--redraws") + 1]) if "--redraws" in sys.argv else 0)
     else:
         main()
