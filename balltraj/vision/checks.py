@@ -112,24 +112,36 @@ def downward_acceleration(tr: _Track, camera, ball_radius_m: float, with_sigma: 
     origin, rays = camera.rays(uv)
     xyz = origin + rays * (np.maximum(depth, 0.3) / (rays @ camera.R[2]))[:, None]
     # a parabola in time, refitted without the points far off it (a tail that strayed onto a person)
-    keep = np.ones(len(tt), bool)
-    for _ in range(3):
-        c = np.polyfit(tt[keep], xyz[keep, 2], 2)
-        res = np.abs(xyz[:, 2] - np.polyval(c, tt))
-        mad = float(np.median(res[keep])) * 1.4826 + 1e-6
-        new = res <= 4.0 * mad
-        if new.sum() < 8 or np.array_equal(new, keep):
-            break
-        keep = new
+    c, keep = _clipped_parabola(tt, xyz[:, 2], 8, 1e-6)
     if not with_sigma:
         return float(2.0 * c[0])
     # one sigma from the scatter about the parabola: a short track of a tiny ball (its depth from a
     # radius of a pixel or two) tells the fall only roughly
-    tk = tt[keep]
+    return _curvature_and_sigma(tt[keep], xyz[keep, 2], c)
+
+
+def _clipped_parabola(tt, y, least: int, tiny: float):
+    """A parabola in time through (tt, y), refitted up to three times without the points more than 4
+    robust sigmas off it (``tiny`` added to the spread; stops when under ``least`` points would stay):
+    (coefficients, the points kept)."""
+    keep = np.ones(len(tt), bool)
+    for _ in range(3):
+        c = np.polyfit(tt[keep], y[keep], 2)
+        res = np.abs(y - np.polyval(c, tt))
+        mad = float(np.median(res[keep])) * 1.4826 + tiny
+        new = res <= 4.0 * mad
+        if new.sum() < least or np.array_equal(new, keep):
+            break
+        keep = new
+    return c, keep
+
+
+def _curvature_and_sigma(tk, yk, c):
+    """Twice the parabola ``c``'s leading coefficient (the acceleration) and its one sigma from the
+    scatter of the points (tk, yk) about it."""
     A = np.vander(tk, 3)
-    res = xyz[keep, 2] - A @ c
-    s2 = float(res @ res) / max(1, len(tk) - 3)
-    cov = np.linalg.pinv(A.T @ A) * s2
+    res = yk - A @ c
+    cov = np.linalg.pinv(A.T @ A) * (float(res @ res) / max(1, len(tk) - 3))
     return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
 
 
@@ -152,21 +164,9 @@ def image_fall(tr: _Track, ball_radius_m: float, centre_v: float):
     tt = ts - ts.mean()
     inv = np.polyval(_robust_line(tt, 1.0 / np.maximum(r, 0.3)), tt)
     y = (v - centre_v) * ball_radius_m * np.maximum(inv, 1e-3)  # [m] below the optical axis
-    keep = np.ones(len(tt), bool)
-    for _ in range(3):
-        c = np.polyfit(tt[keep], y[keep], 2)
-        res = np.abs(y - np.polyval(c, tt))
-        mad = float(np.median(res[keep])) * 1.4826 + 1e-9
-        new = res <= 4.0 * mad
-        if new.sum() < 6 or np.array_equal(new, keep):
-            break
-        keep = new
+    _, keep = _clipped_parabola(tt, y, 6, 1e-9)
     c = np.polyfit(tt[keep], y[keep], 2)  # the parabola of the points kept (their sigma below)
-    tk = tt[keep]
-    A = np.vander(tk, 3)
-    e = y[keep] - A @ c
-    cov = np.linalg.pinv(A.T @ A) * (float(e @ e) / max(1, len(tk) - 3))
-    return float(2.0 * c[0]), float(2.0 * np.sqrt(max(cov[0, 0], 0.0)))
+    return _curvature_and_sigma(tt[keep], y[keep], c)
 
 
 def _extent_px(uv: np.ndarray) -> float:

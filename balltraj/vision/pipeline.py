@@ -123,9 +123,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
             t = exposure_time(shown)
         det.set_view(motion if moved_px > 0 else None)
         cands = det.process(None, (gray, small), trk.expected(t) if det.streaks == "tracked" else None)
-        if (kind.doubtful or kind.quiet) and _converted(seg_repeats[-1], seg_frames[-1]) and (
-                kind.quiet and on_cadence(seg_repeats[-1], seg_frames[-1] - 1)
-                or kind.doubtful and stayed_put(trk.active, t, cands)):
+        if kind.quiet and _converted(seg_repeats[-1], seg_frames[-1]) and (  # (every doubtful frame is quiet)
+                on_cadence(seg_repeats[-1], seg_frames[-1] - 1) or kind.doubtful and stayed_put(trk.active, t, cands)):
             # a re-coded repeat that the frame guard could not tell from an exposure, in a scene whose
             # repeats so far are a frame-rate conversion's: it comes where the conversion's fixed
             # cadence puts the next repeat, or the moving tracks found their candidates where they were
