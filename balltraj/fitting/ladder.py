@@ -57,7 +57,8 @@ RUNG_ADDS = {
 }
 TYPICAL = {"log_re_shift": 0.1, "log_drag_scale": 0.1, "drag_re_exponent": 0.1, "drag_spin_slope": 0.1, "lift_exponent": 0.3,
            "spin_decay_rate": 0.05, "wind_x": 1.0, "wind_y": 1.0,
-           "drag_spin_split": 0.1}  # the last is no rung's: the spin-drag nuisance (fitting/nuisance.py)
+           "drag_spin_split": 0.1, "log_lift_scale": 0.1, "lift_tilt": 0.1}
+# (the last three are no rung's: the spin-drag and lift-law nuisances, fitting/nuisance.py)
 RUNG_SOURCES = {
     "catalogue": "the ball's catalogue laws",
     "drag_scale": "fitted drag scale (Nathan 2008; Kagan & Nathan 2014)",
@@ -134,10 +135,21 @@ def batch_model(base: FlightModel, names, values, launch_speed, spin_magnitude) 
                                   "spin_slope": col.get("drag_spin_slope", 0.0) + split,
                                   "re_shift": np.exp(col["log_re_shift"]) if "log_re_shift" in col else 1.0,
                                   "offset": -split * s0}
+    # the lift law's nuisances (fitting/nuisance.py), where not all zero (a zero level and tilt leave the law
+    # as it is, and its name in the record)
+    level = col.get("log_lift_scale")
+    level = None if level is None or not np.any(level != 0) else level
+    tilt = col.get("lift_tilt")
+    tilt = None if tilt is None or not np.any(tilt != 0) else tilt
     if "lift_exponent" in col:
         changes["lift_model"] = "power_about"
         changes["lift_params"] = {"base": base.lift_model, "base_params": dict(base.lift_params),
-                                  "reference_s": s0, "exponent": col["lift_exponent"]}
+                                  "reference_s": s0, "exponent": col["lift_exponent"],
+                                  "log_scale": 0.0 if level is None else level}
+    elif level is not None or tilt is not None:
+        changes["lift_model"] = "tilted"
+        changes["lift_params"] = {"base": base.lift_model, "base_params": dict(base.lift_params), "reference_s": s0,
+                                  "log_scale": 0.0 if level is None else level, "tilt": 0.0 if tilt is None else tilt}
     if "wind_x" in col:
         w = base.wind_mps
         changes["wind_mps"] = (w[0] + col["wind_x"], w[1] + col["wind_y"], w[2] + 0.0 * col["wind_x"])

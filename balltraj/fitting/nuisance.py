@@ -56,6 +56,21 @@ SPIN_DRAG_SLOPE_SIGMA = 0.25
 #   Re range (the ladder's own typical value; common practice).
 DRAG_LAW_SIGMAS = {"log_drag_scale": 0.2, "log_re_shift": 0.15, "drag_re_exponent": 0.1}
 
+# And on the lift law (C_L = e^c C_L,cat(S) (S/S_0)^b, S_0 at launch; physics lift law "tilted"):
+# - log_lift_scale c, sigma 0.3 (a factor 1.35), in every fit: a spin rate read from a flight is a
+#   quantity of the lift law assumed, since the level of C_L trades against the rate exactly (for linear
+#   lift the Magnus force goes with C_L(S) and so with the rate times the level), so the law's level is
+#   the rate's own uncertainty. Published laws for one kind of ball differ in level by about that much
+#   at a given S: at S = 0.24 the linear C_L = S (Nathan 2008) gives 0.24 and Stepanek's saturating
+#   1/(2.022 + 0.981/S) (1988) 0.164, ln(0.164/0.24) = -0.38 (computed from the two formulas); soccer
+#   balls C_L 0.2-0.3 at S 0.1-0.3 (Goff & Carre 2009, from memory);
+# - lift_tilt b, sigma 0.2, in the fits that hold the catalogue rung (the others can climb to the
+#   lift_shape rung): the log-slope d ln C_L / d ln S is 1 for linear lift and 0.62-0.83 for Stepanek's
+#   law over S 0.1-0.3 (computed from the formula), so a slope 0.4 below the catalogue's is at two sigma.
+LIFT_LEVEL_SIGMA = 0.3
+LIFT_LAW_SIGMAS = {"lift_tilt": 0.2}
+LAW_SIGMAS = {**DRAG_LAW_SIGMAS, **LIFT_LAW_SIGMAS, "log_lift_scale": LIFT_LEVEL_SIGMA}
+
 
 def nuisance_priors(rung: tuple, options) -> dict:
     """Nuisance unknowns (name -> prior sigma) of a fit whose rung fits the unknowns ``rung``.
@@ -63,15 +78,19 @@ def nuisance_priors(rung: tuple, options) -> dict:
     The spin-drag slope always (unless the rung fits it, or the older single-model options are
     used); the horizontal wind components when the user gave a wind uncertainty
     (``options.wind_sigma_mps`` > 0) and the rung does not fit the wind; the drag law's own
-    (:data:`DRAG_LAW_SIGMAS`) when ``options.drag_law_priors`` (a fit held on a rung it did not choose)
-    and the rung does not fit them."""
+    (:data:`DRAG_LAW_SIGMAS`) and the lift law's slope (:data:`LIFT_LAW_SIGMAS`) when
+    ``options.drag_law_priors`` (a fit held on a rung it did not choose) and the rung does not fit them;
+    the lift law's level (:data:`LIFT_LEVEL_SIGMA`) always."""
     if options.legacy:
         return {}
     out = {}
     if getattr(options, "drag_law_priors", False):
         out.update({n: s for n, s in DRAG_LAW_SIGMAS.items() if n not in rung})
+        if "lift_exponent" not in rung:
+            out.update(LIFT_LAW_SIGMAS)
     if "drag_spin_slope" not in rung:
         out["drag_spin_split"] = SPIN_DRAG_SLOPE_SIGMA
+    out["log_lift_scale"] = LIFT_LEVEL_SIGMA  # every fit: the spin rate's own law uncertainty
     ws = float(getattr(options, "wind_sigma_mps", 0.0) or 0.0)
     if ws > 0 and "wind_x" not in rung:
         out["wind_x"] = ws
@@ -132,7 +151,7 @@ def marginalise(new_problem, prob, res, priors: dict) -> dict:
     # The drag-law nuisances keep their prior mean (the catalogue law) too: they stand for the rungs the
     # image fit does not climb, because from one camera the depth trades off against the aerodynamics;
     # their posterior mean would re-open that trade-off (a 2.6 % slower launch on the behind sample clip)
-    law = np.array([n in DRAG_LAW_SIGMAS for n in names])
+    law = np.array([n in LAW_SIGMAS for n in names])
     used = np.where((data_sigma < sig0) & ~law, mean, 0.0)
     return {"names": names, "prior_sigma": sig0, "compensation": A, "covariance": cov, "mean": mean,
             "used_mean": used, "data_sigma": data_sigma, "problem": aug}

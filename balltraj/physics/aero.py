@@ -16,7 +16,7 @@ import numpy as np
 
 from ..errors import InputError
 from .aero_published import (drag_giordano_baseball, drag_modified, drag_spin_linear, drag_stepanek1988,
-                             lift_power_about, lift_rational, lift_stepanek1988)
+                             lift_power_about, lift_rational, lift_stepanek1988, lift_tilted)
 
 
 @dataclass(frozen=True)
@@ -152,8 +152,11 @@ _LIFT: dict[str, AeroModel] = {
         AeroModel("rational", "lift", lift_rational, (0, np.inf), (0, np.inf), ("a", "b"),
                   "C_L = S/(a + b S), the saturating form of Stepanek 1988"),
         AeroModel("power_about", "lift", lift_power_about, (0, np.inf), (0, np.inf),
-                  ("base", "base_params", "reference_s", "exponent"),
+                  ("base", "base_params", "reference_s", "exponent", "log_scale"),
                   "a base law's C_L at S_ref times (S/S_ref)^exponent (the fit's ladder)"),
+        AeroModel("tilted", "lift", lift_tilted, (0, np.inf), (0, np.inf),
+                  ("base", "base_params", "reference_s", "log_scale", "tilt"),
+                  "a base law times e^log_scale (S/S_ref)^tilt (the lift law's uncertainties in a fit)"),
     ]
 }
 

@@ -125,11 +125,33 @@ def drag_modified(reynolds, spin_parameter=0.0, *, base="constant", base_params=
     return np.maximum(out, 0.0)
 
 
+def lift_tilted(spin_parameter, reynolds=None, *, base="sawicki2003", base_params=None, reference_s=0.1,
+                log_scale=0.0, tilt=0.0):
+    """A base law moved in level and slope about a reference spin parameter:
+
+    C_L = e^log_scale * C_L,base(S) * (S / S_ref)^tilt.
+
+    With log_scale = tilt = 0 it is the base law itself, exactly; the two are the lift law's own
+    uncertainties, which a fit that keeps the base law marginalises (fitting/nuisance.py): the level
+    (a spin rate read from a flight is a quantity of the lift law assumed) and the log-slope
+    d ln C_L / d ln S (linear lift, Nathan 2008, against saturating curves, Stepanek 1988).
+    """
+    from .aero import lift_coefficient
+
+    S = np.abs(np.asarray(spin_parameter, dtype=float))
+    s_ref = np.maximum(np.asarray(reference_s, dtype=float), 1e-9)
+    c = lift_coefficient(S, reynolds, model=base, **dict(base_params or {}))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(S > 0, np.exp(log_scale) * c * (S / s_ref) ** np.asarray(tilt, dtype=float), 0.0)
+
+
 def lift_power_about(spin_parameter, reynolds=None, *, base="sawicki2003", base_params=None, reference_s=0.1,
-                     exponent=1.0):
+                     exponent=1.0, log_scale=0.0):
     """Lift as a power law about a reference spin parameter, anchored on a base law:
 
-    C_L = C_L,base(S_ref) * (S / S_ref)^exponent.
+    C_L = e^log_scale * C_L,base(S_ref) * (S / S_ref)^exponent
+
+    (log_scale: the lift level's nuisance of a fit, fitting/nuisance.py; 0 ties the curve to the base law).
 
     exponent 1 is linear lift, 0 < exponent < 1 a saturating curve, any other value a power law
     (the local form of the published curves: C_L ~ S for small S, Nathan 2008; saturation at large
@@ -142,4 +164,4 @@ def lift_power_about(spin_parameter, reynolds=None, *, base="sawicki2003", base_
     s_ref = np.maximum(np.asarray(reference_s, dtype=float), 1e-9)
     c_ref = lift_coefficient(s_ref, reynolds, model=base, **dict(base_params or {}))
     with np.errstate(divide="ignore", invalid="ignore"):
-        return np.where(S > 0, c_ref * (S / s_ref) ** exponent, 0.0)
+        return np.where(S > 0, np.exp(log_scale) * c_ref * (S / s_ref) ** exponent, 0.0)

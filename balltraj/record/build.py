@@ -247,6 +247,9 @@ _PRIOR_REASONS = {
     "log_drag_scale": "the ball's drag level (the catalogue law's coefficient is known to about 20 %)",
     "log_re_shift": "where the ball's drag crisis falls (the speed at which its drag drops)",
     "drag_re_exponent": "how the ball's drag changes with speed",
+    "log_lift_scale": "the ball's lift level (a spin rate read from the flight is one of the lift law assumed; published "
+                      "laws for one kind of ball differ by about 30 %)",
+    "lift_tilt": "how the ball's lift grows with its spin (linear or saturating)",
 }
 
 

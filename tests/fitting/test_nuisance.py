@@ -106,10 +106,12 @@ def test_drag_law_nuisances_are_marginalised_on_the_catalogue_rung():
     assert nu["covariance"][0, 1] == 0.0 and nu["mean"][0] == 0.0
     # the drag law keeps the catalogue's value (its prior mean) whatever the track's pull: only its spread counts
     assert nu["used_mean"][1] == 0.0
-    # the drag-law priors join only when asked (the image fit held on the catalogue rung), never in 3-D fits
-    assert set(nuisance_priors((), FitOptions())) == {"drag_spin_split"}
+    # the drag-law priors (and the lift law's slope) join only when asked (the image fit held on the catalogue
+    # rung), never in 3-D fits; the lift law's level in every fit (the spin rate's own law uncertainty)
+    assert set(nuisance_priors((), FitOptions())) == {"drag_spin_split", "log_lift_scale"}
     asked = nuisance_priors(("log_drag_scale",), FitOptions(drag_law_priors=True))
-    assert set(asked) == {"drag_spin_split"} | (set(DRAG_LAW_SIGMAS) - {"log_drag_scale"})
+    assert set(asked) == {"drag_spin_split", "log_lift_scale", "lift_tilt"} | (set(DRAG_LAW_SIGMAS) - {"log_drag_scale"})
+    assert "lift_tilt" not in nuisance_priors(("lift_exponent",), FitOptions(drag_law_priors=True))
 
 
 # ---- flights made outside the code under test (solve_ivp, laws written here) -----------------------
@@ -223,10 +225,31 @@ def test_every_prior_is_named_for_what_it_is():
     from balltraj.fitting.nuisance import DRAG_LAW_SIGMAS
     from balltraj.record.build import _PRIOR_REASONS, _prior_warnings
 
-    assert set(DRAG_LAW_SIGMAS) | {"drag_spin_split", "wind_x", "wind_y"} <= set(_PRIOR_REASONS)
+    assert set(DRAG_LAW_SIGMAS) | {"drag_spin_split", "wind_x", "wind_y", "log_lift_scale", "lift_tilt"} <= set(_PRIOR_REASONS)
     sig = {"deflection_horizontal_m": 0.10, "deflection_vertical_m": 0.02,
            "deflection_from_priors_m": {"log_re_shift": [0.09, 0.0], "wind_y": [0.0, 0.001]}}
     (w,) = _prior_warnings(sig)
     assert w.startswith("the sideways") and "drag crisis" in w and "wind" not in w
     sig["deflection_from_priors_m"] = {"wind_y": [0.09, 0.0]}
     assert "crosswind" in _prior_warnings(sig)[0]
+
+
+def test_a_spin_rate_read_through_another_lift_law_is_covered_by_the_lift_level_prior(monkeypatch):
+    # Source: Stepanek 1988, Am. J. Phys. 56:138 (coefficients from memory): a saturating lift
+    # C_L = 1/(2.022 + 0.981/S), 0.68 of the catalogue's linear C_L = S at S = 0.24; drag the tennis
+    # catalogue's constant 0.507 (Cross & Lindsey 2014, docs/references.md 2.3). Truth by solve_ivp.
+    # A spin rate read from a flight is a quantity of the lift law assumed: the fit reads the Magnus force,
+    # and its sigma must carry the law's level, not only the track's noise.
+    from balltraj.fitting import nuisance
+
+    kw = dict(cd=lambda S: 0.507, cl=lambda S: 1 / (2.022 + 0.981 / S) if S > 0 else 0.0, speed=30.0, el=8.0,
+              rpm=2600, axis=[0, 1, 0], rate=240, noise=0.005, t_end=0.6)
+    fit, sig, _, _, _ = _fit_and_truth("tennis", **kw)
+    rate = float(np.linalg.norm(fit.spin)) / RPM
+    err = rate - 2600
+    assert err < -0.15 * 2600  # the catalogue's linear lift needs less spin for the same force
+    assert abs(err) < 2.5 * sig["transverse_rate_rpm"]  # honest with the level prior
+    assert "log_lift_scale" in fit.nuisance["names"]
+    monkeypatch.setattr(nuisance, "LIFT_LEVEL_SIGMA", 1e-6)  # the code before: the law's level taken as exact
+    fit0, sig0, _, _, _ = _fit_and_truth("tennis", **kw)
+    assert abs(float(np.linalg.norm(fit0.spin)) / RPM - 2600) > 3 * sig0["transverse_rate_rpm"]

@@ -66,3 +66,21 @@ def test_crisis_drag_is_monotone_and_bounded():
     Re = np.geomspace(1e4, 1e6, 200)
     cd = drag_coefficient(Re, model="crisis", subcritical=0.5, supercritical=0.2, critical_re=2.5e5, width_re=2e4)
     assert np.all(np.diff(cd) <= 1e-15) and cd.max() <= 0.5 and cd.min() >= 0.2
+
+
+def test_the_tilted_lift_law_is_its_base_at_zero_and_moves_level_and_slope_as_named():
+    # invariants of C_L = e^c C_L,base(S) (S/S_ref)^b (the lift law's nuisances in a fit)
+    from balltraj.physics.aero import lift_coefficient
+
+    S = np.array([0.05, 0.1, 0.2, 0.4])
+    base = {"base": "rational", "base_params": {"a": 0.981, "b": 2.022}, "reference_s": 0.2}
+    plain = lift_coefficient(S, None, model="rational", a=0.981, b=2.022)
+    assert np.allclose(lift_coefficient(S, None, model="tilted", **base), plain, rtol=1e-12)
+    lev = lift_coefficient(S, None, model="tilted", log_scale=0.3, **base)
+    assert np.allclose(lev / plain, np.exp(0.3), rtol=1e-12)
+    tilt = lift_coefficient(S, None, model="tilted", tilt=-0.4, **base)
+    assert tilt[2] == pytest.approx(plain[2], rel=1e-12)  # unchanged at S_ref
+    # the log-slope drops by 0.4 everywhere
+    slope = np.diff(np.log(tilt)) / np.diff(np.log(S)) - np.diff(np.log(plain)) / np.diff(np.log(S))
+    assert np.allclose(slope, -0.4, atol=1e-12)
+    assert lift_coefficient(np.array([0.0]), None, model="tilted", tilt=-0.4, **base)[0] == 0.0
