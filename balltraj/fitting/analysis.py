@@ -120,7 +120,8 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
     flown with its own values of the chosen rung's unknowns (drag and lift shape, spin decay,
     wind); the part of the drag that only a spinning ball has, which one flight cannot show, adds
     a prior to the deflection (:mod:`.nuisance`; the part of the deflection's sigma each such prior
-    gives is in ``deflection_from_priors_m``)."""
+    gives is in ``deflection_from_priors_m``), and the lift law's level one to the spin rate (its part in
+    ``transverse_rate_from_lift_law_rpm``)."""
     p = fit.params
     k = len(p)
     typ = typical_scales(fit.options)
@@ -137,13 +138,17 @@ def derived_uncertainties(fit: FlightFit, model: FlightModel, target_x: float,
     diff[:, 4] = _wrap_deg(diff[:, 4])
     G = (diff / (2 * h[:, None])).T
     cov = G @ fit.covariance @ G.T
-    share = nuisance_share(fit, G[-2:])
+    share_all = nuisance_share(fit, G)
+    share = {n: v[-2:] for n, v in share_all.items()}
     sig = np.sqrt(np.clip(np.diag(cov), 0, None))
     names = DERIVED + ["deflection_horizontal_m", "deflection_vertical_m"]
     out = dict(zip(names, sig))
     corr = cov[-2, -1] / (sig[-2] * sig[-1]) if sig[-2] > 0 and sig[-1] > 0 else 0.0
     out["deflection_correlation"] = float(corr)
     out["deflection_from_priors_m"] = {n: [float(x) for x in v] for n, v in share.items()}
+    # the spin rate's part from the lift law's level (a rate read from a flight is one of the law assumed)
+    level = share_all.get("log_lift_scale")
+    out["transverse_rate_from_lift_law_rpm"] = float(level[DERIVED.index("transverse_rate_rpm")]) if level is not None else 0.0
     # against a reference that keeps the spinning ball's drag (the spin's share of the drag set aside)
     split = share.get("drag_spin_split", np.zeros(2))
     out["deflection_same_drag_sigma_m"] = [float(math.sqrt(max(s_ ** 2 - x ** 2, 0.0))) for s_, x in zip(sig[-2:], split)]

@@ -182,10 +182,16 @@ def fit_record(fit: FlightFit, ball: Ball, air: AirConditions, model: FlightMode
         "drag_scale": fit.drag_scale,
     }
     rate, srate = spin["transverse_rate_rpm"], sig["transverse_rate_rpm"]
-    spin["observable"] = bool(math.isfinite(rate) and srate < 0.5 * max(rate, 1e-9))
+    # told apart from noise: judged without the lift law's part, which scales the rate but cannot make it zero
+    s_law = float(sig.get("transverse_rate_from_lift_law_rpm", 0.0) or 0.0)
+    spin["observable"] = bool(math.isfinite(rate) and math.sqrt(max(srate**2 - s_law**2, 0.0)) < 0.5 * max(rate, 1e-9))
     spin["axis_in_words"] = spin_axis_words(spin["transverse_axis"], v0)
     if free:
         spin["note"] += f"; the rate is inferred from the fitted lift through the {model.lift_model} model"
+    if s_law > 0 and not spin.get("gyro_observed"):
+        spin["note"] += (f"; the rate is read through the ball's {model.lift_model} lift law, and its uncertainty "
+                         f"includes ± {s_law:.0f} rpm for that law (published lift laws for one kind of ball differ "
+                         "by about 30 %)")
     warnings = _fit_warnings(fit, ball, model, val, rate, srate, spin["observable"]) + _prior_warnings(sig)
     baseline, notes = _baseline(fit, model, target_x, start_source)
     rec = {
@@ -301,7 +307,8 @@ def _uncertainty_section(fit: FlightFit, sig: dict, dcov) -> dict:
                    "speed_mps": sig["speed_mps"], "elevation_deg": sig["elevation_deg"],
                    "azimuth_deg": sig["azimuth_deg"]},
         "spin": {"rate_rpm": sig["transverse_rate_rpm"], "transverse_rate_rpm": sig["transverse_rate_rpm"],
-                 "transverse_axis_deg": sig["axis_angle_deg"]},
+                 "transverse_axis_deg": sig["axis_angle_deg"],
+                 "from_lift_law_rpm": sig.get("transverse_rate_from_lift_law_rpm", 0.0)},
         "aero": {"drag_coefficient": sig["drag_coefficient"], "lift_coefficient": sig["lift_coefficient"],
                  "spin_parameter": sig["spin_parameter"]},
         "deflection": {"horizontal_m": sig["deflection_horizontal_m"], "vertical_m": sig["deflection_vertical_m"],
