@@ -211,6 +211,10 @@ def fit_metrics(model, ball, air, sol, spin, cam, t, uv, r, opts, laws="same"):
                   (rec["deflection"]["horizontal_m"] - dh) / u["deflection"]["horizontal_m"],
                   (rec["deflection"]["vertical_m"] - dv) / u["deflection"]["vertical_m"]],
             "z_spin": (rec["spin"]["transverse_rate_rpm"] - rate) / u["spin"]["transverse_rate_rpm"],
+            # the same without the lift law's level in the sigma (the rate's law uncertainty, fitting/nuisance.py)
+            "z_spin_bare": (rec["spin"]["transverse_rate_rpm"] - rate) / max(math.sqrt(max(
+                u["spin"]["transverse_rate_rpm"] ** 2 - u["spin"].get("from_lift_law_rpm", 0.0) ** 2, 0.0)), 1e-9),
+            "spin_err": (rec["spin"]["transverse_rate_rpm"] / rate - 1) * 100,
             "z_depth": depth_err / fit.launch_depth_sigma_m[cam.name],
             "ok": bool(fit.success), "budget": _budget_stop(fit), "msg": fit.message}, ""
 
@@ -491,6 +495,16 @@ def main():
     lines += _accuracy_rows(rows, (("other rest", "ball at rest (ground contact)"),
                                    ("other none", "nothing (apparent size)")), n)
     lines += ["", f"Other laws, no anchor, all cameras pooled: {_pooled(rows, 'other none')}."]
+    other = [x for e in rows.values() for m in ("other rest", "other none") for x in e[m] if x is not None]
+    if other:
+        lines += ["", f"Other laws, transverse spin rate (every camera, both depth sources, {len(other)} fits): error "
+                  f"median {np.median([x['spin_err'] for x in other]):+.0f} % (range "
+                  f"{min(x['spin_err'] for x in other):+.0f} to {max(x['spin_err'] for x in other):+.0f} %: the catalogue's "
+                  f"linear lift needs less spin for the same force); within one sigma "
+                  f"{100 * np.mean([abs(x['z_spin']) <= 1 for x in other]):.0f} %, within two "
+                  f"{100 * np.mean([abs(x['z_spin']) <= 2 for x in other]):.0f} %; without the lift law's level in the "
+                  f"sigma {100 * np.mean([abs(x['z_spin_bare']) <= 1 for x in other]):.0f} % and "
+                  f"{100 * np.mean([abs(x['z_spin_bare']) <= 2 for x in other]):.0f} % (fitting/nuisance.py, LIFT_LEVEL_SIGMA)."]
     whys = sorted({w for e in rows.values() for w in e["why"]})
     if whys:
         lines += ["", "Not found / not fitted: " + "; ".join(whys[:6])]
