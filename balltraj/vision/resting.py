@@ -10,8 +10,11 @@ frames before launch), and on the flight's path extended backward.
 
 Measurements (the same soft matte as the flight detector, :mod:`.detect`, so that the radius bias
 measured here is the detector's): weights w = max(|I - A| - T/2, 0) against the after-launch
-image A; the weighted centroid is the centre, the second moments give the radius (a disc of
-radius r has variance r^2/4 per axis, times 1.08 for the matte's tapered edge, as the detector).
+image A; the weighted centroid finds the ball and tests that it is still, the second moments give
+the radius (a disc of radius r has variance r^2/4 per axis, times 1.08 for the matte's tapered edge,
+as the detector). The centre that anchors the depth is the silhouette's (the edge fit of
+:mod:`.edge_fit` on the median image before launch against the one after): the centroid of a shaded
+ball's difference lies towards its lit half.
 """
 
 from __future__ import annotations
@@ -111,6 +114,31 @@ def _matte_moments(diff, threshold):
     disc = math.sqrt(max(tr * tr / 4 - det, 0.0))
     l1, l2 = tr / 2 + disc, max(tr / 2 - disc, 0.0)
     return cx, cy, 2.0 * math.sqrt(l2) * 1.08, math.sqrt(l1 / l2) if l2 > 0 else math.inf
+
+
+def _edge_centre(B, A, c0, r_mom, r_exp):
+    """The resting ball's centre [px, crop coordinates] and its one-sigma [px] from the silhouette edge fit
+    (``edge_fit.fit_edge``: a shaded disc with a blurred edge) on the median image before launch against the
+    median after; None when the fit fails or its radius is not the ball's."""
+    from .edge_fit import fit_edge
+
+    r0 = max(1.5, 1.15 * r_mom)
+    m = int(math.ceil(2.0 * r0 + 4))
+    cx, cy = int(round(c0[0])), int(round(c0[1]))
+    ys, xs = slice(max(0, cy - m), min(B.shape[0], cy + m + 1)), slice(max(0, cx - m), min(B.shape[1], cx + m + 1))
+    off = np.array([xs.start, ys.start], float)
+    try:
+        fit = fit_edge(B[ys, xs], A[ys, xs], np.asarray(c0, float) - off, r0)
+    except (ValueError, np.linalg.LinAlgError):
+        return None
+    if not fit.ok or not (0.6 * r_exp - 1.0 <= fit.radius_px <= 1.6 * r_exp + 1.0):
+        return None
+    c = fit.centre_px + off
+    if np.hypot(*(c - c0)) > 0.5 * fit.radius_px:
+        return None  # not the blob the moments measured
+    # the centre's error: the radius's one-sigma is the edge position's, and the centre is fixed by the
+    # whole rim at least as well (common practice for a circle fit)
+    return c, float(fit.radius_sigma_px)
 
 
 def find_resting_ball(path, camera: Camera, ball_radius_m: float, flight_t, flight_uv, *, flight: int = 1,
@@ -239,6 +267,14 @@ def find_resting_ball(path, camera: Camera, ball_radius_m: float, flight_t, flig
     if motion > max(0.5, 0.15 * r_exp):
         return RestingSearch(None, f"the ball at the start moves ({motion:.1f} px rms): not at rest")
     sig = max(pixel_sigma_floor_px, motion / math.sqrt(len(cs)))
+    edge = _edge_centre(B, A, centre - [x0, y0], float(np.median(rs)), r_exp)
+    if edge is not None:
+        # the silhouette's centre: the difference's centroid is pulled towards the lit half of a shaded ball
+        # (1-2 px on a 9 px ball lit from the side); where the two disagree by more than the edge fit's own
+        # error, half the disagreement joins the sigma (the edge fit may be the one misled: a shadow, a mark)
+        shift = float(np.hypot(*(edge[0] + [x0, y0] - centre)))
+        centre = edge[0] + [x0, y0]
+        sig = math.hypot(sig, max(edge[1], 0.25 * shift))
     try:
         anchor = ground_point(camera, centre, ball_radius_m, pixel_sigma_px=sig,
                               calibration_rms_px=calibration_rms_px)
