@@ -152,10 +152,12 @@ def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, captu
     th = threading.Thread(target=worker, daemon=True)
     th.start()
     n = 0
+    t_last = None
     try:
         item = q.get()
         while item is not None and (end_s is None or item[1] <= end_s):
             k, t, frame = item
+            t_last = t
             if t >= start_s:
                 n += 1
                 yield k, t, frame
@@ -168,9 +170,23 @@ def read_frames(path, *, start_s: float = 0.0, end_s: float | None = None, captu
             except queue.Empty:
                 pass
         cap.release()
+    if n == 0 and t_last is not None and t_last < start_s:
+        raise InputError(f"the clip ends at {t_last:.2f} s, before the start asked for ({start_s:g} s)", path=str(path),
+                         hint="give a --start within the clip")
     if n == 0:
         raise InputError("no frames could be decoded" + (f" in {start_s:g}..{end_s:g} s" if end_s else ""),
                          path=str(path), hint="the clip may be truncated or corrupt; try the original file")
+
+
+def truncation_warning(info: ClipInfo, decoded: int) -> str | None:
+    """A warning when the container announces clearly more frames than could be decoded (a file cut short
+    in copying or recording): flights then end where the frames do. ``decoded``: frames read from the
+    start of the clip to its end. Container counts may be estimates from the duration, so a few frames
+    (2 and 3 %) short pass."""
+    if info.frame_count > 0 and decoded < 0.97 * info.frame_count - 2:
+        return (f"the file announces {info.frame_count} frames but only {decoded} could be decoded: it may be "
+                "truncated (cut short in copying or recording), and flights end where its frames do")
+    return None
 
 
 def decode_only(path) -> tuple[int, float]:

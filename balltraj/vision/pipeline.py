@@ -12,7 +12,7 @@ from ..camera.model import Camera
 from ..errors import InputError
 from .checks import _extent_px, _net_speed
 from .ball_size import RadiusRefinement, apply_refinement, refine_flight_radii
-from .clip import clip_info, read_frames
+from .clip import clip_info, read_frames, truncation_warning
 from .detect import Detector, radius_gate_map
 from .extend import extend_flights
 from .frames import FrameGuard, full_resolution
@@ -100,9 +100,11 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     seg_repeats: list[list[int]] = [[]]  # per scene: the frames (counted from its first) taken for repeats
     seg_frames = [0]
     repeats_here = 0
+    last_k = -1
     for k, t, (gray, small, kind, motion, moved_px) in read_frames(
             path, start_s=start_s, end_s=end_s, capture_fps=capture_fps, grey=True, prepare=prepare):
         n += 1
+        last_k = k
         if kind.kind == "cut":
             seg_repeats.append([])
             seg_frames.append(0)
@@ -180,6 +182,9 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     elif n_repeat:
         warnings.append(f"{n_repeat} of {n} frames repeat the previous image (frame-rate conversion): "
                         f"{fps_m:.0f} distinct images a second were used, one observation each")
+    cut_short = truncation_warning(info, last_k + 1) if end_s is None else None
+    if cut_short:
+        warnings.append(cut_short)
     if cuts:
         warnings.append("scene cut at " + ", ".join(f"{c:.2f} s" for c in cuts) + ": tracks end there")
     if camera is not None and moved_px > 2.0:
@@ -190,6 +195,9 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
     slow = slow_motion_hint(fps_m, capture_fps, [a for a in falls if a is not None])
     if not flights and not slow and capture_fps is None:
         slow = slow_track_hint(trk, fps_m)
+    if not flights and not slow and trk.rejected:  # what kept the most promising track from being a flight
+        n_pts, why = max(trk.rejected)
+        warnings.append(f"the longest smooth track ({n_pts} frames) was not taken for the ball: {why}")
     if slow:
         warnings.append(slow)
     elif 0 < fps_m < 90 and capture_fps is None:

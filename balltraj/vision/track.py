@@ -76,6 +76,8 @@ class Tracker:
         self.pool: list[tuple[int, float, Candidate]] = []  # unclaimed candidates of recent frames
         self.fall_hints: list[float] = []  # apparent fall [m/s^2] of smooth tracks rejected as flights
         self.slow_tracks: list[_Track] = []  # smooth ball-like tracks rejected as too slow or short in the image
+        self.rejected: list[tuple[int, str]] = []  # (points, why) of smooth tracks judged not to be a ball
+        self.why_not = ""
 
     def update(self, k: int, t: float, cands: list[Candidate]) -> None:
         # every track's gate around its prediction; then pairs are taken best first (locked-on tracks
@@ -262,34 +264,38 @@ class Tracker:
         both = _Track.of(a.points + b.points)
         return smooth_enough(both) and self._looks_like_ball(both)
 
+    def _no(self, why: str) -> bool:
+        self.why_not = why  # why the last track judged was not a ball (for the "no flight" error)
+        return False
+
     def _looks_like_ball(self, tr: _Track) -> bool:
         if not (_blur_consistent(tr) and _radius_consistent(tr) and _speed_consistent(tr) and _streak_consistent(tr)) \
                 or streak_across_motion(tr):
-            return False
+            return self._no("its size, smear or speed changed as a ball's do not")
         if self.focal_px and self.ball_radius_m:
             # too fast by its typical speed; too slow only if never fast: a ball juggled or thrown
             # up is slow near the top of its arc, for much of its track
             if world_speed(tr, self.focal_px, self.ball_radius_m, self.camera) > self.max_ball_speed:
-                return False
+                return self._no("as large as it looked it moved faster than this ball flies (check --ball and the camera file)")
             if world_speed(tr, self.focal_px, self.ball_radius_m, self.camera, 90.0) < self.min_ball_speed:
-                return False
+                return self._no("as large as it looked it moved slower than a ball in flight (check --ball and the camera file)")
         if self.ball_radius_m:
             c = (self.w / 2, self.h / 2) if self.camera is None else (self.camera.K[0][2], self.camera.K[1][2])
             mo = sideways_motion(tr, self.ball_radius_m, c)
             if mo is not None and mo[1] - 2.0 * mo[2] > 100.0:
-                return False  # at the ball's own scale it turns at over 10 g: a swinging limb, not a flight
+                return self._no("it turned like a swinging limb")  # at the ball's own scale over 10 g
             if mo is not None and mo[0] < self.min_ball_speed:
-                return False  # never as fast as a ball in flight, even at the end of its track: a hand, a person
+                return self._no("it was never as fast as a ball in flight")  # even at its end: a hand, a person
         if self.camera is not None and self.ball_radius_m:
             fall = downward_acceleration(tr, self.camera, self.ball_radius_m, with_sigma=True)
             a_z, s_a = fall if fall is not None else (None, 0.0)
             if a_z is not None and not (-1.0 + 2 * s_a > a_z > -30.0 - 2 * s_a):
-                return False  # nothing in free flight keeps its height like that: a person, a flag
+                return self._no("it did not fall as a ball in free flight does (seen through this camera file)")
         elif self.ball_radius_m:
             # (judged on the flight after release: a hand lifting the ball before it lets go accelerates upward)
             fall = image_fall(trim_release(tr, self.min_points), self.ball_radius_m, self.h / 2.0)
             if fall is not None and fall[0] < -RISE_MAX - 2.0 * fall[1]:
-                return False  # rising faster than a ball in flight does (a person getting up, a shadow)
+                return self._no("it rose faster than a ball in flight does")  # a person getting up, a shadow
         return True
 
     def _plausible(self, tr: _Track) -> bool:
@@ -386,7 +392,7 @@ class Tracker:
         done = [trim_strays(part) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
         self.active = []
         flights = []
-        self.fall_hints, self.slow_tracks = [], []
+        self.fall_hints, self.slow_tracks, self.rejected = [], [], []
         for tr in done:
             dt = float(np.median(np.diff(tr.times()))) if len(tr.points) > 1 else 0.0
             min_points = self.min_points if dt < 1 / 40 else max(5, self.min_points - 2)  # 25-30 frames/s
@@ -415,6 +421,7 @@ class Tracker:
             # elongated beyond what its own motion can smear (a limb, a pole), a size that jumps, or as
             # big as it looks a speed no ball has (a walking person, a bag): not the ball
             if not self._looks_like_ball(tr):
+                self.rejected.append((len(tr.points), self.why_not))
                 a = self.apparent_fall(tr)
                 if a is not None:
                     self.fall_hints.append(a)

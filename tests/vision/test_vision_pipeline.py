@@ -299,3 +299,42 @@ def test_a_10_bit_clip_is_read_as_its_picture(tmp_path):
     assert len(common) >= 0.9 * len(f8[0].t)
     at = lambda f: f.uv[np.isin(np.round(f.t * 240), common)]  # noqa: E731
     assert np.abs(at(f8[0]) - at(f10[0])).max() < 0.5
+
+
+def _faststart_clip(path: Path, n: int = 48):
+    """An H.264 file with its index at the front (as phones and editors write them), so that a copy cut
+    short still opens and announces all its frames."""
+    import av
+
+    rng = np.random.default_rng(3)
+    with av.open(str(path), "w", options={"movflags": "faststart"}) as out:
+        st = out.add_stream("libx264", rate=30)
+        st.width, st.height, st.pix_fmt = 160, 96, "yuv420p"
+        for k in range(n):
+            g = rng.integers(0, 255, (96, 160), dtype=np.uint8)
+            for pkt in st.encode(av.VideoFrame.from_ndarray(np.dstack([g, g, g]), format="rgb24")):
+                out.mux(pkt)
+        for pkt in st.encode():
+            out.mux(pkt)
+
+
+def test_a_clip_cut_short_but_still_readable_is_warned_about(tmp_path):
+    # Source: round trip - the container's own frame count against the frames that decode, on a whole file
+    # and on the same file cut in half
+    from balltraj.vision.clip import clip_info, truncation_warning
+
+    whole, cut = tmp_path / "whole.mp4", tmp_path / "cut.mp4"
+    _faststart_clip(whole)
+    data = whole.read_bytes()
+    cut.write_bytes(data[: len(data) // 2])
+    for p, short in ((whole, False), (cut, True)):
+        info = clip_info(p)
+        decoded = sum(1 for _ in read_frames(p, grey=True))
+        assert info.frame_count == 48
+        assert (truncation_warning(info, decoded) is not None) == short, (p.name, decoded)
+
+
+def test_a_start_past_the_clips_end_is_said_so(two_throws):
+    path, _, _ = two_throws
+    with pytest.raises(InputError, match="ends at 1.5"):
+        list(read_frames(path, start_s=9.0))
