@@ -124,7 +124,7 @@ def _clipped_parabola(tt, y, least: int, tiny: float):
     """A parabola in time through (tt, y), refitted up to three times without the points more than 4
     robust sigmas off it (``tiny`` added to the spread; stops when under ``least`` points would stay):
     (coefficients, the points kept)."""
-    keep = np.ones(len(tt), bool)
+    keep = _parabola_start(tt, y, least, tiny)
     for _ in range(3):
         c = np.polyfit(tt[keep], y[keep], 2)
         res = np.abs(y - np.polyval(c, tt))
@@ -134,6 +134,27 @@ def _clipped_parabola(tt, y, least: int, tiny: float):
             break
         keep = new
     return c, keep
+
+
+def _parabola_start(tt, y, least: int, tiny: float) -> np.ndarray:
+    """The points the clipping of :func:`_clipped_parabola` starts from: all of them, or all but a tenth or
+    a fifth at either end (3 points or more) if that parabola's median absolute residual over every point is under 0.7 of the
+    one through all (least median of residuals, Rousseeuw 1984, over these few candidates). A track that ran
+    on from the ball onto a person, or began on the hand, has its strays at an end, and a few of them drag a
+    parabola through every point far enough that none stands out."""
+    n = len(tt)
+    c = np.polyfit(tt, y, 2)
+    best, best_score = np.ones(n, bool), 0.7 * float(np.median(np.abs(y - np.polyval(c, tt)))) + tiny
+    for a, b in ((0, n // 10), (0, n // 5), (n // 10, 0), (n // 5, 0)):
+        seg = np.zeros(n, bool)
+        seg[a:n - b] = True
+        if max(a, b) < 3 or seg.sum() < max(least, 4):
+            continue  # (one or two strays stand out anyway; on a short track dropping them is a guess)
+        c = np.polyfit(tt[seg], y[seg], 2)
+        score = float(np.median(np.abs(y - np.polyval(c, tt))))
+        if score < best_score:
+            best, best_score = seg, score
+    return best
 
 
 def _curvature_and_sigma(tk, yk, c):
