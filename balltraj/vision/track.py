@@ -22,7 +22,8 @@ from .checks import (_blur_consistent, _extent_px, _net_speed, _radius_consisten
 from .detect import Candidate, lens_magnification
 from .seed import seed_all
 from .streak import Expected
-from .trackpoints import _Track, cut_at_false_reacquisition, smooth_head, smooth_part, trim_release, trim_strays
+from .trackpoints import (_Track, cut_at_false_reacquisition, drop_size_strays, smooth_head, smooth_part, trim_release,
+                          trim_strays)
 
 
 @dataclass(frozen=True)
@@ -389,7 +390,7 @@ class Tracker:
             tr.ended = tr.ended or "clip ended"
         merged = self._merge([part for tr in self.finished + self.active if tr.confirmed
                               for part in cut_at_false_reacquisition(tr)])
-        done = [trim_strays(part) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
+        done = [trim_strays(drop_size_strays(part)) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
         self.active = []
         flights = []
         self.fall_hints, self.slow_tracks, self.rejected = [], [], []

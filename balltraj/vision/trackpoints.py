@@ -208,6 +208,26 @@ def trim_strays(tr: _Track) -> _Track:
     return _Track.of(pts, confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)
 
 
+def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: float = 1.8) -> _Track:
+    """Drop points whose apparent radius is far from the median of their 9 neighbours: a ball's apparent
+    size changes smoothly (as 1/distance), so a point at under ``lo`` or over ``hi`` times it is something
+    the track took instead (a hand or a head beside the ball, a blob merged with a passer-by), and its
+    position is not the ball's. Only for balls of ``least_px`` or more (a pixel or two of radius is that
+    noisy) and when at most a fifth of the points go (else the track's size itself is in doubt, which the
+    flight tests judge)."""
+    pts = list(tr.points)
+    if len(pts) < 9:
+        return tr
+    r = np.array([p[2].radius_px for p in pts])
+    if float(np.median(r)) < least_px:
+        return tr
+    med = np.array([median(r[max(0, min(i - 4, len(r) - 9)):max(0, min(i - 4, len(r) - 9)) + 9]) for i in range(len(r))])
+    bad = (r < lo * med) | (r > hi * med)
+    if not bad.any() or bad.sum() > len(pts) // 5:
+        return tr
+    return _Track.of([p for p, b in zip(pts, bad) if not b], confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)
+
+
 def _stray_from(prev: list, p, r_med: float) -> bool:
     """Is point p far from where a parabola in time through the points prev (up to 8) puts it?"""
     ts = np.array([q[1] for q in prev])
