@@ -209,19 +209,33 @@ def trim_strays(tr: _Track) -> _Track:
 
 
 def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: float = 1.8) -> _Track:
-    """Drop points whose apparent radius is far from the median of their 9 neighbours: a ball's apparent
-    size changes smoothly (as 1/distance), so a point at under ``lo`` or over ``hi`` times it is something
+    """Drop points whose apparent radius is far from what their 14 nearest neighbours give (1/radius on a
+    Theil-Sen straight line in time): a ball's apparent size changes smoothly (as 1/distance, about linear
+    in time over a short stretch), so a point at under ``lo`` or over ``hi`` times it is something
     the track took instead (a hand or a head beside the ball, a blob merged with a passer-by), and its
     position is not the ball's. Only for balls of ``least_px`` or more (a pixel or two of radius is that
-    noisy) and when at most a fifth of the points go (else the track's size itself is in doubt, which the
-    flight tests judge)."""
+    noisy), not for tracks of streaks, and when at most a fifth of the points go
+    (else the track's size itself is in doubt, which the flight tests judge)."""
     pts = list(tr.points)
-    if len(pts) < 9:
+    n_nb = 14  # neighbours
+    if len(pts) < n_nb + 1:
         return tr
     r = np.array([p[2].radius_px for p in pts])
-    if float(np.median(r)) < least_px:
+    # (not tracks of streaks, smeared over more than their diameter as detect._elongated says: a long
+    # streak's width is measured from its fragments and pieces, and scatters more than a ball's size does)
+    r_typ = float(np.median(r))
+    if r_typ < least_px or float(np.median([p[2].streak_px for p in pts])) >= max(6.0, 2.0 * r_typ):
         return tr
-    med = np.array([median(r[max(0, min(i - 4, len(r) - 9)):max(0, min(i - 4, len(r) - 9)) + 9]) for i in range(len(r))])
+    t = np.array([p[1] for p in pts])
+    inv = 1.0 / np.maximum(r, 0.3)
+    med = np.empty(len(r))  # each point's expected radius: 1/r on a robust straight line in time through its
+    for i in range(len(r)):  # 14 nearest neighbours (apparent radius = f R / distance, distance about linear)
+        a = max(0, min(i - n_nb // 2, len(r) - n_nb - 1))
+        j = [k for k in range(a, a + n_nb + 1) if k != i]
+        tt, yy = t[j] - t[i], inv[j]
+        slopes = [(yy[m] - yy[n]) / (tt[m] - tt[n]) for m in range(len(j)) for n in range(m) if tt[m] != tt[n]]
+        b = median(slopes) if slopes else 0.0
+        med[i] = 1.0 / max(median(yy - b * tt), 1e-3)
     bad = (r < lo * med) | (r > hi * med)
     if not bad.any() or bad.sum() > len(pts) // 5:
         return tr

@@ -256,5 +256,8 @@ def test_points_of_another_size_are_dropped_from_a_track():
     out = drop_size_strays(track(mixed))
     assert [p[0] for p in out.points] == [i for i in range(40) if i not in bad]
     assert len(drop_size_strays(track(radii)).points) == 40
-    tiny = [2.0, 1.0, 2.2, 2.0, 3.8, 2.1, 1.9, 2.0, 2.0, 2.1, 2.0]
+    tiny = [2.0, 1.0, 2.2, 2.0, 3.8, 2.1, 1.9, 2.0, 2.0, 2.1, 2.0] * 2
     assert len(drop_size_strays(track(tiny)).points) == len(tiny)
+    # a ball kicked away from the camera: 1/r linear in time, 14 -> 4 px in 30 frames, nothing dropped
+    away = list(1.0 / (1 / 14 + (1 / 4 - 1 / 14) * np.arange(30) / 29))
+    assert len(drop_size_strays(track(away)).points) == 30
