@@ -209,13 +209,12 @@ def trim_strays(tr: _Track) -> _Track:
 
 
 def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: float = 1.8) -> _Track:
-    """Drop points whose apparent radius is far from what their 14 nearest neighbours give (1/radius on a
-    Theil-Sen straight line in time): a ball's apparent size changes smoothly (as 1/distance, about linear
-    in time over a short stretch), so a point at under ``lo`` or over ``hi`` times it is something
-    the track took instead (a hand or a head beside the ball, a blob merged with a passer-by), and its
-    position is not the ball's. Only for balls of ``least_px`` or more (a pixel or two of radius is that
-    noisy), not for tracks of streaks, and when at most a fifth of the points go
-    (else the track's size itself is in doubt, which the flight tests judge)."""
+    """Cut a track's ends where its points are of another size than their neighbours give (1/radius on a
+    Theil-Sen straight line in time through the 14 nearest): a ball's apparent size changes smoothly (as
+    1/distance, about linear in time over a short stretch), so a point at under ``lo`` or over ``hi`` times
+    it is something the track took instead (a hand, a head, a blob merged with a passer-by). Within the
+    first and the last fifth of the points, everything up to the innermost such point goes. Only for balls
+    of ``least_px`` or more (a pixel or two of radius is that noisy), not for tracks of streaks."""
     pts = list(tr.points)
     n_nb = 14  # neighbours
     if len(pts) < n_nb + 1:
@@ -237,9 +236,15 @@ def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: fl
         b = median(slopes) if slopes else 0.0
         med[i] = 1.0 / max(median(yy - b * tt), 1e-3)
     bad = (r < lo * med) | (r > hi * med)
-    if not bad.any() or bad.sum() > len(pts) // 5:
+    # cut at the ends only: a track that ran on from the ball onto something else (or began on it) leaves
+    # the ball there for good, while a stray inside the track is one exposure's blob and dropping it would
+    # leave a gap that the smoothness tests read as an uneven step
+    edge = len(pts) // 5
+    a = max([i + 1 for i in range(edge) if bad[i]], default=0)
+    b = min([i for i in range(len(pts) - edge, len(pts)) if bad[i]], default=len(pts))
+    if a == 0 and b == len(pts):
         return tr
-    return _Track.of([p for p, b in zip(pts, bad) if not b], confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)
+    return _Track.of(pts[a:b], confirmed=tr.confirmed, ended=tr.ended, bounce=tr.bounce)
 
 
 def _stray_from(prev: list, p, r_med: float) -> bool:
