@@ -390,7 +390,7 @@ class Tracker:
             tr.ended = tr.ended or "clip ended"
         merged = self._merge([part for tr in self.finished + self.active if tr.confirmed
                               for part in cut_at_false_reacquisition(tr)])
-        done = [trim_strays(drop_size_strays(part)) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
+        done = [trim_strays(part) for tr in merged for part in self._split_at_bounce(trim_strays(tr))]
         self.active = []
         flights = []
         self.fall_hints, self.slow_tracks, self.rejected = [], [], []
@@ -427,7 +427,9 @@ class Tracker:
                 if a is not None:
                     self.fall_hints.append(a)
                 continue
-            flights.append(trim_release(tr, min_points))
+            # (its ends cut where it ran on onto something of another size, once judged whole: the judgement
+            # stays the one of the track as tracked)
+            flights.append(drop_size_strays(trim_release(tr, min_points)))
         flights.sort(key=lambda x: x.points[0][1])
         out = []
         for i, tr in enumerate(flights):

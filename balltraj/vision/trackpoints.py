@@ -212,8 +212,9 @@ def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: fl
     """Cut a track's ends where its points are of another size than their neighbours give (1/radius on a
     Theil-Sen straight line in time through the 14 nearest): a ball's apparent size changes smoothly (as
     1/distance, about linear in time over a short stretch), so a point at under ``lo`` or over ``hi`` times
-    it is something the track took instead (a hand, a head, a blob merged with a passer-by). Within the
-    first and the last fifth of the points, everything up to the innermost such point goes. Only for balls
+    it is something the track took instead (a hand, a head, a blob merged with a passer-by) if it also lies
+    off the path of the others. Within the first and the last fifth of the points, everything up to the
+    innermost such point goes. Only for balls
     of ``least_px`` or more (a pixel or two of radius is that noisy), not for tracks of streaks."""
     pts = list(tr.points)
     n_nb = 14  # neighbours
@@ -236,6 +237,16 @@ def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: fl
         b = median(slopes) if slopes else 0.0
         med[i] = 1.0 / max(median(yy - b * tt), 1e-3)
     bad = (r < lo * med) | (r > hi * med)
+    # and off the path: where a parabola in time through the track's points of the right size puts it, more
+    # than half the expected radius away (a piece of the ball itself -- its lit cap in a dark room -- is of
+    # another size but at the ball, and its position is kept)
+    good = ~bad
+    if good.sum() >= 6:
+        uv = np.array([(p[2].u, p[2].v) for p in pts])
+        for i in np.flatnonzero(bad):
+            near = np.flatnonzero(good)[np.argsort(np.abs(np.flatnonzero(good) - i))[:8]]
+            pred = [np.polyval(np.polyfit(t[near] - t[i], uv[near, k], 2), 0.0) for k in range(2)]
+            bad[i] = float(np.hypot(uv[i, 0] - pred[0], uv[i, 1] - pred[1])) > max(2.0, 0.5 * med[i])
     # cut at the ends only: a track that ran on from the ball onto something else (or began on it) leaves
     # the ball there for good, while a stray inside the track is one exposure's blob and dropping it would
     # leave a gap that the smoothness tests read as an uneven step

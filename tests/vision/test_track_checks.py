@@ -244,18 +244,21 @@ def test_points_of_another_size_are_dropped_from_a_track():
     # a 30 px merged blob) near its ends go with what lies beyond them, the rest stays, and a 2 px ball's noisy radii are left alone
     from balltraj.vision.trackpoints import drop_size_strays
 
-    def track(radii):
+    def track(radii, off=()):
         tr = _Track()
         for i, r in enumerate(radii):
-            tr.add(i, i / 60, Candidate(100.0 + 9 * i, 200.0 - 3 * i, float(r), 0.0, 0.0, math.pi * r * r, 60.0))
+            dv = 25.0 if i in off else 0.0  # what the track took instead lies off the ball's path
+            tr.add(i, i / 60, Candidate(100.0 + 9 * i, 200.0 - 3 * i + dv, float(r), 0.0, 0.0, math.pi * r * r, 60.0))
         return tr
 
     radii = list(12.0 + 6.0 * np.arange(40) / 39)
     bad = {2: 30.0, 17: 30.0, 35: 6.0, 37: 5.5}
     mixed = [bad.get(i, r) for i, r in enumerate(radii)]
-    out = drop_size_strays(track(mixed))
+    out = drop_size_strays(track(mixed, off=bad))
     # the ends are cut up to their innermost stray (the track ran on onto something); one inside stays
     assert [p[0] for p in out.points] == list(range(3, 35))
+    # a point of another size on the ball's path (a piece of the ball: its lit cap in a dark room) stays
+    assert len(drop_size_strays(track(mixed)).points) == 40
     assert len(drop_size_strays(track(radii)).points) == 40
     tiny = [2.0, 1.0, 2.2, 2.0, 3.8, 2.1, 1.9, 2.0, 2.0, 2.1, 2.0] * 2
     assert len(drop_size_strays(track(tiny)).points) == len(tiny)
