@@ -177,8 +177,8 @@ def track_clip(path, camera: Camera | None = None, ball_radius_m: float | None =
         dt = np.median(np.diff(times))
         fps_m = 1.0 / dt if dt > 0 else 0.0
     if n_repeat and not any(converted):
-        warnings.append(f"{n_repeat} of {n} frames barely differ from the one before (a still view): each was "
-                        "used once, at the clip's own frame times")
+        warnings.append(f"{n_repeat} of {n} frames barely differ from the one before (nothing moved between them"
+                        + ("" if moved_px > 2.0 else ": a still view") + "): each was used once, at the clip's own frame times")
     elif n_repeat:
         warnings.append(f"{n_repeat} of {n} frames repeat the previous image (frame-rate conversion): "
                         f"{fps_m:.0f} distinct images a second were used, one observation each")
