@@ -210,6 +210,7 @@ def test_the_fall_without_a_focal_length_is_g_from_any_side_and_a_riser_is_no_ba
     assert image_fall(riser, R_BALL, CENTRE[1])[0] == pytest.approx(-G, rel=0.02)
     trk = Tracker(1280, 720, ball_radius_m=R_BALL)
     assert trk._looks_like_ball(tr) and not trk._looks_like_ball(riser)
+    assert "rose faster" in trk.why_not  # the no-flight error's reason (pipeline.track_clip)
     # too short to tell (under 0.2 s), or the same instants over and over: no answer
     assert image_fall(_track(ts[:10], X[:10], Y[:10], Z[:10]), R_BALL, CENTRE[1]) is None
     twice = _track(np.repeat(ts[[0, 20]], 4), np.repeat(X[[0, 20]], 4), np.repeat(Y[[0, 20]], 4),
