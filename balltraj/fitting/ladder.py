@@ -137,19 +137,15 @@ def batch_model(base: FlightModel, names, values, launch_speed, spin_magnitude) 
                                   "offset": -split * s0}
     # the lift law's nuisances (fitting/nuisance.py), where not all zero (a zero level and tilt leave the law
     # as it is, and its name in the record)
-    level = col.get("log_lift_scale")
-    level = None if level is None or not np.any(level != 0) else level
-    tilt = col.get("lift_tilt")
-    tilt = None if tilt is None or not np.any(tilt != 0) else tilt
+    level, tilt = col.get("log_lift_scale", 0.0), col.get("lift_tilt", 0.0)
     if "lift_exponent" in col:
         changes["lift_model"] = "power_about"
         changes["lift_params"] = {"base": base.lift_model, "base_params": dict(base.lift_params),
-                                  "reference_s": s0, "exponent": col["lift_exponent"],
-                                  "log_scale": 0.0 if level is None else level}
-    elif level is not None or tilt is not None:
+                                  "reference_s": s0, "exponent": col["lift_exponent"], "log_scale": level}
+    elif np.any(level != 0) or np.any(tilt != 0):
         changes["lift_model"] = "tilted"
         changes["lift_params"] = {"base": base.lift_model, "base_params": dict(base.lift_params), "reference_s": s0,
-                                  "log_scale": 0.0 if level is None else level, "tilt": 0.0 if tilt is None else tilt}
+                                  "log_scale": level, "tilt": tilt}
     if "wind_x" in col:
         w = base.wind_mps
         changes["wind_mps"] = (w[0] + col["wind_x"], w[1] + col["wind_y"], w[2] + 0.0 * col["wind_x"])

@@ -270,8 +270,8 @@ def find_resting_ball(path, camera: Camera, ball_radius_m: float, flight_t, flig
     edge = _edge_centre(B, A, centre - [x0, y0], float(np.median(rs)), r_exp)
     if edge is not None:
         # the silhouette's centre: the difference's centroid is pulled towards the lit half of a shaded ball
-        # (1-2 px on a 9 px ball lit from the side); where the two disagree by more than the edge fit's own
-        # error, half the disagreement joins the sigma (the edge fit may be the one misled: a shadow, a mark)
+        # (1-2 px on a 9 px ball lit from the side); the sigma gains the edge fit's own error or, if larger, a
+        # quarter of the two centres' disagreement (the edge fit may be the one misled: a shadow, a mark)
         shift = float(np.hypot(*(edge[0] + [x0, y0] - centre)))
         centre = edge[0] + [x0, y0]
         sig = math.hypot(sig, max(edge[1], 0.25 * shift))

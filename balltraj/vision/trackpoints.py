@@ -8,6 +8,7 @@ from statistics import median
 
 import numpy as np
 
+from .checks import _robust_line
 from .streak import Expected
 
 
@@ -214,8 +215,8 @@ def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: fl
     1/distance, about linear in time over a short stretch), so a point at under ``lo`` or over ``hi`` times
     it is something the track took instead (a hand, a head, a blob merged with a passer-by) if it also lies
     off the path of the others. Within the first and the last fifth of the points, everything up to the
-    innermost such point goes. Only for balls
-    of ``least_px`` or more (a pixel or two of radius is that noisy), not for tracks of streaks."""
+    innermost such point goes. Only for balls of ``least_px`` or more (a pixel or two of radius is that
+    noisy), not for tracks of streaks."""
     pts = list(tr.points)
     n_nb = 14  # neighbours
     if len(pts) < n_nb + 1:
@@ -232,25 +233,24 @@ def drop_size_strays(tr: _Track, least_px: float = 4.0, lo: float = 0.55, hi: fl
     for i in range(len(r)):  # 14 nearest neighbours (apparent radius = f R / distance, distance about linear)
         a = max(0, min(i - n_nb // 2, len(r) - n_nb - 1))
         j = [k for k in range(a, a + n_nb + 1) if k != i]
-        tt, yy = t[j] - t[i], inv[j]
-        slopes = [(yy[m] - yy[n]) / (tt[m] - tt[n]) for m in range(len(j)) for n in range(m) if tt[m] != tt[n]]
-        b = median(slopes) if slopes else 0.0
-        med[i] = 1.0 / max(median(yy - b * tt), 1e-3)
+        med[i] = 1.0 / max(float(_robust_line(t[j] - t[i], inv[j])[1]), 1e-3)  # the line's value at t[i]
     bad = (r < lo * med) | (r > hi * med)
     # and off the path: where a parabola in time through the track's points of the right size puts it, more
     # than half the expected radius away (a piece of the ball itself -- its lit cap in a dark room -- is of
     # another size but at the ball, and its position is kept)
     good = ~bad
+    edge = len(pts) // 5
     if good.sum() >= 6:
         uv = np.array([(p[2].u, p[2].v) for p in pts])
         for i in np.flatnonzero(bad):
+            if edge <= i < len(pts) - edge:
+                continue  # (only the ends are cut, below)
             near = np.flatnonzero(good)[np.argsort(np.abs(np.flatnonzero(good) - i))[:8]]
             pred = [np.polyval(np.polyfit(t[near] - t[i], uv[near, k], 2), 0.0) for k in range(2)]
             bad[i] = float(np.hypot(uv[i, 0] - pred[0], uv[i, 1] - pred[1])) > max(2.0, 0.5 * med[i])
     # cut at the ends only: a track that ran on from the ball onto something else (or began on it) leaves
     # the ball there for good, while a stray inside the track is one exposure's blob and dropping it would
     # leave a gap that the smoothness tests read as an uneven step
-    edge = len(pts) // 5
     a = max([i + 1 for i in range(edge) if bad[i]], default=0)
     b = min([i for i in range(len(pts) - edge, len(pts)) if bad[i]], default=len(pts))
     if a == 0 and b == len(pts):
